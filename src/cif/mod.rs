@@ -1,0 +1,1 @@
+//! CIF: the grammar (bytes to document) and the document model (blocks, items, loops).

@@ -1,0 +1,16 @@
+//! hopmap: where mobile ions can travel through a crystal, and how hard each path is.
+//!
+//! Data flow, one way: file -> [`cif`] document -> [`structure::Structure`] -> framework and
+//! probe ion ([`bv::model`]) -> energy [`grid::Grid`] ([`landscape`]) -> channels and site
+//! network -> results -> renderers. See `ARCHITECTURE.md`.
+
+pub mod bv;
+pub mod cif;
+pub mod element;
+mod element_table;
+pub mod grid;
+pub mod landscape;
+pub mod lattice;
+pub mod read;
+pub mod spacegroup;
+pub mod structure;

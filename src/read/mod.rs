@@ -1,0 +1,1 @@
+//! Structure files in: CIF (through [`crate::cif`]), VASP POSCAR/CONTCAR, extended XYZ.

@@ -1,0 +1,201 @@
+//! The crystal structure: a lattice, its symmetry, and the full unit cell of sites.
+//!
+//! This is the plain data type every later stage reads. Sites are stored already expanded to the
+//! full cell; each remembers which asymmetric-unit site it came from. A mixed site (two species
+//! sharing one position, e.g. Nb/W or Li/Ti) is one [`Site`] with several [`Occupant`]s.
+
+use crate::element::Element;
+use crate::lattice::{Cart, Frac, Lattice};
+use crate::spacegroup::SymOp;
+use std::collections::BTreeMap;
+
+/// An element with an optional formal oxidation state (fractional averages allowed, e.g. Mn3.5+).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Species {
+    pub element: Element,
+    pub oxidation: Option<f64>,
+}
+
+impl Species {
+    pub fn new(element: Element, oxidation: Option<f64>) -> Self {
+        Species { element, oxidation }
+    }
+    /// "Nb5+", "O2-", "Li+", "Mn3.5+", or the bare symbol when the state is unknown.
+    pub fn name(&self) -> String {
+        match self.oxidation {
+            None => self.element.symbol().to_string(),
+            Some(q) => {
+                let mag = q.abs();
+                let sign = if q < 0.0 { '-' } else { '+' };
+                let num = if (mag - 1.0).abs() < 1e-9 {
+                    String::new()
+                } else if (mag - mag.round()).abs() < 1e-9 {
+                    format!("{}", mag.round() as i64)
+                } else {
+                    let s = format!("{mag:.3}");
+                    s.trim_end_matches('0').trim_end_matches('.').to_string()
+                };
+                if mag < 1e-9 {
+                    format!("{}0", self.element.symbol())
+                } else {
+                    format!("{}{num}{sign}", self.element.symbol())
+                }
+            }
+        }
+    }
+}
+
+/// One species on a site, with its occupancy (0-1) and the CIF label it came from.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Occupant {
+    pub species: Species,
+    pub occupancy: f64,
+    pub label: String,
+}
+
+/// A position in the full cell and what sits there.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Site {
+    pub frac: Frac,
+    pub occupants: Vec<Occupant>,
+    /// Index into [`Structure::asymmetric_sites`] of the site this one is an image of.
+    pub asym_index: usize,
+}
+
+impl Site {
+    /// Label of the first occupant (the usual way to name a site).
+    pub fn label(&self) -> &str {
+        self.occupants
+            .first()
+            .map(|o| o.label.as_str())
+            .unwrap_or("")
+    }
+    pub fn total_occupancy(&self) -> f64 {
+        self.occupants.iter().map(|o| o.occupancy).sum()
+    }
+    pub fn has_element(&self, e: Element) -> bool {
+        self.occupants.iter().any(|o| o.species.element == e)
+    }
+}
+
+/// A site of the asymmetric unit as listed in the file, with its multiplicity in the full cell.
+#[derive(Debug, Clone, PartialEq)]
+pub struct AsymmetricSite {
+    pub label: String,
+    pub frac: Frac,
+    pub occupants: Vec<Occupant>,
+    /// Number of positions this site generates in the full cell.
+    pub multiplicity: usize,
+    /// Wyckoff letter when the file gives one.
+    pub wyckoff: Option<String>,
+}
+
+/// What is known about the symmetry the structure was read with.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct SymmetryInfo {
+    pub number: Option<u16>,
+    pub hm_symbol: Option<String>,
+    pub hall_symbol: Option<String>,
+    /// The operations used to expand the asymmetric unit (identity first).
+    pub ops: Vec<SymOp>,
+    /// Where the operations came from, in words ("operator list in the file", "Hall symbol", ...).
+    pub source: String,
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct Structure {
+    /// Data block name or file stem.
+    pub name: String,
+    pub lattice: Lattice,
+    pub symmetry: SymmetryInfo,
+    pub asymmetric_sites: Vec<AsymmetricSite>,
+    /// The full cell, every symmetry image.
+    pub sites: Vec<Site>,
+    /// Problems noticed while reading that did not stop it (plain sentences).
+    pub warnings: Vec<String>,
+    /// True when oxidation states were assigned by hopmap rather than read from the file.
+    pub oxidation_states_assigned: bool,
+}
+
+impl Structure {
+    pub fn volume(&self) -> f64 {
+        self.lattice.volume()
+    }
+
+    pub fn cart(&self, site: &Site) -> Cart {
+        self.lattice.to_cart(site.frac)
+    }
+
+    /// Occupancy-weighted count of each element in the cell.
+    pub fn cell_composition(&self) -> BTreeMap<Element, f64> {
+        let mut m = BTreeMap::new();
+        for s in &self.sites {
+            for o in &s.occupants {
+                *m.entry(o.species.element).or_insert(0.0) += o.occupancy;
+            }
+        }
+        m
+    }
+
+    /// Formula units per cell (Z) and the reduced formula, e.g. (4, "LiFePO4"). Counts are
+    /// reduced by their greatest common divisor when they are (close to) integers; otherwise Z = 1
+    /// and the formula keeps fractional amounts.
+    pub fn formula_and_z(&self) -> (u32, String) {
+        let comp = self.cell_composition();
+        let counts: Vec<f64> = comp.values().copied().collect();
+        let integral = counts
+            .iter()
+            .all(|c| (c - c.round()).abs() < 1e-3 && c.round() >= 1.0);
+        let z = if integral {
+            counts
+                .iter()
+                .fold(0u64, |g, c| gcd_u64(g, c.round() as u64))
+                .max(1)
+        } else {
+            1
+        };
+        let mut els: Vec<(&Element, &f64)> = comp.iter().collect();
+        // Hill-like order for inorganics: by increasing electronegativity is the chemist's habit;
+        // the simple and stable rule here is cations before anions, then by atomic number.
+        els.sort_by_key(|(e, _)| (e.is_usual_anion(), e.atomic_number()));
+        let mut f = String::new();
+        for (e, n) in els {
+            let n = n / z as f64;
+            f.push_str(e.symbol());
+            if (n - 1.0).abs() < 1e-3 {
+            } else if (n - n.round()).abs() < 1e-3 {
+                f.push_str(&format!("{}", n.round() as i64));
+            } else {
+                let s = format!("{n:.3}");
+                f.push_str(s.trim_end_matches('0').trim_end_matches('.'));
+            }
+        }
+        (z as u32, f)
+    }
+
+    /// Molar mass of the formula unit of [`Structure::formula_and_z`], g/mol.
+    pub fn formula_mass(&self) -> f64 {
+        let (z, _) = self.formula_and_z();
+        self.cell_composition()
+            .iter()
+            .map(|(e, n)| e.atomic_mass() * n)
+            .sum::<f64>()
+            / z as f64
+    }
+
+    /// Density in g/cm^3.
+    pub fn density(&self) -> f64 {
+        const AVOGADRO: f64 = 6.022_140_76e23; // CODATA 2018, exact
+        let mass_g: f64 = self
+            .cell_composition()
+            .iter()
+            .map(|(e, n)| e.atomic_mass() * n)
+            .sum::<f64>()
+            / AVOGADRO;
+        mass_g / (self.volume() * 1e-24)
+    }
+}
+
+fn gcd_u64(a: u64, b: u64) -> u64 {
+    if b == 0 { a } else { gcd_u64(b, a % b) }
+}
