@@ -8,6 +8,7 @@ pub mod bv;
 pub mod cif;
 pub mod element;
 mod element_table;
+pub mod error;
 pub mod grid;
 pub mod landscape;
 pub mod lattice;
