@@ -268,11 +268,6 @@ impl LinePlot {
                 }
                 svg.polyline(&run, &style);
             }
-            if let Some(m) = s.marker {
-                for q in s.points.iter().filter_map(|&p| to_px(p)) {
-                    draw_marker(svg, q.0, q.1, m, 7.0, colour, colour);
-                }
-            }
             if !s.label.is_empty() {
                 legend.push((
                     s.label.clone(),
@@ -282,6 +277,26 @@ impl LinePlot {
                         marker: s.marker,
                     },
                 ));
+            }
+        }
+        svg.close_group();
+
+        // Frame, then markers and text on top, unclipped so that a marker on the frame shows
+        // whole; points outside the plot area are left out.
+        svg.rect(area.x, area.y, area.w, area.h, &Style::stroke(INK, 1.0));
+        let inside = |(x, y): (f64, f64)| {
+            x >= area.x - 0.5
+                && x <= area.x + area.w + 0.5
+                && y >= area.y - 0.5
+                && y <= area.y + area.h + 0.5
+        };
+        let to_px = |p: (f64, f64)| to_px(p).filter(|&q| inside(q));
+        for (i, s) in self.series.iter().enumerate() {
+            let colour = s.colour.unwrap_or_else(|| categorical(i));
+            if let Some(m) = s.marker {
+                for q in s.points.iter().filter_map(|&p| to_px(p)) {
+                    draw_marker(svg, q.0, q.1, m, 7.0, colour, colour);
+                }
             }
         }
         for m in &self.markers {
@@ -317,10 +332,6 @@ impl LinePlot {
                 );
             }
         }
-        svg.close_group();
-
-        // Frame, ticks, labels.
-        svg.rect(area.x, area.y, area.w, area.h, &Style::stroke(INK, 1.0));
         draw_x_ticks(svg, area, &xt, &px);
         draw_y_ticks(svg, area, &yt, &py);
         svg.text(
