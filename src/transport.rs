@@ -596,6 +596,15 @@ pub fn required_diffusion_m2_s(
     Ok(r * r / (2.0 * d * t))
 }
 
+/// The note that goes with hopping-model numbers in the default (dilute-limit) settings.
+pub const DILUTE_LIMIT_NOTE: &str = "Dilute limit: correlation factor f = 1 and site filling \
+c = 0, i.e. a single carrier in an empty network; at high filling real diffusion is slower and \
+correlated.";
+
+/// The note that goes with Nernst-Einstein conductivities.
+pub const HAVEN_RATIO_NOTE: &str = "Nernst-Einstein conductivity with the Haven ratio taken as \
+1 (no correlated motion of the carriers).";
+
 /// The caution that goes with every rate figure, in the words shown to users.
 pub const RATE_CAUTION: &str = "Rate figures are upper bounds set by bulk diffusion in the \
 active material alone; real electrodes are often limited first by the electrolyte, contacts and \

@@ -347,6 +347,12 @@ fn degenerate_heat_maps_say_so_instead_of_failing() {
     let map = HeatMap::new(vec![1.0; 4], 2, 2, [1.0, 0.0], [2.0, 0.0]);
     let texts = parse_texts(&Figure::heatmap(300.0, 300.0, map).to_svg());
     assert!(texts.iter().any(|t| t.starts_with("no map")));
+    // Too few values for the grid (fields set by hand): the missing ones are drawn grey.
+    let mut map = HeatMap::new(vec![0.5; 9], 3, 3, [3.0, 0.0], [0.0, 3.0]);
+    map.values.truncate(4);
+    let svg = Figure::heatmap(300.0, 300.0, map).to_svg();
+    assert!(svg.contains("#bbbbbb"));
+    parse_texts(&svg);
 }
 
 #[test]

@@ -406,7 +406,11 @@ impl HeatMap {
 
     /// Colour of grid point (i, j), indices taken modulo the grid size.
     fn colour_of(&self, scale: &ValueScale, i: usize, j: usize) -> (Rgb, Clamp) {
-        let v = self.values[(i % self.nu) + self.nu * (j % self.nv)] as f64;
+        // A values vector shorter than nu x nv (the fields are public) reads as missing values.
+        let v = self
+            .values
+            .get((i % self.nu) + self.nu * (j % self.nv))
+            .map_or(f64::NAN, |&v| v as f64);
         let (t, c) = scale.normalize(v);
         (self.colormap.at(t), c)
     }
