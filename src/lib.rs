@@ -5,6 +5,7 @@
 //! network -> results -> renderers. See `ARCHITECTURE.md`.
 
 pub mod bv;
+pub mod capacity;
 pub mod cif;
 pub mod element;
 mod element_table;
@@ -12,6 +13,8 @@ pub mod error;
 pub mod grid;
 pub mod landscape;
 pub mod lattice;
+pub mod plot;
 pub mod read;
 pub mod spacegroup;
 pub mod structure;
+pub mod transport;
