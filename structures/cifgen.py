@@ -125,7 +125,6 @@ def write_cif(
     vol = cell_volume(*cell)
     types: dict[str, float] = {}
     counts: dict[str, float] = {}
-    ds = None
     for label, ts, x, y, zz, occ in sites:
         types.setdefault(ts, oxidation_of(ts))
         el = element_of(ts)

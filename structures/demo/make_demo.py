@@ -140,8 +140,8 @@ octahedra in six-membered rings stacked along c enclose hexagonal tunnels (and t
 The hexagonal tunnels are partly filled: Na on 1a (0,0,0), occupancy 0.3 (Na0.1WO3). The
 electrons of Na are placed on W: W5+ 0.1 + W6+ 0.9 on one site (average 5.9+).
 Cell a = 7.30, c = 3.83 A; O2 6l (x,2x,0), x = 0.2018 (free parameters from our bond-valence
-minimisation, see make_demo.py). The Na site is deliberately under-bonded (a tunnel too wide for
-Na, as in real bronzes): it is partly occupied, so the checker reports it without failing.
+minimisation, see make_demo.py). Na in the wide hexagonal tunnel is somewhat under-bonded
+(bond-valence sum about 0.8 v.u.); the site is partly occupied, so the checker reports it only.
 {INVENTED}
 Oxidation states: Na+, W6+/W5+, O2-.""",
         cell=(7.30, 7.30, 3.83, 90, 90, 120),

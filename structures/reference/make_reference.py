@@ -19,8 +19,8 @@ from cifgen import write_cif  # noqa: E402
 
 MEMORY = (
     "Coordinates from memory of the published table (not copied from a file at hand);\n"
-    "confirm against the original before quoting them elsewhere. The tests use the structure\n"
-    "for its topology (channel dimension and direction), which does not hinge on the last digit."
+    "confirm against the original before quoting them elsewhere. The channel topology\n"
+    "(dimension, direction) does not hinge on the last digit; bond lengths and energies do."
 )
 
 STRUCTURES = [
