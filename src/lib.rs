@@ -15,3 +15,4 @@ pub mod lattice;
 pub mod read;
 pub mod spacegroup;
 pub mod structure;
+pub mod write_cif;
