@@ -18,3 +18,4 @@ pub mod read;
 pub mod spacegroup;
 pub mod structure;
 pub mod transport;
+pub mod write_cif;

@@ -1,1 +1,4 @@
 //! Structure files in: CIF (through [`crate::cif`]), VASP POSCAR/CONTCAR, extended XYZ.
+
+pub mod poscar;
+pub mod xyz;

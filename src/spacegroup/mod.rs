@@ -149,13 +149,24 @@ impl Setting {
 
     /// Every name this setting answers to in [`from_hm`], in the compact form of
     /// [`compact_hm`]: full and short symbols, the setting symbol, the short symbol of a
-    /// monoclinic setting (`P21/n` for `P 1 21/n 1`), the old symbol with `e` spelled out, and
+    /// monoclinic setting (`P21/n` for `P 1 21/n 1`), the short symbol of a centrosymmetric
+    /// orthorhombic setting read off its full symbol, the old symbol with `e` spelled out, and
     /// the old cubic symbols without the bar (`Fd3m`).
     pub fn names(&self) -> Vec<String> {
         let mut raw: Vec<String> = vec![self.hm_full.to_string(), self.hm_short.to_string()];
         raw.extend(self.hm.split('=').map(|s| s.trim().to_string()));
         if !self.hm_old.is_empty() {
             raw.push(self.hm_old.to_string());
+        }
+        if (47..=74).contains(&self.number) {
+            // centrosymmetric orthorhombic: "B 2/b 2/e 2/b" -> "B b e b" (spglib's setting
+            // symbol of Hall number 331 is the old "B b c b"; this keeps "B b e b" too)
+            let short: Vec<&str> = self
+                .hm_full
+                .split_whitespace()
+                .map(|t| t.rsplit('/').next().unwrap_or(t))
+                .collect();
+            raw.push(short.join(" "));
         }
         if (3..=15).contains(&self.number) {
             // "P 1 21/n 1" -> "P 21/n": the one axis symbol that is not 1
