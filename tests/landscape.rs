@@ -575,3 +575,58 @@ fn numpy_reference_agrees_with_the_grid() {
     assert!(out.status.success(), "NumPy reference disagrees or failed");
     assert!(stdout.contains("max relative error energy"));
 }
+
+/// The cube and XSF files read back with ASE (a general-purpose materials library on PyPI,
+/// `ase.io.cube.read_cube_data`, `ase.io.xsf.read_xsf`): same cell, atoms and values as the
+/// `.npy`. Runs only when HOPMAP_PYTHON names a python with numpy and ase.
+#[test]
+fn ase_reads_our_cube_and_xsf_files() {
+    let Ok(python) = std::env::var("HOPMAP_PYTHON") else {
+        eprintln!("skipped: set HOPMAP_PYTHON to a python with numpy and ase");
+        return;
+    };
+    let has_ase = std::process::Command::new(&python)
+        .args(["-c", "import ase, numpy"])
+        .status()
+        .map(|s| s.success())
+        .unwrap_or(false);
+    if !has_ase {
+        eprintln!("skipped: {python} has no ase");
+        return;
+    }
+    let (m, grid) = small_triclinic_grid();
+    let dir = scratch_dir("landscape-ase");
+    let atoms = export_atoms(&m);
+    export::write_cube_file(&dir.join("e.cube"), &grid, &atoms, ENERGY).unwrap();
+    export::write_xsf_file(&dir.join("e.xsf"), &grid, &atoms, ENERGY).unwrap();
+    export::write_npy_file(&dir.join("e.npy"), &grid).unwrap();
+    let script = r#"
+import sys, numpy as np
+from ase.io.cube import read_cube_data
+from ase.io.xsf import read_xsf
+d = sys.argv[1]
+ref = np.load(d + "/e.npy")
+data, atoms = read_cube_data(d + "/e.cube")
+assert data.shape == ref.shape, data.shape
+assert np.allclose(data, ref, rtol=1e-5, atol=1e-6)
+assert atoms.get_chemical_symbols() == ["O", "O", "O", "F", "Ti", "P"]
+assert np.allclose(atoms.cell.cellpar(), [5.3, 6.1, 7.2, 82.0, 95.0, 103.0], atol=1e-4)
+with open(d + "/e.xsf") as f:
+    grid, origin, span, atoms2 = read_xsf(f, read_data=True)
+assert grid.shape == tuple(n + 1 for n in ref.shape), grid.shape
+assert np.allclose(grid[:-1, :-1, :-1], ref, rtol=1e-5, atol=1e-6)
+assert np.allclose(atoms2.cell.cellpar(), [5.3, 6.1, 7.2, 82.0, 95.0, 103.0], atol=1e-6)
+print("ase agrees")
+"#;
+    let out = std::process::Command::new(&python)
+        .args(["-c", script])
+        .arg(&dir)
+        .output()
+        .unwrap();
+    eprintln!(
+        "{}{}",
+        String::from_utf8_lossy(&out.stdout),
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert!(out.status.success(), "ASE does not read our files back");
+}

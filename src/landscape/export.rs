@@ -66,7 +66,7 @@ pub fn write_cube(
     for row in grid.values.chunks(nc) {
         for line in row.chunks(6) {
             for v in line {
-                write!(w, " {:12.5E}", v)?;
+                write_value(w, *v)?;
             }
             writeln!(w)?;
         }
@@ -122,7 +122,7 @@ pub fn write_xsf(
     for k in 0..=nc {
         for j in 0..=nb {
             for i in 0..=na {
-                write!(w, " {:12.5E}", grid.get(i % na, j % nb, k % nc))?;
+                write_value(w, grid.get(i % na, j % nb, k % nc))?;
                 col += 1;
                 if col == 6 {
                     writeln!(w)?;
@@ -219,6 +219,18 @@ fn write_atomically(
         let _ = fs::remove_file(&tmp);
     }
     result.map_err(with_path)
+}
+
+/// One value as ` -1.23456E-01` (a space and 12 characters, the usual `%12.5E` of cube files).
+fn write_value(w: &mut impl Write, v: f32) -> io::Result<()> {
+    if !v.is_finite() {
+        return write!(w, " {v:>12}");
+    }
+    let s = format!("{:.5E}", v as f64);
+    let (mantissa, exponent) = s.split_once('E').unwrap_or((&s, "0"));
+    let e: i32 = exponent.parse().unwrap_or(0);
+    let sign = if e < 0 { '-' } else { '+' };
+    write!(w, " {:>8}E{sign}{:02}", mantissa, e.abs())
 }
 
 fn one_line(s: &str) -> String {
