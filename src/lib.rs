@@ -12,6 +12,8 @@ pub mod error;
 pub mod grid;
 pub mod landscape;
 pub mod lattice;
+pub mod network;
+pub mod percolation;
 pub mod read;
 pub mod spacegroup;
 pub mod structure;
