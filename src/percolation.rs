@@ -49,11 +49,35 @@ pub(crate) fn total_key(v: f32, idx: usize) -> u64 {
     ((f32_key(v) as u64) << 32) | idx as u64
 }
 
+/// Inverse of [`f32_key`].
+#[inline]
+pub(crate) fn key_f32(k: u32) -> f32 {
+    if k & 0x8000_0000 != 0 {
+        f32::from_bits(k & 0x7fff_ffff)
+    } else {
+        f32::from_bits(!k)
+    }
+}
+
+/// Grid index of a visiting key (see [`visit_order`]).
+#[inline]
+pub fn key_index(key: u64) -> usize {
+    (key & 0xffff_ffff) as usize
+}
+
+/// Value of a visiting key (see [`visit_order`]); `-0.0` comes back as `0.0`.
+#[inline]
+pub fn key_value(key: u64) -> f32 {
+    key_f32((key >> 32) as u32)
+}
+
 /// The open voxels (value strictly below `ceiling`, NaN excluded) in increasing `(value, index)`
-/// order, by a least-significant-digit radix sort on the order-preserving bits of the values
-/// (three passes of 11, 11 and 10 bits; passes whose digit is the same for every voxel are
+/// order, as keys `(order-preserving bits of the value) << 32 | index` (read them with
+/// [`key_index`] and [`key_value`]): the sweep then reads values in sequence rather than
+/// scattered over the grid. Sorted by a least-significant-digit radix sort on the value bits
+/// (three passes of 11, 11 and 10 bits; a pass whose digit is the same for every voxel is
 /// skipped). Grids must have fewer than 2^32 points.
-pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u32> {
+pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
     let mut items = open_items(values, ceiling);
     let mut buf = vec![0u64; items.len()];
     let mut hist = [[0usize; 2048]; 3];
@@ -88,16 +112,15 @@ pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u32> {
         }
         src_is_items = !src_is_items;
     }
-    let sorted = if src_is_items { items } else { buf };
-    sorted.into_iter().map(|x| x as u32).collect()
+    if src_is_items { items } else { buf }
 }
 
 /// The same order as [`visit_order`], by a comparison sort (`sort_unstable` on the packed
 /// `(value, index)` keys). Kept as the reference the benchmark measures the radix sort against.
-pub fn visit_order_by_comparison(values: &[f32], ceiling: f32) -> Vec<u32> {
+pub fn visit_order_by_comparison(values: &[f32], ceiling: f32) -> Vec<u64> {
     let mut items = open_items(values, ceiling);
     items.sort_unstable();
-    items.into_iter().map(|x| x as u32).collect()
+    items
 }
 
 fn open_items(values: &[f32], ceiling: f32) -> Vec<u64> {
@@ -549,6 +572,9 @@ pub(crate) struct Sweep<'a, O: Offset> {
     size: Vec<u32>,
     low: Vec<u32>,
     off: Vec<[O; 3]>,
+    /// Rank of the winding lattice of each root (a copy of `windings[root].rows.len()`, so that
+    /// the common case, a root without windings, needs no look-up).
+    rank: Vec<u8>,
     windings: FastMap<u32, Winding>,
     in_rank: [usize; 4],
     added: usize,
@@ -570,6 +596,7 @@ impl<'a, O: Offset> Sweep<'a, O> {
             size: vec![0; n],
             low: vec![0; n],
             off: vec![[O::default(); 3]; n],
+            rank: vec![0; n],
             windings: FastMap::default(),
             in_rank: [0; 4],
             added: 0,
@@ -581,22 +608,40 @@ impl<'a, O: Offset> Sweep<'a, O> {
         }
     }
 
+    /// Hints the processor to load the entries of `x` (no effect off x86-64 or out of range).
+    #[inline]
+    pub(crate) fn prefetch(&self, x: usize) {
+        #[cfg(target_arch = "x86_64")]
+        if x < self.parent.len() {
+            use std::arch::x86_64::{_MM_HINT_T0, _mm_prefetch};
+            // SAFETY: prefetching is a hint; the addresses lie inside live allocations
+            unsafe {
+                _mm_prefetch::<_MM_HINT_T0>(self.parent.as_ptr().add(x) as *const i8);
+                _mm_prefetch::<_MM_HINT_T0>(self.off.as_ptr().add(x) as *const i8);
+            }
+        }
+        #[cfg(not(target_arch = "x86_64"))]
+        let _ = x;
+    }
+
     #[inline]
     pub(crate) fn is_added(&self, x: usize) -> bool {
         self.parent[x] != NONE
     }
 
+    /// Adds point `x`, whose value is `v` (passed in so that the grid sweep need not look it up
+    /// far away in the grid).
     #[inline]
-    pub(crate) fn add(&mut self, x: usize) {
+    pub(crate) fn add(&mut self, x: usize, v: f32) {
         debug_assert!(!self.is_added(x));
         self.parent[x] = x as u32;
         self.size[x] = 1;
         self.low[x] = x as u32;
         self.off[x] = [O::default(); 3];
+        self.rank[x] = 0;
         self.in_rank[0] += 1;
         self.added += 1;
         self.largest = self.largest.max(1);
-        let v = self.values[x];
         if self.lowest.is_none_or(|l| v < l) {
             self.lowest = Some(v);
         }
@@ -672,12 +717,14 @@ impl<'a, O: Offset> Sweep<'a, O> {
         self.size[big] += self.size[small];
         self.low[big] = self.lower(self.low[big], self.low[small]);
         self.largest = self.largest.max(self.size[big] as usize);
-        if let Some(ws) = self.windings.remove(&(small as u32)) {
+        if rank_small > 0 {
+            let ws = self.windings.remove(&(small as u32)).unwrap_or_default();
             let e = self.windings.entry(big as u32).or_default();
             let mut rows = std::mem::take(&mut e.rows);
             rows.extend_from_slice(&ws.rows);
             e.rows = hnf(rows);
             e.announced = e.announced.max(ws.announced);
+            self.rank[big] = e.rows.len() as u8;
         }
         let rank = self.rank(big);
         self.in_rank[rank_big] -= size_big;
@@ -700,6 +747,7 @@ impl<'a, O: Offset> Sweep<'a, O> {
         rows.push(w);
         e.rows = hnf(rows);
         let new = e.rows.len();
+        self.rank[root] = new as u8;
         if new > old {
             self.in_rank[old] -= size;
             self.in_rank[new] += size;
@@ -869,7 +917,7 @@ pub fn percolate_levels(grid: &Grid, ceiling: f32, levels: &[f32]) -> Percolatio
 
 /// As [`percolate_levels`] with the visiting order already computed by [`visit_order`] (so
 /// that callers measuring the stages, or reusing the order, do not sort twice).
-pub fn percolate_in_order(grid: &Grid, ceiling: f32, order: &[u32], levels: &[f32]) -> Percolation {
+pub fn percolate_in_order(grid: &Grid, ceiling: f32, order: &[u64], levels: &[f32]) -> Percolation {
     if offsets_fit_i16(grid.dims) {
         sweep_grid::<i16>(grid, ceiling, order, levels).finish_with(ceiling)
     } else {
@@ -891,29 +939,44 @@ impl<O: Offset> GridSweep<'_, O> {
 fn sweep_grid<'a, O: Offset>(
     grid: &'a Grid,
     _ceiling: f32,
-    order: &[u32],
+    order: &[u64],
     levels: &[f32],
 ) -> GridSweep<'a, O> {
-    let values = &grid.values;
-    let mut sweep = Sweep::<O>::new(values, &grid.lattice);
+    let mut sweep = Sweep::<O>::new(&grid.values, &grid.lattice);
     let mut lv: Vec<f32> = levels.iter().copied().filter(|l| !l.is_nan()).collect();
     lv.sort_by(|a, b| a.total_cmp(b));
     let mut stats = Vec::with_capacity(lv.len());
     let mut li = 0;
-    for (pos, &x) in order.iter().enumerate() {
-        let x = x as usize;
-        let e = values[x];
+    const AHEAD: usize = 12;
+    let plane = grid.dims[1] * grid.dims[2];
+    for (pos, &key) in order.iter().enumerate() {
+        let x = key_index(key);
+        let e = key_value(key);
+        if let Some(&later) = order.get(pos + AHEAD) {
+            // the union-find entries of a voxel's neighbours are scattered over the grid:
+            // ask for them well before they are needed
+            let y = key_index(later);
+            for z in [
+                y,
+                y.wrapping_sub(grid.dims[2]),
+                y + grid.dims[2],
+                y.wrapping_sub(plane),
+                y + plane,
+            ] {
+                sweep.prefetch(z);
+            }
+        }
         while li < lv.len() && lv[li] < e {
             stats.push(sweep.level_stats(lv[li]));
             li += 1;
         }
-        sweep.add(x);
+        sweep.add(x, e);
         for (v, t) in face_neighbours(grid.dims, grid.ijk(x)) {
             if sweep.is_added(v) {
                 sweep.join(x, v, t);
             }
         }
-        if pos + 1 == order.len() || values[order[pos + 1] as usize] != e {
+        if pos + 1 == order.len() || order[pos + 1] >> 32 != key >> 32 {
             sweep.end_group(e);
         }
     }
@@ -972,14 +1035,15 @@ fn regions_from<O: Offset>(
     grid: &Grid,
     level: f32,
     mut sweep: Sweep<'_, O>,
-    order: &[u32],
+    order: &[u64],
 ) -> RegionMap {
     let mut label = vec![NONE; grid.len()];
     let mut id_of_root: FastMap<usize, u32> = FastMap::default();
     let mut regions = Vec::new();
     // `order` is increasing, so regions are numbered by their lowest voxel
-    for &x in order {
-        let (r, _) = sweep.find(x as usize);
+    for &key in order {
+        let x = key_index(key);
+        let (r, _) = sweep.find(x);
         let next = regions.len() as u32;
         let id = *id_of_root.entry(r).or_insert(next);
         if id == next {
@@ -996,7 +1060,7 @@ fn regions_from<O: Offset>(
                 voxels: sweep.size[r] as usize,
             });
         }
-        label[x as usize] = id;
+        label[x] = id;
     }
     RegionMap {
         level,
@@ -1021,7 +1085,16 @@ mod tests {
             visit_order_by_comparison(&values, 50.0)
         );
         let with_nan = [1.0, f32::NAN, -2.0, 3.0];
-        assert_eq!(visit_order(&with_nan, 10.0), vec![2, 0, 3]);
+        let idx: Vec<usize> = visit_order(&with_nan, 10.0)
+            .into_iter()
+            .map(key_index)
+            .collect();
+        assert_eq!(idx, vec![2, 0, 3]);
+        for v in [-3.5f32, -0.0, 0.0, 1e-30, 7.25, f32::MAX, f32::MIN] {
+            let k = total_key(v, 5);
+            assert_eq!(key_value(k), if v == 0.0 { 0.0 } else { v });
+            assert_eq!(key_index(k), 5);
+        }
     }
 
     #[test]

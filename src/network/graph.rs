@@ -82,7 +82,7 @@ impl SiteGraph {
             let h = &hops[self.graph[e]];
             for s in [h.from, h.to] {
                 if !sweep.is_added(s) {
-                    sweep.add(s);
+                    sweep.add(s, energies[s]);
                 }
             }
             sweep.join(h.from, h.to, h.image);
