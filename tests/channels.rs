@@ -51,7 +51,11 @@ fn cos_table(n: usize) -> Vec<f64> {
     c
 }
 
-fn grid_from(lattice: Lattice, dims: [usize; 3], f: impl Fn(usize, usize, usize) -> f64) -> Grid {
+fn grid_from(
+    lattice: Lattice,
+    dims: [usize; 3],
+    mut f: impl FnMut(usize, usize, usize) -> f64,
+) -> Grid {
     let mut g = Grid::new(lattice, dims, 0.0);
     for i in 0..dims[0] {
         for j in 0..dims[1] {
@@ -226,7 +230,22 @@ fn a_valley_along_the_cell_diagonal_is_a_110_channel() {
     assert!(close(p.energy(2).unwrap(), -0.7, 1e-5));
     assert_eq!(direction(&p, 2), [1, -1, 0]);
     assert!(close(p.energy(3).unwrap(), 0.3, 1e-5));
-    let (_, gp) = network_matches_grid(&g, f32::INFINITY, &NetworkOptions::default());
+    let (net, gp) = network_matches_grid(&g, f32::INFINITY, &NetworkOptions::default());
+    // the true minima (0, 0, 0) and (1/2, 1/2, 0) are minima in all 26 directions and deep;
+    // the valley floor near its saddle (1/4, 1/4, 0) holds grid points lower than their face
+    // neighbours only (the valley runs diagonally to the grid): flagged, and shallow
+    let deep: Vec<_> = net.sites.iter().filter(|s| s.minimum_26).collect();
+    assert_eq!(deep.len(), 2);
+    assert!(
+        deep.iter()
+            .all(|s| close(s.energy, -1.7, 1e-6) && s.depth > 0.3)
+    );
+    assert!(
+        net.sites
+            .iter()
+            .filter(|s| !s.minimum_26)
+            .all(|s| s.depth < 0.05)
+    );
 
     // the profile through one repeat along [110] climbs exactly to E_1D
     let profiles = network::profile::channel_profiles(&g, &gp, &network::ProfileOptions::default());
@@ -692,4 +711,55 @@ fn close_minima_merge_only_when_that_keeps_the_network_exact() {
     let tunnels: Vec<_> = net.sites.iter().filter(|s| s.energy < -2.0).collect();
     assert_eq!(tunnels.len(), 2);
     assert!(tunnels.iter().all(|s| s.minima == 1));
+}
+
+#[test]
+fn the_site_graph_reproduces_the_grid_on_random_landscapes() {
+    // No function to reason about here: random values (some quantised to force ties), odd and
+    // tiny grids (1 or 2 points on an axis), a skewed cell, walls below a ceiling, and a merge
+    // distance large enough that many minima are grouped and some groups must be split again.
+    // Whatever the landscape, the site graph must give the grid's percolation exactly.
+    let mut state: u64 = 0x9e37_79b9_7f4a_7c15;
+    let mut next = move || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        (state >> 11) as f64 / (1u64 << 53) as f64
+    };
+    let lattice = cell(3.1, 3.7, 4.3, 83.0, 97.0, 112.0);
+    let cases: [([usize; 3], Option<f64>, f64); 8] = [
+        ([6, 5, 4], None, 0.5),
+        ([7, 6, 5], Some(8.0), 1.5),
+        ([1, 6, 6], None, 0.5),
+        ([2, 2, 9], Some(4.0), 1.0),
+        ([9, 8, 7], None, 2.0),
+        ([10, 9, 8], Some(16.0), 1.2),
+        ([3, 3, 3], Some(2.0), 0.0),
+        ([12, 11, 10], None, 0.8),
+    ];
+    let (mut merged, mut dims_seen) = (0, [0usize; 4]);
+    for (dims, quantum, merge) in cases {
+        for ceiling in [0.2, 0.3, 0.35, 0.5, f32::INFINITY] {
+            let g = grid_from(lattice.clone(), dims, |_, _, _| {
+                let v = next();
+                match quantum {
+                    Some(q) => (v * q).floor() / q,
+                    None => v,
+                }
+            });
+            let options = NetworkOptions {
+                sites: network::SiteOptions {
+                    merge_distance: merge,
+                    ..Default::default()
+                },
+                ..Default::default()
+            };
+            let (net, p) = network_matches_grid(&g, ceiling, &options);
+            merged += net.sites.iter().filter(|s| s.minima > 1).count();
+            dims_seen[p.dimension as usize] += 1;
+        }
+    }
+    // the cases did exercise merged sites and every outcome from closed to 3D
+    assert!(merged > 0);
+    assert!(dims_seen.iter().all(|&n| n > 0), "{dims_seen:?}");
 }

@@ -89,7 +89,7 @@ pub struct Network {
 /// Builds the network of `grid`: basins, sites, orbits, hops and the site graph.
 pub fn build(grid: &Grid, input: &NetworkInput<'_>, options: &NetworkOptions) -> Network {
     let (basins, basin_hops) = hops::basins(grid, options.ceiling);
-    let (sites, orbits, assignment) = sites::find_sites(
+    let (mut sites, orbits, assignment) = sites::find_sites(
         grid,
         &basins,
         &basin_hops,
@@ -106,6 +106,10 @@ pub fn build(grid: &Grid, input: &NetworkInput<'_>, options: &NetworkOptions) ->
         input.framework,
         input.mobile_radius,
     );
+    for h in &hops {
+        sites[h.from].depth = sites[h.from].depth.min(h.barrier_forward);
+        sites[h.to].depth = sites[h.to].depth.min(h.barrier_backward);
+    }
     let graph = SiteGraph::new(&sites, &hops);
     Network {
         ceiling: options.ceiling,

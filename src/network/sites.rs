@@ -62,6 +62,14 @@ pub struct Site {
     pub minima: usize,
     /// For a merged site, the level at which its minima are connected among themselves.
     pub internal_saddle: Option<f32>,
+    /// True when the site's voxel is also lower than all 26 voxels around it. Basins follow
+    /// face neighbours (see [`crate::network::hops`]), so a grid point on the floor of a valley
+    /// running diagonally to the grid can be a minimum for face steps only: such sites are
+    /// grid artefacts, usually with a tiny `depth`.
+    pub minimum_26: bool,
+    /// Lowest barrier out of the site (lowest hop saddle minus the site energy; infinite for a
+    /// site without hops). Filled in by [`crate::network::build`].
+    pub depth: f32,
     /// Index into the orbit list.
     pub orbit: usize,
     pub coordination: Coordination,
@@ -190,6 +198,8 @@ pub fn find_sites(
             energy: grid.values[voxel],
             minima: g.members.len(),
             internal_saddle: g.internal_saddle,
+            minimum_26: is_minimum_26(grid, voxel),
+            depth: f32::INFINITY,
             orbit: 0,
             coordination,
             label,
@@ -327,6 +337,23 @@ fn connection_level(members: &[(usize, [i32; 3])], internal: &[&BasinHop]) -> Op
         }
     }
     None
+}
+
+fn is_minimum_26(grid: &Grid, voxel: usize) -> bool {
+    let [i, j, k] = grid.ijk(voxel);
+    let key = total_key(grid.values[voxel], voxel);
+    let d = grid.dims;
+    for di in [d[0] - 1, 0, 1] {
+        for dj in [d[1] - 1, 0, 1] {
+            for dk in [d[2] - 1, 0, 1] {
+                let y = grid.index((i + di) % d[0], (j + dj) % d[1], (k + dk) % d[2]);
+                if y != voxel && total_key(grid.values[y], y) < key {
+                    return false;
+                }
+            }
+        }
+    }
+    true
 }
 
 /// Sub-voxel position of a minimum: on each axis the vertex of the parabola through the
