@@ -20,7 +20,7 @@
 //!   loop first) are read only at the end of the run, when every voxel of that value has been
 //!   joined: symmetric channels opening at the same energy are all counted.
 //!
-//! The same machinery ([`Sweep`]) runs on the site graph of [`crate::network::graph`].
+//! The same union-find runs on the site graph of [`crate::network::graph`].
 
 use crate::grid::Grid;
 use crate::lattice::Lattice;
