@@ -318,7 +318,7 @@ pub struct Percolation {
     /// Every time a region reached a higher dimension, in increasing energy.
     pub openings: Vec<Channel>,
     /// Openings grouped by dimension and direction or plane, in increasing onset energy: tells
-    /// apart e.g. tunnels along [100] and along [010] that do not connect.
+    /// apart e.g. tunnels along `[100]` and along `[010]` that do not connect.
     pub families: Vec<ChannelFamily>,
     /// Lowest open value (None when nothing is below the ceiling).
     pub lowest: Option<f32>,
