@@ -14,6 +14,8 @@ pub mod grid;
 pub mod landscape;
 pub mod lattice;
 pub mod plot;
+pub mod network;
+pub mod percolation;
 pub mod read;
 pub mod spacegroup;
 pub mod structure;
