@@ -1,1 +1,2 @@
 //! Structure files in: CIF (through [`crate::cif`]), VASP POSCAR/CONTCAR, extended XYZ.
+pub mod cif;
