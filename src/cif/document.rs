@@ -53,6 +53,10 @@ pub struct Block {
     pub line: usize,
     /// True for a STAR `global_` block (name empty).
     pub global: bool,
+    /// Later copies of tags already given in this block with a *different* value. The first
+    /// copy is the one in [`Block::items`]; these are kept so that a reader can refuse to pick
+    /// one when the tag matters to it (see [`Block::conflicting`]).
+    pub duplicates: Vec<Pair>,
 }
 
 /// One entry of a block: a single tag with its value, or a loop.
@@ -202,6 +206,11 @@ impl Block {
             Item::Loop(l) => Some(l),
             _ => None,
         })
+    }
+
+    /// Later copies of `tag` whose values differ from the first (empty for most tags).
+    pub fn conflicting(&self, tag: &str) -> impl Iterator<Item = &Pair> {
+        self.duplicates.iter().filter(move |p| tag_eq(&p.tag, tag))
     }
 
     /// The save frame called `name` (case-insensitive).

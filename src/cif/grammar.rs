@@ -473,6 +473,7 @@ impl Builder {
                 frames: Vec::new(),
                 line,
                 global,
+                duplicates: Vec::new(),
             },
             seen: HashMap::new(),
         }
@@ -682,7 +683,19 @@ impl<'a> Reader<'a> {
                     ));
                 }
                 other => {
-                    let what = describe(&other);
+                    let mut what = describe(&other);
+                    if let Tok::Bare(w) = &other {
+                        let lw = w.to_ascii_lowercase();
+                        if ["loop_", "global_", "stop_"]
+                            .iter()
+                            .any(|k| lw.starts_with(k))
+                        {
+                            what.push_str(
+                                " (a reserved word must be followed by white space; quote the \
+                                 value if it is one)",
+                            );
+                        }
+                    }
                     let msg = if block.is_none() {
                         format!("{what} before any data block (expected 'data_NAME' first)")
                     } else {
@@ -712,25 +725,38 @@ impl<'a> Reader<'a> {
                 (Item::Pair(p), None) => same_value(&p.value, &value),
                 _ => false,
             };
-            if same {
-                let (l, c) = lex.line_col(pos);
-                warnings.push(CifWarning {
-                    line: l,
-                    column: c,
-                    message: format!(
-                        "tag '{tag}' repeats line {first_line} with the same value; the repeat is ignored"
+            if col.is_some() {
+                return Err(lex.error(
+                    pos,
+                    format!(
+                        "tag '{tag}' appears twice in block '{}': in the loop at line \
+                         {first_line} and here",
+                        b.block.name
                     ),
-                });
-                return Ok(());
+                ));
             }
-            return Err(lex.error(
-                pos,
+            let (l, c) = lex.line_col(pos);
+            let message = if same {
                 format!(
-                    "tag '{tag}' appears twice in block '{}' (first at line {first_line}) with \
-                     different values",
-                    b.block.name
-                ),
-            ));
+                    "tag '{tag}' repeats line {first_line} with the same value; the repeat is ignored"
+                )
+            } else {
+                b.block.duplicates.push(Pair {
+                    tag: tag.to_string(),
+                    value,
+                    line,
+                });
+                format!(
+                    "tag '{tag}' is given again with a different value (first at line \
+                     {first_line}); the first value is kept"
+                )
+            };
+            warnings.push(CifWarning {
+                line: l,
+                column: c,
+                message,
+            });
+            return Ok(());
         }
         b.seen.insert(key, (line, b.block.items.len(), None));
         b.block.items.push(Item::Pair(Pair {

@@ -23,9 +23,12 @@
 //! - **Ctrl-Z** (0x1A, the old DOS end-of-file mark) at the end of a file is ignored. Elsewhere,
 //!   outside strings, it is read as white space with a warning; inside a quoted string or a
 //!   text field it is kept as a character with a warning.
-//! - **Duplicate tags** in one block or frame: when both copies carry the same value the second
-//!   is dropped with a warning (real files repeat `_chemical_formula_weight`); when the values
-//!   differ, or a looped tag appears twice, it is an error, because the data are ambiguous.
+//! - **Duplicate tags** in one block or frame: a repeat with the same value is dropped with a
+//!   warning (real files repeat `_chemical_formula_weight`). A repeat with a different value is
+//!   a warning too, the first value is kept and the repeat is stored in [`Block::duplicates`], so
+//!   that the structure reader can refuse a cell length given twice while a file with two
+//!   different `_diffrn_ambient_temperature` still yields its structure. A looped tag that
+//!   appears twice is an error: the table itself would be ambiguous.
 //! - **Reserved words.** `data_` and `save_` start headers whenever an unquoted word begins with
 //!   them (so `_tag data_x` is an error: the tag has no value). `loop_`, `global_` and `stop_`
 //!   are reserved only as whole words; `global_x` is an ordinary value. `global_` opens a STAR

@@ -118,6 +118,7 @@ pub mod tags {
 pub fn structure_from_block(block: &Block, file: &str) -> Result<Structure, InputError> {
     let ctx = format!("data block '{}'", block.name);
     let mut warnings = Vec::new();
+    refuse_conflicts(block, file, &ctx)?;
     let lattice = read_lattice(block, file, &ctx, &mut warnings)?;
     let symmetry = read_symmetry(block, file, &ctx, &mut warnings)?;
     let rows = read_site_rows(block, file, &ctx, &mut warnings)?;
@@ -237,6 +238,39 @@ fn value_err(file: &str, ctx: &str, block: &Block, tag: &str, v: &Value, what: &
     InputError::new(file, format!("{tag} is '{shown}', {what}"))
         .at_line(line)
         .context(ctx.to_string())
+}
+
+/// A tag this reader relies on, given twice with different values, is an error: there is no
+/// way to know which one the authors meant.
+fn refuse_conflicts(block: &Block, file: &str, ctx: &str) -> Result<(), InputError> {
+    let relied_on = [
+        tags::CELL_A,
+        tags::CELL_B,
+        tags::CELL_C,
+        tags::CELL_ALPHA,
+        tags::CELL_BETA,
+        tags::CELL_GAMMA,
+        tags::HALL,
+        tags::HM,
+        tags::NUMBER,
+        tags::SYMOP_XYZ,
+    ];
+    for tag in relied_on.iter().flat_map(|a| a.iter()) {
+        if let Some(dup) = block.conflicting(tag).next() {
+            let first = block.line_of(tag).unwrap_or(block.line);
+            return Err(InputError::new(
+                file,
+                format!(
+                    "{} is given twice with different values (lines {first} and {}); which one \
+                     is meant cannot be told",
+                    dup.tag, dup.line
+                ),
+            )
+            .at_line(dup.line)
+            .context(ctx.to_string()));
+        }
+    }
+    Ok(())
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -491,15 +525,11 @@ pub fn read_symbol(s: &str) -> Option<SymbolReading> {
     if matches!(lower.as_str(), "q" | "du" | "dum" | "dummy" | "x" | "xx") {
         return Some(SymbolReading::Dummy);
     }
-    let element = if lower == "d" {
-        Element::from_symbol("H")?
-    } else {
-        Element::from_label_prefix(s)?
-    };
-    let used = if lower == "d" {
-        1
-    } else {
-        element.symbol().len().min(letters.len())
+    // Deuterium: `D`, `D1`, `DW1` (not an element symbol, and not Dy, Db, Ds).
+    let (element, used) = match Element::from_label_prefix(s) {
+        Some(e) => (e, e.symbol().len().min(letters.len())),
+        None if lower.starts_with('d') => (Element::from_symbol("H")?, 1),
+        None => return None,
     };
     Some(SymbolReading::Atom(element, read_charge(&s[used..])))
 }
@@ -676,7 +706,7 @@ fn read_site_rows(
                 unknown = true;
                 break;
             }
-            coord[k] = v.as_number().ok_or_else(|| {
+            coord[k] = read_coordinate(v).ok_or_else(|| {
                 value_err(file, &site_ctx(), block, tag_of(tag), v, "not a number")
             })?;
         }
@@ -746,6 +776,18 @@ fn same_len<'b>(
 
 fn text_at<'b>(c: &Option<Vec<&'b Value>>, i: usize) -> Option<&'b str> {
     c.as_ref().and_then(|c| c[i].as_str())
+}
+
+/// A fractional coordinate: a CIF number, or a simple fraction `1/4`, `-2/3` as some writers
+/// put it for special positions.
+fn read_coordinate(v: &Value) -> Option<f64> {
+    if let Some(x) = v.as_number() {
+        return Some(x);
+    }
+    let (n, d) = v.as_str()?.split_once('/')?;
+    let n: f64 = cif::parse_number_with_su(n)?.0;
+    let d: f64 = cif::parse_number_with_su(d)?.0;
+    (d != 0.0).then(|| n / d)
 }
 
 /// `_atom_type_symbol` (lower case) -> `_atom_type_oxidation_number`.
@@ -974,5 +1016,278 @@ fn check_charge(sites: &[Site], warnings: &mut Vec<String>) {
         warnings.push(format!(
             "the oxidation states do not balance: the cell carries a net charge of {total:+.3} e"
         ));
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn data(name: &str) -> String {
+        let p = Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("tests/data/cif")
+            .join(name);
+        std::fs::read_to_string(p).expect("test CIF")
+    }
+
+    fn structure(text: &str) -> Structure {
+        let doc = cif::parse(text.as_bytes()).expect("test CIF parses");
+        let blocks = blocks_with_atoms(&doc);
+        structure_from_block(blocks[0], "test.cif").expect("test CIF gives a structure")
+    }
+
+    fn multiplicity(s: &Structure, label: &str) -> usize {
+        let a = s
+            .asymmetric_sites
+            .iter()
+            .find(|a| a.label == label)
+            .unwrap_or_else(|| panic!("site {label}"));
+        let in_cell = s
+            .sites
+            .iter()
+            .filter(|x| s.asymmetric_sites[x.asym_index].label == label)
+            .count();
+        assert_eq!(
+            a.multiplicity, in_cell,
+            "{label}: multiplicity vs images in the cell"
+        );
+        a.multiplicity
+    }
+
+    /// International Tables for Crystallography Vol. A, space group No. 62 (Pnma): Wyckoff
+    /// positions 4a, 4b, 4c and 8d.
+    #[test]
+    fn pnma_multiplicities_follow_the_international_tables() {
+        let s = structure(&data("pnma-wyckoff.cif"));
+        assert_eq!(s.symmetry.ops.len(), 8);
+        assert_eq!(s.symmetry.source, "operator list in the file");
+        for (label, m) in [("Li1", 4), ("Na1", 4), ("Fe1", 4), ("P1", 4), ("O3", 8)] {
+            assert_eq!(multiplicity(&s, label), m, "{label}");
+        }
+        assert_eq!(s.sites.len(), 24);
+        // The file's own _atom_site_symmetry_multiplicity agrees: no warning about it.
+        assert!(
+            !s.warnings.iter().any(|w| w.contains("multiplicity")),
+            "{:?}",
+            s.warnings
+        );
+        let wy: Vec<_> = s
+            .asymmetric_sites
+            .iter()
+            .map(|a| a.wyckoff.clone().unwrap())
+            .collect();
+        assert_eq!(wy, ["a", "b", "c", "c", "d"]);
+        assert_eq!(s.name, "pnma_wyckoff");
+    }
+
+    /// International Tables for Crystallography Vol. A, space group No. 227 (Fd-3m), origin
+    /// choice 2: 8a, 8b, 16c, 16d, 32e, 48f, 96g, 96h, 192i.
+    #[test]
+    fn fd3m_multiplicities_follow_the_international_tables() {
+        let s = structure(&data("fd-3m-wyckoff.cif"));
+        assert_eq!(s.symmetry.ops.len(), 192);
+        assert_eq!(s.symmetry.hm_symbol.as_deref(), Some("F d -3 m"));
+        for (label, m) in [
+            ("A8a", 8),
+            ("B8b", 8),
+            ("C16c", 16),
+            ("D16d", 16),
+            ("E32e", 32),
+            ("F48f", 48),
+            ("G96g", 96),
+            ("H96h", 96),
+            ("I192i", 192),
+        ] {
+            assert_eq!(multiplicity(&s, label), m, "{label}");
+        }
+    }
+
+    /// Same group in DDLm tag names; a position shared by two labels is one mixed site.
+    #[test]
+    fn spinel_mixed_site_is_one_site_with_two_occupants() {
+        let s = structure(&data("spinel-mixed-ddlm.cif"));
+        assert_eq!(s.asymmetric_sites.len(), 3, "Li1, Mn1+Li2, O1");
+        let mixed = &s.asymmetric_sites[1];
+        assert_eq!(mixed.label, "Mn1");
+        assert_eq!(mixed.multiplicity, 16);
+        let labels: Vec<_> = mixed.occupants.iter().map(|o| o.label.as_str()).collect();
+        assert_eq!(labels, ["Mn1", "Li2"]);
+        assert_eq!(mixed.occupants[0].species.name(), "Mn3.5+");
+        assert_eq!(multiplicity(&s, "Li1"), 8);
+        assert_eq!(multiplicity(&s, "O1"), 32);
+        assert_eq!(s.sites.len(), 56);
+        let (a, b) = (s.lattice.parameters().a, 8.247);
+        assert!((a - b).abs() < 1e-12);
+        // 8 x 1 + 16 x 3.25 - 64 = -4 e, stated in the file header.
+        assert!(
+            s.warnings
+                .iter()
+                .any(|w| w.contains("net charge of -4.000 e")),
+            "{:?}",
+            s.warnings
+        );
+    }
+
+    const HEAD: &str = "data_t\n_cell_length_a 5\n_cell_length_b 5\n_cell_length_c 5\n\
+        _cell_angle_alpha 90\n_cell_angle_beta 90\n_cell_angle_gamma 90\n\
+        loop_\n_symmetry_equiv_pos_as_xyz\nx,y,z\n-x,-y,-z\n";
+
+    #[test]
+    fn dummies_and_unknown_coordinates_are_left_out_with_a_warning() {
+        let s = structure(&format!(
+            "{HEAD}loop_\n_atom_site_label\n_atom_site_type_symbol\n_atom_site_fract_x\n\
+             _atom_site_fract_y\n_atom_site_fract_z\n_atom_site_calc_flag\n\
+             Li1 Li+ 0.1 0.2 0.3 d\nQ1 Q 0.3 0.3 0.3 d\nX1 ? 0.2 0.2 0.1 .\n\
+             Du2 Du 0.4 0.1 0.1 d\nO9 O2- 0.4 0.4 0.1 dum\nO1 O2- ? 0.1 0.1 d\n\
+             H1 H 0.35 0.1 0.2 c\nD1 D 0.1 0.35 0.2 calc\n"
+        ));
+        let kept: Vec<_> = s
+            .asymmetric_sites
+            .iter()
+            .map(|a| a.label.as_str())
+            .collect();
+        assert_eq!(kept, ["Li1", "H1", "D1"]);
+        assert_eq!(
+            s.asymmetric_sites[2].occupants[0].species.element.symbol(),
+            "H"
+        );
+        for l in ["Q1", "X1", "Du2", "O9", "O1"] {
+            assert!(
+                s.warnings.iter().any(|w| w.contains(&format!("'{l}'"))),
+                "{l}: {:?}",
+                s.warnings
+            );
+        }
+    }
+
+    #[test]
+    fn type_symbols_carry_charges() {
+        use SymbolReading::*;
+        let el = |s| Element::from_symbol(s).unwrap();
+        assert_eq!(read_symbol("Nb5+"), Some(Atom(el("Nb"), Some(5.0))));
+        assert_eq!(read_symbol("O2-"), Some(Atom(el("O"), Some(-2.0))));
+        assert_eq!(read_symbol("O-2"), Some(Atom(el("O"), Some(-2.0))));
+        assert_eq!(read_symbol("Li1+"), Some(Atom(el("Li"), Some(1.0))));
+        assert_eq!(read_symbol("Li+"), Some(Atom(el("Li"), Some(1.0))));
+        assert_eq!(read_symbol("Fe2.5+"), Some(Atom(el("Fe"), Some(2.5))));
+        assert_eq!(read_symbol("Fe1"), Some(Atom(el("Fe"), None)));
+        assert_eq!(read_symbol("Ow1"), Some(Atom(el("O"), None)));
+        assert_eq!(read_symbol("DW1"), Some(Atom(el("H"), None)));
+        assert_eq!(read_symbol("Dy3+"), Some(Atom(el("Dy"), Some(3.0))));
+        assert_eq!(read_symbol("Xe"), Some(Atom(el("Xe"), None)));
+        for d in ["Q", "Q12", "Du", "dum", "X", "X3"] {
+            assert_eq!(read_symbol(d), Some(Dummy), "{d}");
+        }
+        assert_eq!(read_symbol("Zz1"), None);
+        assert_eq!(read_symbol("123"), None);
+    }
+
+    #[test]
+    fn atom_type_table_gives_oxidation_states() {
+        let s = structure(&format!(
+            "{HEAD}loop_\n_atom_type_symbol\n_atom_type_oxidation_number\nLi 1\nO -2\n\
+             loop_\n_atom_site_label\n_atom_site_type_symbol\n_atom_site_fract_x\n\
+             _atom_site_fract_y\n_atom_site_fract_z\nLi1 Li 0 0 0\nLi2 Li 0.5 0.5 0.5\n\
+             O1 O 0.25 0.25 0.25\n"
+        ));
+        let names: Vec<String> = s
+            .asymmetric_sites
+            .iter()
+            .map(|a| a.occupants[0].species.name())
+            .collect();
+        assert_eq!(names, ["Li+", "Li+", "O2-"]);
+        // Li1 and Li2 sit on inversion centres (1 image each); O1 gives 2: 1 + 1 - 2 x 2 = -2 e.
+        assert!(
+            s.warnings
+                .iter()
+                .any(|w| w.contains("net charge of -2.000 e")),
+            "{:?}",
+            s.warnings
+        );
+    }
+
+    #[test]
+    fn overfull_sites_and_impossible_contacts_are_warned_about() {
+        let s = structure(&format!(
+            "{HEAD}loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n\
+             _atom_site_fract_z\n_atom_site_occupancy\n\
+             Na1 0.1 0.1 0.1 0.8\nK1 0.1 0.1 0.1 0.4\nO1 0.3 0.3 0.3 1\nO2 0.32 0.3 0.3 1\n\
+             Li1 0.6 0.6 0.6 0.5\nLi2 0.64 0.6 0.6 0.5\n"
+        ));
+        let w = s.warnings.join("\n");
+        assert!(w.contains("'Na1' + 'K1' has total occupancy 1.200"), "{w}");
+        assert!(w.contains("sites 'O1' and 'O2' are 0.100 A apart"), "{w}");
+        // Two half-occupied positions 0.2 A apart are alternatives (split disorder): no warning.
+        assert!(!w.contains("'Li1' and 'Li2'"), "{w}");
+    }
+
+    #[test]
+    fn fractions_and_missing_cell_and_bad_symmetry() {
+        let s = structure(&format!(
+            "{HEAD}loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n\
+             _atom_site_fract_z\nSn1 1/4 3/4 0\n"
+        ));
+        assert_eq!(s.asymmetric_sites[0].frac, Frac::new(0.25, 0.75, 0.0));
+
+        let doc = cif::parse(b"data_x\n_cell_length_a 5\nloop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n_atom_site_fract_z\nO1 0 0 0\n").unwrap();
+        let e = structure_from_block(&doc.blocks[0], "x.cif").unwrap_err();
+        assert!(
+            e.to_string()
+                .starts_with("x.cif:1: data block 'x': no cell: _cell_length_b"),
+            "{e}"
+        );
+
+        let text = HEAD.replace("-x,-y,-z", "-x,-y,-q")
+            + "loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n_atom_site_fract_z\nO1 0 0 0\n";
+        let doc = cif::parse(text.as_bytes()).unwrap();
+        let e = structure_from_block(&doc.blocks[0], "x.cif").unwrap_err();
+        assert_eq!(e.line, Some(11), "{e}");
+        assert!(e.message.contains("-x,-y,-q"), "{e}");
+    }
+
+    #[test]
+    fn conflicting_cell_lengths_are_refused() {
+        let text = HEAD.replace("_cell_length_c 5\n", "_cell_length_c 5\n_cell_length_c 6\n")
+            + "loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n_atom_site_fract_z\nO1 0 0 0\n";
+        let doc = cif::parse(text.as_bytes()).unwrap();
+        assert!(doc.warnings.iter().any(|w| w.line == 5));
+        let e = structure_from_block(&doc.blocks[0], "x.cif").unwrap_err();
+        assert!(
+            e.message
+                .contains("_cell_length_c is given twice with different values (lines 4 and 5)"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn file_without_symmetry_fails_with_a_clear_error() {
+        let text = "data_y\n_cell_length_a 5\n_cell_length_b 5\n_cell_length_c 5\n\
+            loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n_atom_site_fract_z\nO1 0 0 0\n";
+        let doc = cif::parse(text.as_bytes()).unwrap();
+        let e = structure_from_block(&doc.blocks[0], "y.cif").unwrap_err();
+        assert!(e.message.starts_with("no symmetry"), "{e}");
+    }
+
+    #[test]
+    fn read_cif_chooses_blocks_and_lists_them_when_unknown() {
+        let dir = std::env::temp_dir().join(format!("hopmap-cif-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("two.cif");
+        let text = format!(
+            "data_empty\n_note hello\n{}loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n_atom_site_fract_z\nO1 0 0 0\n",
+            HEAD.replace("data_t", "data_second")
+        );
+        std::fs::write(&path, text).unwrap();
+        let s = read_cif(&path, None).unwrap();
+        assert_eq!(s.name, "second");
+        let s = read_cif(&path, Some("SECOND")).unwrap();
+        assert_eq!(s.name, "second");
+        let e = read_cif(&path, Some("third")).unwrap_err();
+        assert!(
+            e.message
+                .contains("no data block 'third'; the file has: 'empty', 'second'"),
+            "{e}"
+        );
+        std::fs::remove_dir_all(&dir).ok();
     }
 }
