@@ -1,0 +1,148 @@
+#!/usr/bin/env python3
+"""Generates src/spacegroup/table.rs: the 530 Hall settings of the 230 space groups, with their
+full lists of symmetry operations (centring translations included), from spglib's database
+(spglib is a general-purpose symmetry library on PyPI).
+
+For each setting it writes the Hall number (1-530, spglib's numbering, which follows the order
+of the Hall-symbol table of the International Tables Vol. B), the International Tables number,
+the Hall symbol, the Hermann-Mauguin symbols as spglib gives them (setting-specific, full and
+short forms), the setting choice code ("1", "2", "H", "R", "b1", "cab", ...), and every
+operation as 9 rotation integers (row major) and a translation in 24ths of a lattice vector.
+
+Run: python tools/gen_spacegroups.py > src/spacegroup/table.rs && cargo fmt
+"""
+import sys
+
+import numpy as np
+import spglib
+
+
+def ops_of(hall_number):
+    sym = spglib.get_symmetry_from_database(hall_number)
+    out = []
+    for rot, trans in zip(sym["rotations"], sym["translations"]):
+        t24 = np.asarray(trans, dtype=float) * 24.0
+        n24 = np.rint(t24)
+        if np.abs(t24 - n24).max() > 1e-9:
+            raise SystemExit(f"Hall number {hall_number}: translation {trans} is not in 24ths")
+        n24 = [int(v) % 24 for v in n24]
+        r = [int(v) for v in np.asarray(rot).flatten()]
+        out.append((r, n24))
+    identity = ([1, 0, 0, 0, 1, 0, 0, 0, 1], [0, 0, 0])
+    if identity not in out:
+        raise SystemExit(f"Hall number {hall_number}: no identity operation")
+    # the identity first, then the order of the source
+    out.remove(identity)
+    return [identity] + out
+
+
+# Symbols from before the double-glide letter "e" was introduced (International Tables Vol. A,
+# 5th edition, 2002, Table 4.3.2.1 lists both; quoted here from memory and checked against gemmi
+# below when gemmi is installed). Old files still carry them: "Cmca", "Ccmb", "Abm2", ...
+# (space-group number, setting code of the axis permutation, old symbol)
+OLD_E_SYMBOLS = [
+    (39, "", "A b m 2"), (39, "ba-c", "B m a 2"), (39, "cab", "B 2 c m"),
+    (39, "-cba", "C 2 m b"), (39, "bca", "C m 2 a"), (39, "a-cb", "A c 2 m"),
+    (41, "", "A b a 2"), (41, "ba-c", "B b a 2"), (41, "cab", "B 2 c b"),
+    (41, "-cba", "C 2 c b"), (41, "bca", "C c 2 a"), (41, "a-cb", "A c 2 a"),
+    (64, "", "C m c a"), (64, "ba-c", "C c m b"), (64, "cab", "A b m a"),
+    (64, "-cba", "A c a m"), (64, "bca", "B b c m"), (64, "a-cb", "B m a b"),
+    (67, "", "C m m a"), (67, "ba-c", "C m m b"), (67, "cab", "A b m m"),
+    (67, "-cba", "A c m m"), (67, "bca", "B m c m"), (67, "a-cb", "B m a m"),
+    (68, "", "C c c a"), (68, "ba-c", "C c c b"), (68, "cab", "A b a a"),
+    (68, "-cba", "A c a a"), (68, "bca", "B b c b"), (68, "a-cb", "B b a b"),
+]
+
+
+def old_symbol(number, choice):
+    """The pre-2002 symbol of a setting of groups 39, 41, 64, 67, 68, or ""."""
+    code = choice[1:] if choice[:1] in ("1", "2") else choice
+    for n, c, sym in OLD_E_SYMBOLS:
+        if n == number and c == code:
+            return sym
+    return ""
+
+
+def check_old_symbols_with_gemmi():
+    """Each old symbol must name, in gemmi, the setting with the same Hall symbol as spglib's."""
+    try:
+        import gemmi
+    except ImportError:
+        sys.stderr.write("gemmi not installed: old e-glide symbols not cross-checked\n")
+        return
+    for h in range(1, 531):
+        t = spglib.get_spacegroup_type(h)
+        old = old_symbol(t.number, t.choice)
+        if not old:
+            continue
+        name = old + (":" + t.choice[0] if t.choice[:1] in ("1", "2") else "")
+        g = gemmi.find_spacegroup_by_name(name)
+        ours = sorted(map(str, gemmi.symops_from_hall(t.hall_symbol)))
+        if g is None or sorted(map(str, g.operations())) != ours:
+            raise SystemExit(f"old symbol {name!r} of Hall number {h} disagrees with gemmi")
+
+
+def check_operations_with_gemmi():
+    """spglib's operations of every setting must equal gemmi's reading of the same Hall symbol."""
+    try:
+        import gemmi
+    except ImportError:
+        sys.stderr.write("gemmi not installed: operations not cross-checked\n")
+        return
+    for h in range(1, 531):
+        t = spglib.get_spacegroup_type(h)
+        ours = sorted((tuple(r), tuple(t24)) for r, t24 in ops_of(h))
+        theirs = []
+        for op in gemmi.symops_from_hall(t.hall_symbol):
+            r = [v // op.DEN for row in op.rot for v in row]
+            t24 = [(v * 24 // op.DEN) % 24 for v in op.tran]
+            theirs.append((tuple(r), tuple(t24)))
+        if ours != sorted(theirs):
+            raise SystemExit(f"Hall number {h} ({t.hall_symbol}): spglib and gemmi disagree")
+
+
+def rust_str(s):
+    return '"' + s.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+def main():
+    check_old_symbols_with_gemmi()
+    check_operations_with_gemmi()
+    version = spglib.__version__
+    w = sys.stdout.write
+    w(f"// @generated by tools/gen_spacegroups.py from the space-group database of spglib {version}\n")
+    w("// (https://pypi.org/project/spglib/): spglib.get_spacegroup_type(n) and\n")
+    w("// spglib.get_symmetry_from_database(n) for the Hall numbers n = 1..530.\n")
+    w("// Do not edit by hand: regenerate.\n\n")
+    w("use super::{Setting, TableOp};\n\n")
+    w("const fn o(rot: [i8; 9], trans24: [u8; 3]) -> TableOp {\n")
+    w("    TableOp { rot, trans24 }\n")
+    w("}\n\n")
+    w(f"/// Version of spglib the table was generated from.\n")
+    w(f"pub const SOURCE: &str = {rust_str('spglib ' + version)};\n\n")
+    w("/// The 530 Hall settings, in Hall-number order (entry i has Hall number i + 1).\n")
+    w("#[rustfmt::skip]\n")
+    w("pub static SETTINGS: [Setting; 530] = [\n")
+    for h in range(1, 531):
+        t = spglib.get_spacegroup_type(h)
+        ops = ops_of(h)
+        w("    Setting {\n")
+        w(f"        hall_number: {h},\n")
+        w(f"        number: {t.number},\n")
+        w(f"        hall: {rust_str(t.hall_symbol)},\n")
+        w(f"        hm: {rust_str(t.international)},\n")
+        w(f"        hm_full: {rust_str(t.international_full)},\n")
+        w(f"        hm_short: {rust_str(t.international_short)},\n")
+        w(f"        choice: {rust_str(t.choice)},\n")
+        w(f"        hm_old: {rust_str(old_symbol(t.number, t.choice))},\n")
+        w("        ops: &[\n")
+        text = [f"o([{','.join(map(str, r))}],[{','.join(map(str, t24))}])," for r, t24 in ops]
+        for i in range(0, len(text), 4):
+            w("            " + "".join(text[i:i + 4]) + "\n")
+        w("        ],\n")
+        w("    },\n")
+    w("];\n")
+
+
+if __name__ == "__main__":
+    main()
