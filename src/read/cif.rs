@@ -631,6 +631,15 @@ fn read_site_rows(
     for i in 0..n {
         let text_at = |c| text_at(c, i);
         let type_symbol = text_at(&types);
+        if [&xs, &ys, &zs].iter().any(|c| c[i].is_null()) {
+            let name = text_at(&labels)
+                .or(type_symbol)
+                .map_or(format!("in row {}", i + 1), |l| format!("'{l}'"));
+            warnings.push(format!(
+                "site {name} has unknown coordinates ('?'); left out"
+            ));
+            continue;
+        }
         let label = match (text_at(&labels), type_symbol) {
             (Some(l), _) => l.to_string(),
             (None, Some(t)) => format!("{t}{}", i + 1),
@@ -692,7 +701,6 @@ fn read_site_rows(
             (None, s) => s,
         };
         let mut coord = [0.0; 3];
-        let mut unknown = false;
         for (k, (col, tag)) in [
             (&xs, tags::SITE_X),
             (&ys, tags::SITE_Y),
@@ -702,19 +710,9 @@ fn read_site_rows(
         .enumerate()
         {
             let v = col[i];
-            if v.is_null() {
-                unknown = true;
-                break;
-            }
             coord[k] = read_coordinate(v).ok_or_else(|| {
                 value_err(file, &site_ctx(), block, tag_of(tag), v, "not a number")
             })?;
-        }
-        if unknown {
-            warnings.push(format!(
-                "site '{label}' has unknown coordinates ('?'); left out"
-            ));
-            continue;
         }
         let occupancy = match occs.as_ref().map(|c| c[i]) {
             None => 1.0,
