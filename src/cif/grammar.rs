@@ -139,6 +139,8 @@ struct Lexer<'a> {
     cif2: bool,
     /// Byte offsets where lines start.
     line_starts: Vec<usize>,
+    /// Index into `line_starts` of the last line asked for.
+    line_hint: std::cell::Cell<usize>,
     warnings: Vec<CifWarning>,
     warned_control: bool,
 }
@@ -176,6 +178,14 @@ fn word(cif2: bool) -> impl Fn(&str) -> IResult<&str, &str> {
 
 /// A reserved word at the start of `w`, case-insensitive: `tag_no_case` on the prefix.
 fn keyword<'a>(kw: &'static str, w: &'a str) -> Option<&'a str> {
+    // cheap rejection before the case-insensitive comparison
+    if !w
+        .as_bytes()
+        .first()?
+        .eq_ignore_ascii_case(&kw.as_bytes()[0])
+    {
+        return None;
+    }
     let r: IResult<&str, &str> = tag_no_case(kw)(w);
     r.ok().map(|(rest, _)| rest)
 }
@@ -194,13 +204,30 @@ impl<'a> Lexer<'a> {
             pos: 0,
             cif2,
             line_starts,
+            line_hint: std::cell::Cell::new(0),
             warnings: Vec::new(),
             warned_control: false,
         }
     }
 
+    /// Line of a byte offset. Queries come mostly in file order, so the search starts from the
+    /// line of the previous query and walks forward; anything earlier is a binary search.
+    fn line_of(&self, pos: usize) -> usize {
+        let ls = &self.line_starts;
+        let mut i = self.line_hint.get();
+        if ls[i] > pos {
+            i = ls.partition_point(|&s| s <= pos) - 1;
+        } else {
+            while i + 1 < ls.len() && ls[i + 1] <= pos {
+                i += 1;
+            }
+        }
+        self.line_hint.set(i);
+        i + 1
+    }
+
     fn line_col(&self, pos: usize) -> (usize, usize) {
-        let line = self.line_starts.partition_point(|&s| s <= pos);
+        let line = self.line_of(pos);
         let start = self.line_starts[line - 1];
         let col = self
             .src
@@ -531,7 +558,7 @@ impl<'a> Reader<'a> {
     }
 
     fn line(&self, pos: usize) -> usize {
-        self.lex.line_col(pos).0
+        self.lex.line_of(pos)
     }
 
     fn warn(&mut self, pos: usize, message: impl Into<String>) {
