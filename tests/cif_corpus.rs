@@ -25,6 +25,8 @@ struct Outcome {
     structures: usize,
     structure_errors: Vec<String>,
     unplaced_errors: Vec<String>,
+    /// Stated multiplicities the expansion does not reproduce.
+    mismatches: Vec<String>,
     /// (block, positions in the cell counted once per occupant label)
     counts: Vec<(String, usize)>,
 }
@@ -43,6 +45,12 @@ fn read_one(path: &Path) -> Outcome {
                 match structure_from_block(b, &name) {
                     Ok(s) => {
                         assert!(!s.sites.is_empty());
+                        // Where the file states multiplicities, the expansion must agree.
+                        for w in &s.warnings {
+                            if w.contains("the file gives multiplicity") {
+                                out.mismatches.push(format!("{name}: {w}"));
+                            }
+                        }
                         assert_eq!(s.name, b.name);
                         out.structures += 1;
                         let per_label: usize = s.sites.iter().map(|x| x.occupants.len()).sum();
@@ -117,6 +125,7 @@ fn run_folder(dir: &Path, verbose: bool, dump: &mut String) -> (Tally, Vec<Strin
                         println!("  no structure {e}");
                     }
                 }
+                failures.extend(o.mismatches);
                 for e in o.unplaced_errors {
                     failures.push(format!("error without a line: {e}"));
                 }

@@ -29,7 +29,8 @@
 //! a site that lands on a position already taken by another label makes a mixed site, one
 //! [`Site`] with several [`Occupant`]s (one [`AsymmetricSite`] too, named after the first
 //! label). The multiplicity is the number of distinct images, and it is compared with the file's
-//! `_atom_site_symmetry_multiplicity` when given.
+//! `_atom_site_symmetry_multiplicity` when given (a warning when the file's number is neither
+//! the multiplicity nor the order of the site symmetry, which older SHELXL versions write there).
 //!
 //! # Warnings (plain sentences in [`Structure::warnings`])
 //!
@@ -966,9 +967,13 @@ fn expand(
         }
         let orbit = orbit(ops, row.frac, &short);
         if let Some(m) = row.file_multiplicity {
-            if m != orbit.len() {
+            // Older SHELXL versions write the order of the site symmetry under this tag (1 for
+            // a general position); either reading is accepted.
+            let site_symmetry_order = ops.len() / orbit.len().max(1);
+            if m != orbit.len() && m != site_symmetry_order {
                 warnings.push(format!(
-                    "site '{}': the file gives multiplicity {m}, the operators give {}",
+                    "site '{}': the file gives multiplicity {m}, the operators give {} (site \
+                     symmetry of order {site_symmetry_order})",
                     row.label,
                     orbit.len()
                 ));
@@ -1140,6 +1145,9 @@ mod tests {
             assert_eq!(multiplicity(&s, label), m, "{label}");
         }
         assert_eq!(s.sites.len(), 24);
+        // the file names no group: the operator list is recognised as No. 62
+        assert_eq!(s.symmetry.number, Some(62));
+        assert_eq!(s.symmetry.hall_symbol.as_deref(), Some("-P 2ac 2n"));
         // The file's own _atom_site_symmetry_multiplicity agrees: no warning about it.
         assert!(
             !s.warnings.iter().any(|w| w.contains("multiplicity")),
@@ -1162,6 +1170,7 @@ mod tests {
         let s = structure(&data("fd-3m-wyckoff.cif"));
         assert_eq!(s.symmetry.ops.len(), 192);
         assert_eq!(s.symmetry.hm_symbol.as_deref(), Some("F d -3 m"));
+        assert_eq!(s.symmetry.number, Some(227));
         for (label, m) in [
             ("A8a", 8),
             ("B8b", 8),
@@ -1206,6 +1215,46 @@ mod tests {
     const HEAD: &str = "data_t\n_cell_length_a 5\n_cell_length_b 5\n_cell_length_c 5\n\
         _cell_angle_alpha 90\n_cell_angle_beta 90\n_cell_angle_gamma 90\n\
         loop_\n_symmetry_equiv_pos_as_xyz\nx,y,z\n-x,-y,-z\n";
+
+    /// Without an operator list the Hall symbol wins over the H-M symbol, which wins over the
+    /// number; each gives the operations of the International Tables setting.
+    #[test]
+    fn symmetry_from_hall_then_hermann_mauguin_then_number() {
+        let sites = "loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n\
+                     _atom_site_fract_z\nO1 0.1 0.2 0.3\n";
+        let cell = "data_s\n_cell_length_a 8\n_cell_length_b 9\n_cell_length_c 10\n";
+        let s = structure(&format!(
+            "{cell}_symmetry_space_group_name_Hall '-P 2ac 2n'\n\
+             _symmetry_space_group_name_H-M 'P 1'\n{sites}"
+        ));
+        assert_eq!((s.symmetry.ops.len(), s.symmetry.number), (8, Some(62)));
+        assert!(
+            s.symmetry.source.starts_with("Hall symbol"),
+            "{}",
+            s.symmetry.source
+        );
+        let s = structure(&format!(
+            "{cell}_space_group_name_H-M_alt 'P n m a'\n{sites}"
+        ));
+        assert_eq!((s.symmetry.ops.len(), s.sites.len()), (8, 8));
+        let s = structure(&format!(
+            "{cell}_symmetry.space_group_name_H-M 'P b n m'\n_space_group_IT_number 62\n{sites}"
+        ));
+        assert_eq!((s.symmetry.ops.len(), s.symmetry.number), (8, Some(62)));
+        let s = structure(&format!("{cell}_space_group_IT_number 227\n{sites}"));
+        assert_eq!(s.symmetry.ops.len(), 192);
+        assert_eq!(s.symmetry.source, "space-group number 227");
+        // a number that disagrees with the symbol is a warning, the symbol is used
+        let s = structure(&format!(
+            "{cell}_symmetry_space_group_name_H-M 'P n m a'\n_symmetry_Int_Tables_number 14\n{sites}"
+        ));
+        assert_eq!(s.symmetry.number, Some(62));
+        assert!(
+            s.warnings.iter().any(|w| w.contains("number 14")),
+            "{:?}",
+            s.warnings
+        );
+    }
 
     #[test]
     fn dummies_and_unknown_coordinates_are_left_out_with_a_warning() {
