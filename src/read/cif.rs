@@ -472,6 +472,13 @@ fn read_operator_list(
                 .at_line(v.line().unwrap_or(block.line))
                 .context(ctx.to_string())
         })?;
+        if let Err(why) = check_crystallographic(&op) {
+            return Err(
+                InputError::new(file, format!("symmetry operation '{s}': {why}"))
+                    .at_line(v.line().unwrap_or(block.line))
+                    .context(ctx.to_string()),
+            );
+        }
         if ops.iter().any(|o| o.same_modulo_lattice(&op)) {
             warnings.push(format!(
                 "symmetry operation '{s}' is listed twice; the repeat is ignored"
@@ -493,6 +500,26 @@ fn read_operator_list(
         }
     }
     Ok(Some(ops))
+}
+
+/// A crystallographic rotation has order 1, 2, 3, 4 or 6 (R^n = identity), and in any
+/// setting used in practice its entries are small integers. Shears such as `x+y,y,z` have
+/// determinant 1 but are not symmetry operations of any lattice.
+fn check_crystallographic(op: &SymOp) -> Result<(), String> {
+    if op.rot.iter().any(|v| v.abs() > 2) {
+        return Err(
+            "rotation entries larger than 2 do not occur in crystallographic settings".into(),
+        );
+    }
+    let id = nalgebra::Matrix3::<i32>::identity();
+    let mut r = op.rot;
+    for _ in 0..6 {
+        if r == id {
+            return Ok(());
+        }
+        r *= op.rot;
+    }
+    Err("its rotation part has no finite order (1, 2, 3, 4 or 6), so it is not a symmetry operation".into())
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -1410,6 +1437,22 @@ mod tests {
         let e = structure_from_block(&doc.blocks[0], "x.cif").unwrap_err();
         assert_eq!(e.line, Some(11), "{e}");
         assert!(e.message.contains("-x,-y,-q"), "{e}");
+    }
+
+    #[test]
+    fn shears_are_not_symmetry_operations() {
+        for (op, ok) in [
+            ("x,y,z", true),
+            ("-y,x-y,z+1/3", true),
+            ("x-y,-y,-z", true),
+            ("x+y,y,z", false),
+            ("3x,y,z", false),
+        ] {
+            let r = SymOp::parse_xyz(op)
+                .map_err(|e| e.to_string())
+                .and_then(|o| check_crystallographic(&o));
+            assert_eq!(r.is_ok(), ok, "{op}: {r:?}");
+        }
     }
 
     #[test]
