@@ -155,7 +155,9 @@ pub fn blocks_with_atoms(doc: &Document) -> Vec<&Block> {
 }
 
 /// Reads the structure from a CIF file: the block called `block`, or else the first block with
-/// atom sites. An unknown block name is an error listing the blocks of the file.
+/// atom sites. An unknown block name is an error listing the blocks of the file. Grammar
+/// warnings inside the chosen block (and an encoding warning anywhere) come first in
+/// [`Structure::warnings`].
 pub fn read_cif(path: &Path, block: Option<&str>) -> Result<Structure, InputError> {
     let file = path.display().to_string();
     let doc = cif::parse_file(path)?;
@@ -189,7 +191,23 @@ pub fn read_cif(path: &Path, block: Option<&str>) -> Result<Structure, InputErro
             )
         })?,
     };
-    structure_from_block(chosen, &file)
+    let mut structure = structure_from_block(chosen, &file)?;
+    // Grammar warnings that fall inside the chosen block (before the next block starts).
+    let end = doc
+        .blocks
+        .iter()
+        .map(|b| b.line)
+        .filter(|&l| l > chosen.line)
+        .min()
+        .unwrap_or(usize::MAX);
+    let from_grammar: Vec<String> = doc
+        .warnings
+        .iter()
+        .filter(|w| (chosen.line..end).contains(&w.line) || w.message.contains("UTF-8"))
+        .map(|w| format!("line {}: {}", w.line, w.message))
+        .collect();
+    structure.warnings.splice(0..0, from_grammar);
+    Ok(structure)
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -1492,6 +1510,18 @@ mod tests {
         assert_eq!(s.name, "second");
         let s = read_cif(&path, Some("SECOND")).unwrap();
         assert_eq!(s.name, "second");
+        assert!(s.warnings.is_empty(), "{:?}", s.warnings);
+        let dup = std::fs::read_to_string(&path)
+            .unwrap()
+            .replace("_cell_length_a 5\n", "_cell_length_a 5\n_cell_length_a 5\n");
+        std::fs::write(&path, dup).unwrap();
+        let s = read_cif(&path, None).unwrap();
+        assert_eq!(s.warnings.len(), 1, "{:?}", s.warnings);
+        assert!(
+            s.warnings[0].starts_with("line 5: tag '_cell_length_a' repeats line 4"),
+            "{:?}",
+            s.warnings
+        );
         let e = read_cif(&path, Some("third")).unwrap_err();
         assert!(
             e.message
