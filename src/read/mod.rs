@@ -1,4 +1,5 @@
 //! Structure files in: CIF (through [`crate::cif`]), VASP POSCAR/CONTCAR, extended XYZ.
 
+pub mod cif;
 pub mod poscar;
 pub mod xyz;
