@@ -17,7 +17,13 @@ pub struct InputError {
 
 impl InputError {
     pub fn new(file: impl Into<String>, message: impl Into<String>) -> Self {
-        InputError { file: file.into(), line: None, column: None, context: None, message: message.into() }
+        InputError {
+            file: file.into(),
+            line: None,
+            column: None,
+            context: None,
+            message: message.into(),
+        }
     }
     pub fn at(mut self, line: usize, column: usize) -> Self {
         self.line = Some(line);
@@ -58,7 +64,12 @@ mod tests {
     use super::*;
     #[test]
     fn names_file_line_column_and_context() {
-        let e = InputError::new("a.cif", "expected a value after the tag").at(12, 5).context("data block 'x'");
-        assert_eq!(e.to_string(), "a.cif:12:5: data block 'x': expected a value after the tag");
+        let e = InputError::new("a.cif", "expected a value after the tag")
+            .at(12, 5)
+            .context("data block 'x'");
+        assert_eq!(
+            e.to_string(),
+            "a.cif:12:5: data block 'x': expected a value after the tag"
+        );
     }
 }

@@ -12,6 +12,7 @@ pub mod error;
 pub mod grid;
 pub mod landscape;
 pub mod lattice;
+pub mod neighbours;
 pub mod read;
 pub mod spacegroup;
 pub mod structure;
