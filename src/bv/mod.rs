@@ -55,7 +55,11 @@ pub mod params;
 pub mod radii;
 pub mod valence;
 
+pub use model::{ModelKnobs, ModelProvenance, build_model};
+pub use overrides::Overrides;
+pub use oxidation::{OxidationAssignment, assign_oxidation_states};
 pub use params::{BondParams, CutoffConvention, PairRole, ParameterTable, ValueOrigin};
+pub use valence::{ValenceReport, Verdict, valence_check};
 
 use crate::error::InputError;
 
