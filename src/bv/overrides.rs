@@ -264,7 +264,7 @@ impl Overrides {
                     x.span(),
                     format!("{name} = {} must be a positive length (A)", x.get_ref()),
                 )),
-                Some(x) => Ok(Some(*x.get_ref())),
+                Some(x) => Ok(Some((*x.get_ref(), origin(x.span())))),
                 None => Ok(None),
             };
             let r0 = positive(&e.r0, "r0")?;
@@ -284,7 +284,6 @@ impl Overrides {
                 r0,
                 b,
                 cutoff_a,
-                origin: origin(entry.span()),
             });
         }
         for entry in &doc.radius {
@@ -320,7 +319,7 @@ impl Overrides {
                 oxidation,
                 coordination,
                 radius: r,
-                origin: origin(entry.span()),
+                origin: origin(e.radius_a.span()),
             });
         }
         Ok(out)

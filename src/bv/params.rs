@@ -177,10 +177,10 @@ pub struct PairOverride {
     pub cation_valence: Option<f64>,
     pub anion: Element,
     pub anion_valence: Option<f64>,
-    pub r0: Option<f64>,
-    pub b: Option<f64>,
-    pub cutoff_a: Option<f64>,
-    pub origin: ValueOrigin,
+    /// Each value with the place in the file it came from.
+    pub r0: Option<(f64, ValueOrigin)>,
+    pub b: Option<(f64, ValueOrigin)>,
+    pub cutoff_a: Option<(f64, ValueOrigin)>,
 }
 
 /// All tabulated numbers hopmap's bond-valence layer uses: the parameter rows with their
@@ -294,41 +294,41 @@ impl ParameterTable {
         let Some(o) = over else { return base };
         let mut p = match base {
             Ok(p) => p,
-            Err(e) => match (o.r0, o.b) {
-                (Some(r0), Some(b)) => BondParams {
+            Err(e) => match (&o.r0, &o.b) {
+                (Some((r0, r0_origin)), Some((b, b_origin))) => BondParams {
                     cation,
                     cation_valence,
                     anion,
                     anion_valence,
-                    r0,
-                    b,
+                    r0: *r0,
+                    b: *b,
                     convention: CutoffConvention::FirstShell,
-                    cutoff_a: first_shell_cutoff(r0, b),
+                    cutoff_a: first_shell_cutoff(*r0, *b),
                     ref_id: "user".into(),
-                    citation: format!("values from {}", o.origin),
-                    r0_origin: o.origin.clone(),
-                    b_origin: o.origin.clone(),
+                    citation: format!("values from {r0_origin}"),
+                    r0_origin: r0_origin.clone(),
+                    b_origin: b_origin.clone(),
                     cutoff_origin: ValueOrigin::Rule,
                     notes: Vec::new(),
                 },
                 _ => return Err(e),
             },
         };
-        if let Some(r0) = o.r0 {
-            p.r0 = r0;
-            p.r0_origin = o.origin.clone();
-            p.notes.push(format!("R0 = {r0} A from {}", o.origin));
+        if let Some((r0, origin)) = &o.r0 {
+            p.r0 = *r0;
+            p.r0_origin = origin.clone();
+            p.notes.push(format!("R0 = {r0} A from {origin}"));
         }
-        if let Some(b) = o.b {
-            p.b = b;
-            p.b_origin = o.origin.clone();
-            p.notes.push(format!("b = {b} A from {}", o.origin));
+        if let Some((b, origin)) = &o.b {
+            p.b = *b;
+            p.b_origin = origin.clone();
+            p.notes.push(format!("b = {b} A from {origin}"));
         }
-        if let Some(c) = o.cutoff_a {
-            p.cutoff_a = c;
+        if let Some((c, origin)) = &o.cutoff_a {
+            p.cutoff_a = *c;
             p.convention = CutoffConvention::Stated;
-            p.cutoff_origin = o.origin.clone();
-            p.notes.push(format!("cutoff {c} A from {}", o.origin));
+            p.cutoff_origin = origin.clone();
+            p.notes.push(format!("cutoff {c} A from {origin}"));
         } else if p.convention == CutoffConvention::FirstShell {
             p.cutoff_a = first_shell_cutoff(p.r0, p.b);
         }

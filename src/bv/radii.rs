@@ -16,6 +16,8 @@
 //! - **Fractional average valence** (Mn3.5+): the radii at the two neighbouring integer charges
 //!   (each at the coordination asked for) are interpolated linearly in the charge; when only
 //!   one charge is tabulated, it is used with a note.
+//! - **Anions Shannon does not list** (H-, C4-, Si4-, P3-, As3-, Sb3-): Pauling's crystal radii,
+//!   flagged as a fallback.
 
 use super::BvError;
 use super::params::ValueOrigin;
@@ -24,6 +26,17 @@ use crate::structure::Species;
 
 const SHANNON_TSV: &str = include_str!("../../data/shannon_radii.tsv");
 const MOBILE_TSV: &str = include_str!("../../data/mobile_ions.tsv");
+
+/// Anions Shannon's table lacks, with Pauling's crystal radii (A), used as flagged fallbacks
+/// (L. Pauling, The Nature of the Chemical Bond, 3rd ed., 1960; values from memory).
+const PAULING_ANIONS: [(&str, i8, f64); 6] = [
+    ("H", -1, 2.08),
+    ("C", -4, 2.60),
+    ("Si", -4, 2.71),
+    ("P", -3, 2.12),
+    ("As", -3, 2.22),
+    ("Sb", -3, 2.45),
+];
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 enum Spin {
@@ -191,9 +204,10 @@ impl RadiusTable {
         }
         let name = Species::new(element, Some(oxidation)).name();
         if (oxidation - oxidation.round()).abs() < 1e-6 {
-            return self
-                .at_charge(element, oxidation.round() as i8, coordination)
-                .map(|(r, entries, notes)| RadiusValue {
+            if let Some((r, entries, notes)) =
+                self.at_charge(element, oxidation.round() as i8, coordination)
+            {
+                return Ok(RadiusValue {
                     element,
                     oxidation,
                     coordination,
@@ -201,8 +215,26 @@ impl RadiusTable {
                     entries,
                     origin: ValueOrigin::Table,
                     notes,
-                })
-                .ok_or(BvError::MissingRadius { species: name });
+                });
+            }
+            if let Some(&(_, _, r)) = PAULING_ANIONS
+                .iter()
+                .find(|(s, q, _)| *s == element.symbol() && *q as f64 == oxidation)
+            {
+                return Ok(RadiusValue {
+                    element,
+                    oxidation,
+                    coordination,
+                    radius: r,
+                    entries: format!("{name} {r} A (Pauling)"),
+                    origin: ValueOrigin::Fallback,
+                    notes: vec![format!(
+                        "Shannon gives no radius for {name}; Pauling's crystal radius {r} A is \
+                         used (The Nature of the Chemical Bond, 3rd ed. 1960; from memory)"
+                    )],
+                });
+            }
+            return Err(BvError::MissingRadius { species: name });
         }
         let (lo, hi) = (oxidation.floor(), oxidation.ceil());
         let w = oxidation - lo;
