@@ -160,19 +160,7 @@ pub fn assign_oxidation_states(
     let n_atoms: f64 = comp.values().sum();
     let tol = 0.02 + 1e-3 * n_atoms;
     // 3. bound the search
-    let mut notes = Vec::new();
-    while product(&cation_states) > MAX_COMBINATIONS {
-        let (i, _) = cation_states
-            .iter()
-            .enumerate()
-            .max_by_key(|(_, (_, v))| v.len())
-            .expect("non-empty");
-        let dropped = cation_states[i].1.pop();
-        notes.push(format!(
-            "search bounded: {} {:?} not tried",
-            cation_states[i].0, dropped
-        ));
-    }
+    let mut notes = bound_states(&mut cation_states, MAX_COMBINATIONS);
     let counts: Vec<f64> = cation_states.iter().map(|(e, _)| comp[e]).collect();
     let mut candidates: Vec<(Vec<f64>, Option<usize>)> = Vec::new();
     for combo in combinations(&cation_states) {
@@ -330,6 +318,26 @@ pub fn assign_oxidation_states(
     })
 }
 
+/// Drops the least common states (last in each list) of the elements with most choices until
+/// at most `limit` combinations remain; returns a note per state dropped.
+fn bound_states(states: &mut [(Element, Vec<f64>)], limit: usize) -> Vec<String> {
+    let mut notes = Vec::new();
+    while product(states) > limit {
+        let Some((i, _)) = states
+            .iter()
+            .enumerate()
+            .filter(|(_, (_, v))| v.len() > 1)
+            .max_by_key(|(_, (_, v))| v.len())
+        else {
+            break;
+        };
+        if let Some(q) = states[i].1.pop() {
+            notes.push(format!("search bounded: {}{q}+ not tried", states[i].0));
+        }
+    }
+    notes
+}
+
 fn product(states: &[(Element, Vec<f64>)]) -> usize {
     states
         .iter()
@@ -462,5 +470,28 @@ impl Scorer {
         } else {
             f64::INFINITY
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_search_is_bounded_by_dropping_the_least_common_states() {
+        let e = |s| Element::from_symbol(s).unwrap();
+        // 12 elements with 3 states each: 531441 combinations
+        let mut states: Vec<(Element, Vec<f64>)> = [
+            "Mn", "Fe", "Co", "Cr", "Mo", "W", "V", "Ni", "Cu", "Ru", "Pd", "Pt",
+        ]
+        .iter()
+        .map(|s| (e(s), vec![2.0, 3.0, 4.0]))
+        .collect();
+        let notes = bound_states(&mut states, MAX_COMBINATIONS);
+        assert!(product(&states) <= MAX_COMBINATIONS);
+        assert!(!notes.is_empty());
+        // the most common (first) states are kept
+        assert!(states.iter().all(|(_, v)| v[0] == 2.0));
+        assert_eq!(combinations(&states).len(), product(&states));
     }
 }
