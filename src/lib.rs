@@ -16,6 +16,7 @@ pub mod lattice;
 pub mod plot;
 pub mod network;
 pub mod percolation;
+pub mod neighbours;
 pub mod read;
 pub mod spacegroup;
 pub mod structure;
