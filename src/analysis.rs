@@ -27,6 +27,10 @@ pub fn default_spacing_a(volume_a3: f64) -> f64 {
     s.clamp(0.1, 0.25)
 }
 
+/// Minima shallower than this (eV, the lowest barrier out of the site) are listed apart in
+/// summaries: they are points in flat valleys or grid artefacts rather than sites an ion rests on.
+pub const SHALLOW_SITE_EV: f64 = 0.05;
+
 /// Options of the transport and capacity estimates.
 #[derive(Debug, Clone, PartialEq)]
 pub struct RateOptions {
@@ -486,7 +490,15 @@ pub fn headline(a: &Analysis) -> String {
         );
     }
     let mut parts = Vec::new();
-    for t in p.thresholds.iter().flatten() {
+    let reached: Vec<_> = p.thresholds.iter().flatten().collect();
+    for (i, t) in reached.iter().enumerate() {
+        // a dimension reached at the same energy as a higher one is reported as the higher one
+        if reached[i + 1..]
+            .iter()
+            .any(|u| (u.energy - t.energy).abs() < 1e-6)
+        {
+            continue;
+        }
         let what = match &t.channel.span {
             percolation::Span::Line { direction, .. } => {
                 let dirs: Vec<String> = p

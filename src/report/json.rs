@@ -200,6 +200,8 @@ pub fn paths(a: &Analysis, file: &str) -> Value {
                         "coordination_number": s.coordination.count,
                         "label": s.label,
                         "label_distance_a": s.label_distance.map(|d| round(d, 3)),
+                        "depth_ev": if s.depth.is_finite() { Some(round(s.depth as f64, 4)) } else { None },
+                        "shallow": (s.depth as f64) < crate::analysis::SHALLOW_SITE_EV,
                     })
                 })
                 .collect()

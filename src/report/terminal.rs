@@ -201,8 +201,13 @@ pub fn paths(a: &Analysis, file: &str) -> String {
             "    {:>4} {:>5} {:>9} {:>9} {:>9} {:>12} {:<26} {:<10}",
             "site", "mult", "x", "y", "z", "energy (eV)", "coordination", "label"
         );
-        for (oi, orb) in net.orbits.iter().enumerate().take(40) {
+        let mut shallow = 0;
+        for (oi, orb) in net.orbits.iter().enumerate() {
             let s = &net.sites[orb.sites[0]];
+            if s.depth < crate::analysis::SHALLOW_SITE_EV as f32 {
+                shallow += 1;
+                continue;
+            }
             let _ = writeln!(
                 o,
                 "    {:>4} {:>5} {:>9.4} {:>9.4} {:>9.4} {:>12.3} {:<26} {:<10}",
@@ -216,11 +221,11 @@ pub fn paths(a: &Analysis, file: &str) -> String {
                 s.label.as_deref().unwrap_or("-")
             );
         }
-        if net.orbits.len() > 40 {
+        if shallow > 0 {
             let _ = writeln!(
                 o,
-                "    ... {} more orbits (see --json)",
-                net.orbits.len() - 40
+                "    ({shallow} more orbits are shallow minima, less than {:.2} eV deep: flat valleys or grid artefacts; see --json)",
+                crate::analysis::SHALLOW_SITE_EV
             );
         }
         let level = a
@@ -231,22 +236,36 @@ pub fn paths(a: &Analysis, file: &str) -> String {
             .last()
             .map(|t| t.energy)
             .unwrap_or(f32::INFINITY);
+        let mut seen = std::collections::BTreeSet::new();
         let shown: Vec<_> = net
             .hops
             .iter()
             .filter(|h| h.saddle_energy <= level + 1e-4)
+            // steps inside one flat valley (shorter than 0.5 A) are not hops worth a row
+            .filter(|h| h.length >= 0.5)
+            // one row per symmetry-distinct hop: orbit pair, length and saddle
+            .filter(|h| {
+                let (a, b) = (net.sites[h.from].orbit, net.sites[h.to].orbit);
+                let key = (
+                    a.min(b),
+                    a.max(b),
+                    (h.length * 100.0).round() as i64,
+                    (h.saddle_energy * 1000.0).round() as i64,
+                );
+                seen.insert(key)
+            })
             .collect();
         let _ = writeln!(
             o,
-            "\n  hops up to the highest threshold ({} of {}):",
+            "\n  symmetry-distinct hops up to the highest threshold ({} distinct of {} in the cell):",
             shown.len(),
             net.hops.len()
         );
         let _ = writeln!(
             o,
             "    {:>5} {:>5} {:<10} {:>11} {:>13} {:>13} {:>12} {:>14}",
-            "from",
-            "to",
+            "orbit",
+            "orbit",
             "image",
             "length (A)",
             "saddle (eV)",
