@@ -171,13 +171,13 @@ pub fn run_paths(g: &GlobalOpts, a: PathsArgs) -> CmdResult {
     let an = run_analysis(g, &a.input, &opts)?;
     let file = a.input.file.display().to_string();
     if a.json {
-        println!(
+        outln!(
             "{}",
             serde_json::to_string_pretty(&report::json::paths(&an, &file))
                 .map_err(|e| e.to_string())?
         );
     } else {
-        print!("{}", report::terminal::paths(&an, &file));
+        out!("{}", report::terminal::paths(&an, &file));
     }
     if let Some(p) = &a.report {
         let html = report::html::report(&an, &file);
@@ -207,13 +207,13 @@ pub fn run_rate(g: &GlobalOpts, a: RateArgs) -> CmdResult {
     let an = run_analysis(g, &a.input, &opts)?;
     let file = a.input.file.display().to_string();
     if a.json {
-        println!(
+        outln!(
             "{}",
             serde_json::to_string_pretty(&report::json::rate(&an, &file, a.particle_size))
                 .map_err(|e| e.to_string())?
         );
     } else {
-        print!("{}", report::terminal::rate(&an, &file, a.particle_size));
+        out!("{}", report::terminal::rate(&an, &file, a.particle_size));
     }
     Ok(())
 }

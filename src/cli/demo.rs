@@ -13,6 +13,6 @@ pub struct DemoArgs {
 
 pub fn run(g: &GlobalOpts, a: DemoArgs) -> CmdResult {
     let summary = hopmap::demo::run(&a.out, !g.quiet).map_err(|e| e.to_string())?;
-    print!("{summary}");
+    out!("{summary}");
     Ok(())
 }

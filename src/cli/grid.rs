@@ -99,7 +99,7 @@ pub fn run(g: &GlobalOpts, a: GridArgs) -> CmdResult {
         }
     }
     let sp = land.energy.spacing();
-    println!(
+    outln!(
         "{}: {} grid {} x {} x {} = {} points, spacing {:.4} x {:.4} x {:.4} A, computed in {:.3} s",
         s.name,
         ion,
@@ -113,17 +113,17 @@ pub fn run(g: &GlobalOpts, a: GridArgs) -> CmdResult {
         land.stats.seconds
     );
     let (lo, hi) = land.energy.min_max();
-    println!(
+    outln!(
         "  site energy {lo:.3} to {hi:.3} eV (capped at {:.1} eV)",
         model.energy_cap
     );
     let (lo, hi) = land.mismatch.min_max();
-    println!(
+    outln!(
         "  valence mismatch {lo:.3} to {hi:.3} v.u. (capped at {:.1} v.u.)",
         model.mismatch_cap
     );
     for p in written {
-        println!("  wrote {}", p.display());
+        outln!("  wrote {}", p.display());
     }
     Ok(())
 }

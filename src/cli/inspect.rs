@@ -16,13 +16,13 @@ pub fn run(g: &GlobalOpts, a: InspectArgs) -> CmdResult {
     let s = hopmap::read::read_structure(path, a.input.block.as_deref())?;
     let file = path.display().to_string();
     if a.json {
-        println!(
+        outln!(
             "{}",
             serde_json::to_string_pretty(&report::json::structure(&s, &file))
                 .map_err(|e| e.to_string())?
         );
     } else {
-        print!("{}", report::terminal::structure(&s, &file));
+        out!("{}", report::terminal::structure(&s, &file));
         if let Ok(names) = hopmap::read::cif_block_names(path) {
             if names.len() > 1 && !g.quiet {
                 eprintln!(

@@ -1,5 +1,13 @@
 //! Command-line definitions (clap) and dispatch. Commands live one per file.
 
+/// Writes data to stdout; a closed pipe (`hopmap ... | head`) ends the program quietly.
+macro_rules! out {
+    ($($t:tt)*) => { $crate::cli::emit(&format!($($t)*)) };
+}
+macro_rules! outln {
+    ($($t:tt)*) => { $crate::cli::emit(&(format!($($t)*) + "\n")) };
+}
+
 mod analyse;
 mod calibrate;
 mod demo;
@@ -110,6 +118,20 @@ pub fn run() -> ExitCode {
             eprintln!("hopmap: usage error: {msg}");
             ExitCode::from(2)
         }
+    }
+}
+
+/// Writes to stdout; when the reader has gone away (a closed pipe) the program exits quietly
+/// with success, as command-line filters do.
+pub fn emit(s: &str) {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    if let Err(e) = out.write_all(s.as_bytes()).and_then(|_| out.flush()) {
+        if e.kind() == std::io::ErrorKind::BrokenPipe {
+            std::process::exit(0);
+        }
+        eprintln!("hopmap: error: cannot write to stdout: {e}");
+        std::process::exit(1);
     }
 }
 

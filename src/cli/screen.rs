@@ -160,7 +160,7 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
     )
     .map_err(|e| format!("cannot write {}: {e}", a.out.display()))?;
     bar.finish_and_clear();
-    print!("{}", screen::sorted_view(&rows));
+    out!("{}", screen::sorted_view(&rows));
     if !g.quiet {
         eprintln!(
             "{} jobs: {} computed, {} already in {} (skipped), {} error rows; table written to {}",

@@ -21,13 +21,13 @@ pub fn run(_g: &GlobalOpts, a: ValenceArgs) -> CmdResult {
     let (s, note) = hopmap::analysis::with_oxidation_states(&s, &table)?;
     let v = hopmap::bv::valence_check(&s, &table)?;
     if a.json {
-        println!(
+        outln!(
             "{}",
             serde_json::to_string_pretty(&report::json::valence(&v, &s, note.as_deref()))
                 .map_err(|e| e.to_string())?
         );
     } else {
-        print!("{}", report::terminal::valence(&v, &s, note.as_deref()));
+        out!("{}", report::terminal::valence(&v, &s, note.as_deref()));
     }
     Ok(())
 }
