@@ -44,7 +44,7 @@ impl Element {
         }
     }
 
-    fn row(&self) -> &'static (&'static str, u8, f64, &'static [i8]) {
+    fn row(&self) -> &'static (&'static str, u8, f64, &'static [i8], f64) {
         &ELEMENTS[self.0 as usize - 1]
     }
     pub fn symbol(&self) -> &'static str {
@@ -60,6 +60,10 @@ impl Element {
     /// Common oxidation states, most common first as listed by the source table.
     pub fn common_oxidation_states(&self) -> &'static [i8] {
         self.row().3
+    }
+    /// Pauling electronegativity (NaN for the noble gases without one).
+    pub fn electronegativity(&self) -> f64 {
+        self.row().4
     }
     /// Anions of the bond-valence method (elements that take a negative formal charge in the
     /// frameworks hopmap handles).

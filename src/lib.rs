@@ -4,14 +4,27 @@
 //! probe ion ([`bv::model`]) -> energy [`grid::Grid`] ([`landscape`]) -> channels and site
 //! network -> results -> renderers. See `ARCHITECTURE.md`.
 
+pub mod analysis;
 pub mod bv;
+pub mod capacity;
 pub mod cif;
+pub mod demo;
 pub mod element;
 mod element_table;
 pub mod error;
 pub mod grid;
 pub mod landscape;
 pub mod lattice;
+pub mod neighbours;
+pub mod network;
+pub mod output;
+pub mod percolation;
+pub mod plot;
 pub mod read;
+pub mod report;
+pub mod screen;
 pub mod spacegroup;
 pub mod structure;
+pub mod substitute;
+pub mod transport;
+pub mod write_cif;

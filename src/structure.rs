@@ -155,9 +155,20 @@ impl Structure {
             1
         };
         let mut els: Vec<(&Element, &f64)> = comp.iter().collect();
-        // Hill-like order for inorganics: by increasing electronegativity is the chemist's habit;
-        // the simple and stable rule here is cations before anions, then by atomic number.
-        els.sort_by_key(|(e, _)| (e.is_usual_anion(), e.atomic_number()));
+        // The inorganic chemist's order: increasing Pauling electronegativity (LiFePO4,
+        // Li7La3Zr2O12, Li6PS5Cl), elements without a value last, ties by atomic number.
+        els.sort_by(|(a, _), (b, _)| {
+            let key = |e: &Element| {
+                if e.electronegativity().is_nan() {
+                    10.0
+                } else {
+                    e.electronegativity()
+                }
+            };
+            key(a)
+                .total_cmp(&key(b))
+                .then(a.atomic_number().cmp(&b.atomic_number()))
+        });
         let mut f = String::new();
         for (e, n) in els {
             let n = n / z as f64;

@@ -1,2 +1,65 @@
 //! Structure files in: CIF (through [`crate::cif`]), VASP POSCAR/CONTCAR, extended XYZ.
+
 pub mod cif;
+pub mod poscar;
+pub mod xyz;
+
+use crate::error::InputError;
+use crate::structure::Structure;
+use std::path::Path;
+
+/// The structure file formats hopmap reads.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Format {
+    Cif,
+    Poscar,
+    ExtXyz,
+}
+
+impl Format {
+    /// Decides the format from the file name: `.cif` (any case) is CIF; `.xyz`/`.extxyz` is
+    /// extended XYZ; `POSCAR`, `CONTCAR`, `*.vasp`, `*.poscar` are VASP. Anything else is read as
+    /// CIF, the most common exchange format.
+    pub fn from_path(path: &Path) -> Format {
+        let name = path
+            .file_name()
+            .and_then(|n| n.to_str())
+            .unwrap_or("")
+            .to_ascii_lowercase();
+        let ext = path
+            .extension()
+            .and_then(|e| e.to_str())
+            .unwrap_or("")
+            .to_ascii_lowercase();
+        if ext == "xyz" || ext == "extxyz" {
+            Format::ExtXyz
+        } else if ext == "vasp"
+            || ext == "poscar"
+            || name.starts_with("poscar")
+            || name.starts_with("contcar")
+        {
+            Format::Poscar
+        } else {
+            Format::Cif
+        }
+    }
+}
+
+/// Reads one structure from a file of any supported format. `block` picks a CIF data block by
+/// name (ignored for the other formats); without it the first block with atom sites is read.
+pub fn read_structure(path: &Path, block: Option<&str>) -> Result<Structure, InputError> {
+    match Format::from_path(path) {
+        Format::Cif => cif::read_cif(path, block),
+        Format::Poscar => poscar::read_poscar(path),
+        Format::ExtXyz => xyz::read_extxyz(path),
+    }
+}
+
+/// Names of the data blocks of a CIF file (for listing them to the user).
+pub fn cif_block_names(path: &Path) -> Result<Vec<String>, InputError> {
+    if Format::from_path(path) != Format::Cif {
+        return Ok(vec![]);
+    }
+    let doc = crate::cif::parse_file(path)?;
+    Ok(doc.blocks.iter().map(|b| b.name.clone()).collect())
+}

@@ -149,13 +149,24 @@ impl Setting {
 
     /// Every name this setting answers to in [`from_hm`], in the compact form of
     /// [`compact_hm`]: full and short symbols, the setting symbol, the short symbol of a
-    /// monoclinic setting (`P21/n` for `P 1 21/n 1`), the old symbol with `e` spelled out, and
+    /// monoclinic setting (`P21/n` for `P 1 21/n 1`), the short symbol of a centrosymmetric
+    /// orthorhombic setting read off its full symbol, the old symbol with `e` spelled out, and
     /// the old cubic symbols without the bar (`Fd3m`).
     pub fn names(&self) -> Vec<String> {
         let mut raw: Vec<String> = vec![self.hm_full.to_string(), self.hm_short.to_string()];
         raw.extend(self.hm.split('=').map(|s| s.trim().to_string()));
         if !self.hm_old.is_empty() {
             raw.push(self.hm_old.to_string());
+        }
+        if (47..=74).contains(&self.number) {
+            // centrosymmetric orthorhombic: "B 2/b 2/e 2/b" -> "B b e b" (spglib's setting
+            // symbol of Hall number 331 is the old "B b c b"; this keeps "B b e b" too)
+            let short: Vec<&str> = self
+                .hm_full
+                .split_whitespace()
+                .map(|t| t.rsplit('/').next().unwrap_or(t))
+                .collect();
+            raw.push(short.join(" "));
         }
         if (3..=15).contains(&self.number) {
             // "P 1 21/n 1" -> "P 21/n": the one axis symbol that is not 1
@@ -226,12 +237,27 @@ fn strip_quotes(s: &str) -> &str {
 
 /// Hall symbol in comparable form: lower case, single spaces, no quotes around it. Spaces are
 /// significant in Hall symbols (`P 32` is P 3_2, `P 3 2` is P 3 1 2) and are kept as one.
+///
+/// Two slips seen in files are repaired: a missing space after the lattice symbol (`-I2yc` for
+/// `-I 2yc`) and a space before the `"` of a two-fold axis (`-R 3 2 "`).
 pub fn normalise_hall(hall: &str) -> String {
-    strip_quotes(hall)
+    let mut s = strip_quotes(hall)
         .split_whitespace()
         .collect::<Vec<_>>()
         .join(" ")
         .to_lowercase()
+        .replace(" \"", "\"");
+    let lattice_end = if s.starts_with('-') { 2 } else { 1 };
+    if s.len() > lattice_end
+        && s[..lattice_end]
+            .chars()
+            .last()
+            .is_some_and(|c| "pabcirstf".contains(c))
+        && !s[lattice_end..].starts_with(' ')
+    {
+        s.insert(lattice_end, ' ');
+    }
+    s
 }
 
 /// Looks up a setting by Hall symbol (case and spacing insensitive).
@@ -248,11 +274,12 @@ pub fn from_hall(hall: &str) -> Option<SpaceGroup> {
         .map(Setting::space_group)
 }
 
-/// A Hermann-Mauguin symbol reduced for comparison: no spaces, no underscores (`2_1` = `21`),
-/// lower case. `P 21/n 21/m 21/a` and `P2_1/n2_1/m2_1/a` give the same string.
+/// A Hermann-Mauguin symbol reduced for comparison: no spaces, no underscores or parentheses
+/// around screw subscripts (`2_1` = `2(1)` = `21`), lower case. `P 21/n 21/m 21/a`,
+/// `P2_1/n2_1/m2_1/a` and `P2(1)/n2(1)/m2(1)/a` give the same string.
 pub fn compact_hm(s: &str) -> String {
     s.chars()
-        .filter(|c| !c.is_whitespace() && *c != '_')
+        .filter(|c| !c.is_whitespace() && !matches!(c, '_' | '(' | ')'))
         .flat_map(char::to_lowercase)
         .collect()
 }
@@ -356,13 +383,17 @@ fn suffix_matches(s: &Setting, suffix: &HmSuffix) -> bool {
 ///
 /// When a symbol fits several settings and no suffix decides, the choice is: the standard
 /// setting; else origin choice 2 or hexagonal axes; else unique axis b (`P 21/a` is
-/// `P 1 21/a 1`); else the first in table order. A suffix that fits none of the settings named
-/// by the symbol gives None, as does an unknown symbol.
+/// `P 1 21/a 1`); else the first in table order. An origin suffix on a group with a single
+/// origin is ignored; any other suffix that fits none of the settings named by the symbol gives
+/// None, as does an unknown symbol.
 pub fn from_hm(hm: &str) -> Option<SpaceGroup> {
     let q = normalise_hm(hm)?;
     let cands = name_index().get(&q.body)?;
     let pool: Vec<&Setting> = cands.iter().map(|&i| &table::SETTINGS[i]).collect();
+    // an origin suffix on a group with one origin says nothing (`P 42/m m c S` in some files)
+    let has_origins = pool.iter().any(|s| s.choice.starts_with(['1', '2']));
     let pool: Vec<&Setting> = match &q.suffix {
+        Some(HmSuffix::Origin(_)) if !has_origins => pool,
         Some(suf) => pool
             .into_iter()
             .filter(|s| suffix_matches(s, suf))

@@ -1,0 +1,523 @@
+//! The main job, glued together: structure -> oxidation states -> valence check -> landscape
+//! model -> grids -> percolation (energy and valence mismatch) -> site network -> profiles ->
+//! transport and capacity estimates. This is the only module that knows the whole pipeline;
+//! every stage it calls takes and returns plain data.
+
+use crate::bv::model::{ModelKnobs, ModelProvenance, build_model};
+use crate::bv::{
+    ParameterTable, ValenceReport, assign_oxidation_states, valence::valence_check_with,
+};
+use crate::capacity::{self, CandidateSite, CapacityReport, SitePacking};
+use crate::element::Element;
+use crate::grid::Grid;
+use crate::landscape::{self, FrameworkKind, Landscape, LandscapeModel, Progress};
+use crate::network::{
+    self, FrameworkIon, MobileSite, Network, NetworkInput, NetworkOptions, Profile, ProfileOptions,
+};
+use crate::percolation::{self, Percolation};
+use crate::structure::Structure;
+use crate::transport::{self, HoppingModel, RateRow};
+use std::time::Instant;
+
+/// Grid spacing used when none is asked for: 0.1 A for cells up to 1000 A^3 (about 1e6
+/// points); larger cells get a coarser spacing that keeps the grid near 1e6 points, never
+/// coarser than 0.25 A.
+pub fn default_spacing_a(volume_a3: f64) -> f64 {
+    let s = 0.1 * (volume_a3 / 1000.0).cbrt();
+    s.clamp(0.1, 0.25)
+}
+
+/// Options of the transport and capacity estimates.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RateOptions {
+    pub temperature_k: f64,
+    pub attempt_frequency_hz: f64,
+    pub correlation_factor: f64,
+    pub site_filling: f64,
+    /// A measured diffusion coefficient (m^2/s) at a temperature (K), replacing the hopping
+    /// model's estimate.
+    pub measured_diffusion: Option<(f64, f64)>,
+    pub c_rates: Vec<f64>,
+    /// Minimum distance between two mobile ions for the site-limited capacity (A).
+    pub min_ion_distance_a: f64,
+    /// Ions (or electrons) inserted per formula unit for the redox capacity; None: the mobile
+    /// ions the structure already holds per formula unit (none for an empty host: then only the
+    /// site bound is given).
+    pub ions_per_formula_unit: Option<f64>,
+}
+
+impl Default for RateOptions {
+    fn default() -> Self {
+        RateOptions {
+            temperature_k: transport::ROOM_TEMPERATURE_K,
+            attempt_frequency_hz: transport::DEFAULT_ATTEMPT_FREQUENCY_HZ,
+            correlation_factor: 1.0,
+            site_filling: 0.0,
+            measured_diffusion: None,
+            c_rates: transport::DEFAULT_C_RATES.to_vec(),
+            min_ion_distance_a: capacity::DEFAULT_MIN_LI_LI_DISTANCE_A,
+            ions_per_formula_unit: None,
+        }
+    }
+}
+
+#[derive(Debug, Clone)]
+pub struct AnalysisOptions {
+    pub ion: Element,
+    /// Grid spacing (A); None: [`default_spacing_a`].
+    pub spacing_a: Option<f64>,
+    pub table: ParameterTable,
+    pub knobs: ModelKnobs,
+    pub exclude_labels: Vec<String>,
+    pub progress: Progress,
+    pub rate: RateOptions,
+    /// Skip the site network, profiles and estimates (percolation only: calibration, screening).
+    pub percolation_only: bool,
+}
+
+impl AnalysisOptions {
+    pub fn new(ion: Element) -> Self {
+        AnalysisOptions {
+            ion,
+            spacing_a: None,
+            table: ParameterTable::builtin(),
+            knobs: ModelKnobs::default(),
+            exclude_labels: vec![],
+            progress: Progress::Silent,
+            rate: RateOptions::default(),
+            percolation_only: false,
+        }
+    }
+}
+
+/// Transport through one percolating network.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ChannelTransport {
+    pub dimension: u8,
+    pub barrier_ev: f64,
+    /// Mean length of the hops inside the network at its threshold (A).
+    pub hop_length_a: f64,
+    /// Diffusion coefficient at the chosen temperature (m^2/s).
+    pub diffusion_m2_s: f64,
+    /// "hopping model" or "measured".
+    pub basis: String,
+    pub model: Option<HoppingModel>,
+    pub arrhenius: Vec<(f64, f64)>,
+    pub rates: Vec<RateRow>,
+}
+
+/// Everything the main job found.
+#[derive(Debug, Clone)]
+pub struct Analysis {
+    /// The structure with oxidation states (assigned when the file had none).
+    pub structure: Structure,
+    pub ion: Element,
+    pub oxidation_note: Option<String>,
+    pub valence: Option<ValenceReport>,
+    pub model: LandscapeModel,
+    pub provenance: ModelProvenance,
+    pub spacing_a: [f64; 3],
+    pub landscape: Landscape,
+    /// Percolation of the site-energy grid (eV).
+    pub percolation: Percolation,
+    /// Percolation of the valence-mismatch grid (v.u.).
+    pub mismatch_percolation: Percolation,
+    pub network: Option<Network>,
+    /// The site graph's own percolation (must equal `percolation`).
+    pub graph_percolation: Option<Percolation>,
+    pub profiles: Vec<Profile>,
+    pub transport: Vec<ChannelTransport>,
+    pub capacity: Option<CapacityReport>,
+    pub packing: Option<SitePacking>,
+    pub warnings: Vec<String>,
+    /// Seconds per stage.
+    pub timings: Vec<(&'static str, f64)>,
+}
+
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum AnalysisError {
+    #[error("{0}")]
+    Model(#[from] crate::bv::BvError),
+    #[error("structure '{structure}': {message}")]
+    Structure { structure: String, message: String },
+}
+
+/// Gives every occupant an oxidation state, assigning them when the file has none.
+pub fn with_oxidation_states(
+    s: &Structure,
+    table: &ParameterTable,
+) -> Result<(Structure, Option<String>), AnalysisError> {
+    let complete = s
+        .sites
+        .iter()
+        .all(|site| site.occupants.iter().all(|o| o.species.oxidation.is_some()));
+    if complete {
+        return Ok((s.clone(), None));
+    }
+    let a = assign_oxidation_states(s, table)?;
+    Ok((a.structure, Some(a.note)))
+}
+
+/// Grid points per axis for a spacing (A).
+pub fn grid_dims(structure: &Structure, spacing_a: f64) -> [usize; 3] {
+    Grid::dims_for_spacing(&structure.lattice, spacing_a)
+}
+
+/// The plain framework ions of a model, for the network's coordination and bottlenecks.
+pub fn framework_ions(model: &LandscapeModel) -> Vec<FrameworkIon> {
+    model
+        .atoms
+        .iter()
+        .map(|a| match a.kind {
+            FrameworkKind::Anion(i) => {
+                let k = &model.anions[i];
+                FrameworkIon {
+                    label: a.label.clone(),
+                    element: k.species.element.symbol().to_string(),
+                    frac: a.frac,
+                    charge: k.species.oxidation.unwrap_or(0.0),
+                    radius: k.radius,
+                    is_anion: true,
+                }
+            }
+            FrameworkKind::Cation(i) => {
+                let k = &model.cations[i];
+                FrameworkIon {
+                    label: a.label.clone(),
+                    element: k.species.element.symbol().to_string(),
+                    frac: a.frac,
+                    charge: k.species.oxidation.unwrap_or(k.charge),
+                    radius: k.radius,
+                    is_anion: false,
+                }
+            }
+        })
+        .collect()
+}
+
+/// Sites of the mobile ion in the original structure (every occupant of that element).
+pub fn mobile_sites(s: &Structure, ion: Element) -> Vec<MobileSite> {
+    s.sites
+        .iter()
+        .filter_map(|site| {
+            site.occupants
+                .iter()
+                .find(|o| o.species.element == ion)
+                .map(|o| MobileSite {
+                    label: o.label.clone(),
+                    frac: site.frac,
+                })
+        })
+        .collect()
+}
+
+/// Model and grids only: the first half of [`analyse`], shared with `hopmap grid` and the
+/// calibration.
+pub fn model_and_landscape(
+    structure: &Structure,
+    opts: &AnalysisOptions,
+) -> Result<
+    (
+        Structure,
+        Option<String>,
+        LandscapeModel,
+        ModelProvenance,
+        Landscape,
+    ),
+    AnalysisError,
+> {
+    let (s, note) = with_oxidation_states(structure, &opts.table)?;
+    let (model, prov) = build_model(&s, opts.ion, &opts.table, &opts.knobs, &opts.exclude_labels)?;
+    if model.atoms.is_empty() {
+        return Err(AnalysisError::Structure {
+            structure: s.name.clone(),
+            message: format!(
+                "nothing is left of the framework once {} is removed",
+                opts.ion
+            ),
+        });
+    }
+    let spacing = opts
+        .spacing_a
+        .unwrap_or_else(|| default_spacing_a(s.volume()));
+    let dims = grid_dims(&s, spacing);
+    let land = landscape::compute(&model, dims, opts.progress);
+    Ok((s, note, model, prov, land))
+}
+
+/// Runs the whole job on one structure.
+pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis, AnalysisError> {
+    let mut timings = Vec::new();
+    let mut warnings: Vec<String> = structure.warnings.clone();
+    let t0 = Instant::now();
+    let (s, oxidation_note, model, provenance, land) = model_and_landscape(structure, opts)?;
+    timings.push(("model and grids", t0.elapsed().as_secs_f64()));
+    if provenance.uses_fallback {
+        warnings.push(
+            "a probe-anion pair uses the O'Keeffe-Brese estimate of R0 (no tabulated parameters): treat barriers with extra caution"
+                .to_string(),
+        );
+    }
+    let valence = match valence_check_with(&s, &opts.table, Some(opts.ion)) {
+        Ok(v) => Some(v),
+        Err(e) => {
+            warnings.push(format!("valence check not possible: {e}"));
+            None
+        }
+    };
+    let spacing_a = land.energy.spacing();
+
+    let t = Instant::now();
+    let ceiling = model.energy_cap as f32;
+    let percolation = percolation::percolate(&land.energy, ceiling);
+    let mismatch_percolation = percolation::percolate(&land.mismatch, model.mismatch_cap as f32);
+    timings.push(("percolation", t.elapsed().as_secs_f64()));
+
+    let mut out = Analysis {
+        structure: s,
+        ion: opts.ion,
+        oxidation_note,
+        valence,
+        model,
+        provenance,
+        spacing_a,
+        landscape: land,
+        percolation,
+        mismatch_percolation,
+        network: None,
+        graph_percolation: None,
+        profiles: vec![],
+        transport: vec![],
+        capacity: None,
+        packing: None,
+        warnings,
+        timings,
+    };
+    if opts.percolation_only {
+        return Ok(out);
+    }
+
+    let t = Instant::now();
+    let framework = framework_ions(&out.model);
+    let mobile = mobile_sites(&out.structure, opts.ion);
+    let input = NetworkInput {
+        ops: &out.structure.symmetry.ops,
+        framework: &framework,
+        mobile_sites: &mobile,
+        mobile_radius: out.model.probe.radius,
+    };
+    let net_opts = NetworkOptions {
+        ceiling,
+        ..Default::default()
+    };
+    let net = network::build(&out.landscape.energy, &input, &net_opts);
+    let graph_perc = net.percolate(&out.landscape.energy);
+    for d in 1..=3u8 {
+        let (g, v) = (out.percolation.energy(d), graph_perc.energy(d));
+        if g != v {
+            out.warnings.push(format!(
+                "internal check: the site graph percolates in {d}D at {v:?} eV but the grid at {g:?} eV; please report this structure"
+            ));
+        }
+    }
+    timings_push(&mut out, "site network", t);
+
+    let t = Instant::now();
+    let popts = ProfileOptions {
+        ceiling,
+        ..Default::default()
+    };
+    out.profiles =
+        network::profile::channel_profiles(&out.landscape.energy, &out.percolation, &popts);
+    timings_push(&mut out, "profiles", t);
+
+    out.transport = channel_transport(&out.percolation, &net, &opts.rate, &mut out.warnings);
+    let probe_charge = out.model.probe.valence.round().max(1.0) as u8;
+    let (cap, packing) = capacity_estimate(
+        &out.structure,
+        opts.ion,
+        probe_charge,
+        &out.percolation,
+        &net,
+        &opts.rate,
+        &mut out.warnings,
+    );
+    out.capacity = cap;
+    out.packing = packing;
+    out.network = Some(net);
+    out.graph_percolation = Some(graph_perc);
+    Ok(out)
+}
+
+fn timings_push(a: &mut Analysis, name: &'static str, t: Instant) {
+    a.timings.push((name, t.elapsed().as_secs_f64()));
+}
+
+/// Mean length (A) of the hops open at `level`, in the network reached at that level.
+fn mean_hop_length(net: &Network, level: f32) -> Option<f64> {
+    let open: Vec<f64> = net
+        .hops
+        .iter()
+        .filter(|h| h.saddle_energy <= level)
+        .map(|h| h.length)
+        .collect();
+    if open.is_empty() {
+        None
+    } else {
+        Some(open.iter().sum::<f64>() / open.len() as f64)
+    }
+}
+
+fn channel_transport(
+    p: &Percolation,
+    net: &Network,
+    r: &RateOptions,
+    warnings: &mut Vec<String>,
+) -> Vec<ChannelTransport> {
+    let mut out = Vec::new();
+    for t in p.thresholds.iter().flatten() {
+        let Some(hop) = mean_hop_length(net, t.energy) else {
+            continue;
+        };
+        let barrier = t.barrier as f64;
+        let (diffusion, basis, model) = match r.measured_diffusion {
+            Some((d, _)) => (d, "measured".to_string(), None),
+            None => {
+                let m = HoppingModel::new(barrier, hop, t.dimension)
+                    .and_then(|m| m.with_attempt_frequency(r.attempt_frequency_hz))
+                    .and_then(|m| m.with_correlation_factor(r.correlation_factor))
+                    .and_then(|m| m.with_site_filling(r.site_filling));
+                match m {
+                    Ok(m) => (
+                        m.diffusion_coefficient(r.temperature_k),
+                        "hopping model".to_string(),
+                        Some(m),
+                    ),
+                    Err(e) => {
+                        warnings.push(format!(
+                            "transport estimate of the {}D network skipped: {e}",
+                            t.dimension
+                        ));
+                        continue;
+                    }
+                }
+            }
+        };
+        let arrhenius = match &model {
+            Some(m) => transport::default_temperatures_k()
+                .into_iter()
+                .map(|tk| (tk, m.diffusion_coefficient(tk)))
+                .collect(),
+            None => vec![],
+        };
+        let rates = transport::rate_table(diffusion, t.dimension, &r.c_rates).unwrap_or_default();
+        out.push(ChannelTransport {
+            dimension: t.dimension,
+            barrier_ev: barrier,
+            hop_length_a: hop,
+            diffusion_m2_s: diffusion,
+            basis,
+            model,
+            arrhenius,
+            rates,
+        });
+    }
+    out
+}
+
+fn capacity_estimate(
+    s: &Structure,
+    ion: Element,
+    charge: u8,
+    p: &Percolation,
+    net: &Network,
+    r: &RateOptions,
+    warnings: &mut Vec<String>,
+) -> (Option<CapacityReport>, Option<SitePacking>) {
+    let (z, _) = s.formula_and_z();
+    let comp = s.cell_composition();
+    let per_fu: capacity::Composition = comp.iter().map(|(e, n)| (*e, n / z as f64)).collect();
+    let present = per_fu.get(&ion).copied().unwrap_or(0.0);
+    let ions = r.ions_per_formula_unit.unwrap_or(present);
+    // sites in the highest-dimensional network reached, at its threshold
+    let packing = p.thresholds.iter().flatten().last().and_then(|t| {
+        let level = t.energy;
+        let cands: Vec<CandidateSite> = net
+            .sites
+            .iter()
+            .filter(|site| site.energy <= level)
+            .map(|site| CandidateSite {
+                frac: site.frac,
+                energy_ev: Some(site.energy as f64),
+            })
+            .collect();
+        if cands.is_empty() {
+            return None;
+        }
+        match capacity::pack_sites(&s.lattice, &cands, r.min_ion_distance_a) {
+            Ok(pk) => Some(pk),
+            Err(e) => {
+                warnings.push(format!("site-limited capacity skipped: {e}"));
+                None
+            }
+        }
+    });
+    let redox_electrons = ions * charge as f64;
+    let site = packing.as_ref().map(|pk| (pk, z as f64));
+    match CapacityReport::new(&per_fu, redox_electrons, site, charge, Some(s.density())) {
+        Ok(c) => (Some(c), packing),
+        Err(e) => {
+            warnings.push(format!("capacity estimate skipped: {e}"));
+            (None, packing)
+        }
+    }
+}
+
+/// The headline in one sentence, e.g. "Li+: 1D channels along [010], barrier 0.32 eV; 2D at
+/// 0.95 eV; 3D at 1.40 eV". Energies after the first are the thresholds relative to the lowest
+/// site energy of the network (i.e. barriers).
+pub fn headline(a: &Analysis) -> String {
+    let p = &a.percolation;
+    let ion = a.model.probe.element.symbol();
+    if p.dimension == 0 {
+        return format!(
+            "{ion}: no percolating path below {:.1} eV (the energy cap)",
+            p.ceiling
+        );
+    }
+    let mut parts = Vec::new();
+    for t in p.thresholds.iter().flatten() {
+        let what = match &t.channel.span {
+            percolation::Span::Line { direction, .. } => {
+                let dirs: Vec<String> = p
+                    .families
+                    .iter()
+                    .filter(|f| f.dimension == 1 && (f.onset - t.energy).abs() < 1e-6)
+                    .map(|f| format!("[{}]", percolation::format_indices(f.span.key())))
+                    .collect();
+                let dirs = if dirs.is_empty() {
+                    format!("[{}]", percolation::format_indices(*direction))
+                } else {
+                    dirs.join(", ")
+                };
+                format!("1D channels along {dirs}")
+            }
+            percolation::Span::Plane { normal, .. } => format!(
+                "2D layers in the ({}) plane",
+                percolation::format_indices(*normal)
+            ),
+            percolation::Span::Space { .. } => "3D network".to_string(),
+            percolation::Span::Closed => continue,
+        };
+        if parts.is_empty() {
+            parts.push(format!("{what}, barrier {:.2} eV", t.barrier));
+        } else {
+            parts.push(format!(
+                "{} at {:.2} eV",
+                what.split(' ').next().unwrap_or(""),
+                t.barrier
+            ));
+        }
+    }
+    format!("{ion}: {}", parts.join("; "))
+}

@@ -1,0 +1,33 @@
+use super::{CmdResult, GlobalOpts, InputArgs};
+use clap::Args;
+use hopmap::report;
+use std::path::PathBuf;
+
+#[derive(Args, Debug)]
+pub struct ValenceArgs {
+    #[command(flatten)]
+    pub input: InputArgs,
+    /// Parameter file (TOML) overriding bond-valence parameters or radii
+    #[arg(long, value_name = "TOML")]
+    pub params: Option<PathBuf>,
+    /// Print the report as JSON on stdout (schema in the README)
+    #[arg(long)]
+    pub json: bool,
+}
+
+pub fn run(_g: &GlobalOpts, a: ValenceArgs) -> CmdResult {
+    let s = hopmap::read::read_structure(&a.input.file, a.input.block.as_deref())?;
+    let (table, _knobs) = super::analyse::load_parameters(a.params.as_deref())?;
+    let (s, note) = hopmap::analysis::with_oxidation_states(&s, &table)?;
+    let v = hopmap::bv::valence_check(&s, &table)?;
+    if a.json {
+        println!(
+            "{}",
+            serde_json::to_string_pretty(&report::json::valence(&v, &s, note.as_deref()))
+                .map_err(|e| e.to_string())?
+        );
+    } else {
+        print!("{}", report::terminal::valence(&v, &s, note.as_deref()));
+    }
+    Ok(())
+}

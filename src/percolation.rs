@@ -1,0 +1,1115 @@
+//! Percolation of a periodic landscape: is there a channel, in how many dimensions, at what
+//! energy (science notes, section 4).
+//!
+//! The voxels of the grid are visited in increasing value and each is joined to its
+//! already-visited face neighbours (6-connectivity, periodic) with a union-find. Every node
+//! carries the lattice translation between its own image and the image of its root, so a join
+//! between two nodes of the same component across the cell boundary closes a loop whose winding
+//! vector `w = off(u) + t - off(v)` is a lattice vector of the channel. The winding vectors of a
+//! component span its *winding lattice*; its rank (1, 2, 3) is the dimension in which the
+//! component percolates. The energy at which a rank is first reached by any component is
+//! `E_1D <= E_2D <= E_3D`.
+//!
+//! Invariants:
+//! - voxels are ordered by `(value, index)`: ties are broken by grid index, so every result is
+//!   deterministic and the site graph can reproduce it exactly (its edges are ordered by the
+//!   same key of their saddle voxel);
+//! - a voxel is open when its value is strictly below the ceiling (values at the cap are walls);
+//!   NaN is never open;
+//! - results that depend on the order inside a run of equal values (which component closed its
+//!   loop first) are read only at the end of the run, when every voxel of that value has been
+//!   joined: symmetric channels opening at the same energy are all counted.
+//!
+//! The same union-find runs on the site graph of [`crate::network::graph`].
+
+use crate::grid::Grid;
+use crate::lattice::Lattice;
+use std::collections::HashMap;
+use std::hash::{BuildHasherDefault, Hasher};
+
+// ------------------------------------------------------------------------------------------
+// Ordering keys
+// ------------------------------------------------------------------------------------------
+
+/// Order-preserving map of a (non-NaN) `f32` onto `u32`; `-0.0` and `0.0` map to the same key.
+#[inline]
+pub(crate) fn f32_key(v: f32) -> u32 {
+    let v = if v == 0.0 { 0.0 } else { v };
+    let b = v.to_bits();
+    if b & 0x8000_0000 != 0 {
+        !b
+    } else {
+        b | 0x8000_0000
+    }
+}
+
+/// The total order of voxels: value first, grid index second.
+#[inline]
+pub(crate) fn total_key(v: f32, idx: usize) -> u64 {
+    ((f32_key(v) as u64) << 32) | idx as u64
+}
+
+/// Inverse of [`f32_key`].
+#[inline]
+pub(crate) fn key_f32(k: u32) -> f32 {
+    if k & 0x8000_0000 != 0 {
+        f32::from_bits(k & 0x7fff_ffff)
+    } else {
+        f32::from_bits(!k)
+    }
+}
+
+/// Grid index of a visiting key (see [`visit_order`]).
+#[inline]
+pub fn key_index(key: u64) -> usize {
+    (key & 0xffff_ffff) as usize
+}
+
+/// Value of a visiting key (see [`visit_order`]); `-0.0` comes back as `0.0`.
+#[inline]
+pub fn key_value(key: u64) -> f32 {
+    key_f32((key >> 32) as u32)
+}
+
+/// The open voxels (value strictly below `ceiling`, NaN excluded) in increasing `(value, index)`
+/// order, as keys `(order-preserving bits of the value) << 32 | index` (read them with
+/// [`key_index`] and [`key_value`]): the sweep then reads values in sequence rather than
+/// scattered over the grid. Sorted by a least-significant-digit radix sort on the value bits
+/// (three passes of 11, 11 and 10 bits; a pass whose digit is the same for every voxel is
+/// skipped). Grids must have fewer than 2^32 points.
+pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
+    let mut items = open_items(values, ceiling);
+    let mut buf = vec![0u64; items.len()];
+    let mut hist = [[0usize; 2048]; 3];
+    const SHIFTS: [u32; 3] = [32, 43, 54];
+    const MASKS: [u64; 3] = [0x7ff, 0x7ff, 0x3ff];
+    for &x in &items {
+        for p in 0..3 {
+            hist[p][((x >> SHIFTS[p]) & MASKS[p]) as usize] += 1;
+        }
+    }
+    let n = items.len();
+    let mut src_is_items = true;
+    for p in 0..3 {
+        if hist[p].iter().any(|&c| c == n) {
+            continue; // every item has the same digit: the pass would not move anything
+        }
+        let mut start = [0usize; 2048];
+        let mut acc = 0;
+        for (s, &c) in start.iter_mut().zip(hist[p].iter()) {
+            *s = acc;
+            acc += c;
+        }
+        let (src, dst) = if src_is_items {
+            (&items, &mut buf)
+        } else {
+            (&buf, &mut items)
+        };
+        for &x in src.iter() {
+            let d = ((x >> SHIFTS[p]) & MASKS[p]) as usize;
+            dst[start[d]] = x;
+            start[d] += 1;
+        }
+        src_is_items = !src_is_items;
+    }
+    if src_is_items { items } else { buf }
+}
+
+/// The same order as [`visit_order`], by a comparison sort (`sort_unstable` on the packed
+/// `(value, index)` keys). Kept as the reference the benchmark measures the radix sort against.
+pub fn visit_order_by_comparison(values: &[f32], ceiling: f32) -> Vec<u64> {
+    let mut items = open_items(values, ceiling);
+    items.sort_unstable();
+    items
+}
+
+fn open_items(values: &[f32], ceiling: f32) -> Vec<u64> {
+    values
+        .iter()
+        .enumerate()
+        .filter(|(_, v)| **v < ceiling)
+        .map(|(i, &v)| total_key(v, i))
+        .collect()
+}
+
+// ------------------------------------------------------------------------------------------
+// Result types
+// ------------------------------------------------------------------------------------------
+
+/// How a connected region extends through the crystal: the winding lattice of the region,
+/// in lattice-vector components `[u, v, w]` (multiples of **a**, **b**, **c**).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Span {
+    /// A closed pocket: no loop around the cell.
+    Closed,
+    /// A 1D channel. `repeat` generates the winding lattice (the translation after which the
+    /// channel repeats itself, usually equal to `direction`); `direction` is the primitive
+    /// lattice direction `[uvw]`, first nonzero component positive.
+    Line {
+        repeat: [i32; 3],
+        direction: [i32; 3],
+    },
+    /// A 2D layer. `vectors` span its winding lattice (reduced: shortest first in the Cartesian
+    /// metric, each with its first nonzero component positive); `normal` is the plane given by
+    /// Miller-like indices `(hkl)` of the lattice plane containing both vectors, primitive and
+    /// with its first nonzero component positive.
+    Plane {
+        vectors: [[i32; 3]; 2],
+        normal: [i32; 3],
+    },
+    /// A 3D network; `vectors` are a basis of its winding lattice (Hermite normal form, usually
+    /// `[100], [010], [001]`).
+    Space { vectors: [[i32; 3]; 3] },
+}
+
+impl Span {
+    pub fn dimension(&self) -> u8 {
+        match self {
+            Span::Closed => 0,
+            Span::Line { .. } => 1,
+            Span::Plane { .. } => 2,
+            Span::Space { .. } => 3,
+        }
+    }
+
+    /// The lattice translations that generate the span (empty for a closed pocket).
+    pub fn translations(&self) -> Vec<[i32; 3]> {
+        match self {
+            Span::Closed => vec![],
+            Span::Line { repeat, .. } => vec![*repeat],
+            Span::Plane { vectors, .. } => vectors.to_vec(),
+            Span::Space { vectors } => vectors.to_vec(),
+        }
+    }
+
+    /// The direction of a line, the normal of a plane, `[0, 0, 0]` otherwise: what tells
+    /// families of channels apart.
+    pub fn key(&self) -> [i32; 3] {
+        match self {
+            Span::Line { direction, .. } => *direction,
+            Span::Plane { normal, .. } => *normal,
+            _ => [0, 0, 0],
+        }
+    }
+
+    fn from_rows(rows: &[[i64; 3]], lattice: &Lattice) -> Span {
+        let to32 = |r: [i64; 3]| r.map(|x| x as i32);
+        match rows.len() {
+            0 => Span::Closed,
+            1 => {
+                let r = to32(rows[0]);
+                Span::Line {
+                    repeat: sign_normalised(r),
+                    direction: primitive(r),
+                }
+            }
+            2 => {
+                let (u, v) = gauss_reduce(to32(rows[0]), to32(rows[1]), lattice);
+                let n = cross(u, v);
+                Span::Plane {
+                    vectors: [sign_normalised(u), sign_normalised(v)],
+                    normal: primitive(n),
+                }
+            }
+            _ => Span::Space {
+                vectors: [to32(rows[0]), to32(rows[1]), to32(rows[2])],
+            },
+        }
+    }
+}
+
+/// Writes `[uvw]`, `(hkl)`-style triples the crystallographer's way: `-1` as `-1`, joined
+/// without separators when every component is a single digit (`[1-10]`), else with commas.
+pub fn format_indices(v: [i32; 3]) -> String {
+    if v.iter().all(|x| x.abs() < 10) {
+        v.iter().map(|x| x.to_string()).collect::<String>()
+    } else {
+        v.map(|x| x.to_string()).join(",")
+    }
+}
+
+impl std::fmt::Display for Span {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Span::Closed => write!(f, "closed"),
+            Span::Line { direction, .. } => write!(f, "1D along [{}]", format_indices(*direction)),
+            Span::Plane { normal, .. } => {
+                write!(f, "2D in the ({}) plane", format_indices(*normal))
+            }
+            Span::Space { .. } => write!(f, "3D"),
+        }
+    }
+}
+
+/// One connected region as it stood when it reached its dimension (read at the end of the run
+/// of equal values in which that happened).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Channel {
+    pub dimension: u8,
+    pub span: Span,
+    /// Energy (grid units: eV for a site-energy grid, v.u. for a valence-mismatch grid) at which
+    /// this region reached `dimension`.
+    pub onset: f32,
+    /// Lowest value inside the region at that moment.
+    pub lowest: f32,
+    /// `onset - lowest`: the barrier of this channel.
+    pub barrier: f32,
+    /// Where the lowest value sits: a grid index for a grid percolation, a site index for the
+    /// site graph.
+    pub lowest_point: usize,
+    /// Points in the region (voxels, or sites for the site graph).
+    pub size: usize,
+    /// `size` over all points of the cell.
+    pub fraction: f64,
+}
+
+/// The first energy at which some region percolates in `dimension` dimensions.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Threshold {
+    pub dimension: u8,
+    /// `E_d` (grid units).
+    pub energy: f32,
+    /// `E_d` minus the lowest value of the deepest region percolating at `E_d` (the largest
+    /// barrier among the regions that open together; they are usually symmetry copies).
+    pub barrier: f32,
+    /// That deepest region.
+    pub channel: Channel,
+    /// Number of distinct regions percolating in at least `dimension` dimensions at `E_d`
+    /// (e.g. the separate tunnels of a tunnel structure).
+    pub components: usize,
+    /// Fraction of the cell in those regions at `E_d`.
+    pub fraction: f64,
+}
+
+/// Channels of one kind: the same dimension and the same direction (1D) or plane (2D).
+#[derive(Debug, Clone, PartialEq)]
+pub struct ChannelFamily {
+    pub dimension: u8,
+    /// The span of the first member.
+    pub span: Span,
+    /// Energy at which the first member opened.
+    pub onset: f32,
+    /// Barrier of the first member.
+    pub barrier: f32,
+    /// How many regions opened independently with this dimension and direction.
+    pub components: usize,
+}
+
+/// What is open at one level.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LevelStats {
+    pub level: f32,
+    /// Fraction of the cell with a value at or below the level.
+    pub open_fraction: f64,
+    /// Fraction of the cell in regions percolating in at least 1, 2 and 3 dimensions.
+    pub percolating_fraction: [f64; 3],
+    /// Highest dimension reached at this level (0 when nothing percolates).
+    pub dimension: u8,
+}
+
+/// The outcome of a percolation analysis.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Percolation {
+    pub ceiling: f32,
+    /// Highest dimension reached below the ceiling; 0 when nothing percolates.
+    pub dimension: u8,
+    /// `thresholds[d - 1]` is the first `d`-dimensional percolation, when reached.
+    pub thresholds: [Option<Threshold>; 3],
+    /// Every time a region reached a higher dimension, in increasing energy.
+    pub openings: Vec<Channel>,
+    /// Openings grouped by dimension and direction or plane, in increasing onset energy: tells
+    /// apart e.g. tunnels along `[100]` and along `[010]` that do not connect.
+    pub families: Vec<ChannelFamily>,
+    /// Lowest open value (None when nothing is below the ceiling).
+    pub lowest: Option<f32>,
+    /// Number of points of the cell (voxels, or sites for the site graph).
+    pub points: usize,
+    /// Fraction of the cell below the ceiling.
+    pub open_fraction: f64,
+    /// Fraction of the cell in the largest connected region below the ceiling.
+    pub largest_fraction: f64,
+    /// Statistics at the levels asked for (see [`percolate_levels`]).
+    pub levels: Vec<LevelStats>,
+}
+
+impl Percolation {
+    /// The first `d`-dimensional percolation (`d` = 1, 2, 3).
+    pub fn threshold(&self, d: u8) -> Option<&Threshold> {
+        if (1..=3).contains(&d) {
+            self.thresholds[d as usize - 1].as_ref()
+        } else {
+            None
+        }
+    }
+    /// `E_d`, when reached.
+    pub fn energy(&self, d: u8) -> Option<f32> {
+        self.threshold(d).map(|t| t.energy)
+    }
+}
+
+// ------------------------------------------------------------------------------------------
+// Integer lattice helpers
+// ------------------------------------------------------------------------------------------
+
+fn gcd(a: i64, b: i64) -> i64 {
+    if b == 0 { a.abs() } else { gcd(b, a % b) }
+}
+
+fn sign_normalised(v: [i32; 3]) -> [i32; 3] {
+    match v.iter().find(|&&x| x != 0) {
+        Some(&x) if x < 0 => v.map(|y| -y),
+        _ => v,
+    }
+}
+
+fn primitive(v: [i32; 3]) -> [i32; 3] {
+    let g = gcd(gcd(v[0] as i64, v[1] as i64), v[2] as i64);
+    if g == 0 {
+        return v;
+    }
+    sign_normalised(v.map(|x| (x as i64 / g) as i32))
+}
+
+fn cross(u: [i32; 3], v: [i32; 3]) -> [i32; 3] {
+    [
+        u[1] * v[2] - u[2] * v[1],
+        u[2] * v[0] - u[0] * v[2],
+        u[0] * v[1] - u[1] * v[0],
+    ]
+}
+
+/// Lagrange-Gauss reduction of a 2D lattice basis in the Cartesian metric of `lattice`.
+fn gauss_reduce(mut u: [i32; 3], mut v: [i32; 3], lattice: &Lattice) -> ([i32; 3], [i32; 3]) {
+    let cart = |w: [i32; 3]| {
+        lattice.matrix() * nalgebra::Vector3::new(w[0] as f64, w[1] as f64, w[2] as f64)
+    };
+    for _ in 0..64 {
+        let (cu, cv) = (cart(u), cart(v));
+        if cu.norm_squared() > cv.norm_squared() + 1e-9 {
+            std::mem::swap(&mut u, &mut v);
+            continue;
+        }
+        let m = (cu.dot(&cv) / cu.norm_squared()).round() as i32;
+        if m == 0 {
+            break;
+        }
+        v = [v[0] - m * u[0], v[1] - m * u[1], v[2] - m * u[2]];
+    }
+    (u, v)
+}
+
+/// Hermite normal form (row echelon with positive pivots, entries above pivots reduced) of the
+/// lattice generated by `rows`; zero rows are dropped, so the length is the rank.
+pub(crate) fn hnf(mut rows: Vec<[i64; 3]>) -> Vec<[i64; 3]> {
+    let mut r = 0;
+    for col in 0..3 {
+        if r == rows.len() {
+            break;
+        }
+        loop {
+            let mut best: Option<usize> = None;
+            for i in r..rows.len() {
+                if rows[i][col] != 0 && best.is_none_or(|b| rows[i][col].abs() < rows[b][col].abs())
+                {
+                    best = Some(i);
+                }
+            }
+            let Some(b) = best else { break };
+            rows.swap(r, b);
+            let p = rows[r][col];
+            let mut clean = true;
+            for i in r + 1..rows.len() {
+                let q = rows[i][col] / p;
+                if q != 0 {
+                    for c in 0..3 {
+                        rows[i][c] -= q * rows[r][c];
+                    }
+                }
+                if rows[i][col] != 0 {
+                    clean = false;
+                }
+            }
+            if clean {
+                if p < 0 {
+                    for c in 0..3 {
+                        rows[r][c] = -rows[r][c];
+                    }
+                }
+                let p = rows[r][col];
+                for i in 0..r {
+                    let q = rows[i][col].div_euclid(p);
+                    if q != 0 {
+                        for c in 0..3 {
+                            rows[i][c] -= q * rows[r][c];
+                        }
+                    }
+                }
+                r += 1;
+                break;
+            }
+        }
+    }
+    rows.truncate(r);
+    rows
+}
+
+/// True when `w` lies in the lattice whose Hermite normal form is `rows`.
+fn in_lattice(rows: &[[i64; 3]], w: [i64; 3]) -> bool {
+    let mut w = w;
+    for row in rows {
+        let col = match row.iter().position(|&x| x != 0) {
+            Some(c) => c,
+            None => continue,
+        };
+        if w[col] % row[col] != 0 {
+            return false;
+        }
+        let q = w[col] / row[col];
+        for c in 0..3 {
+            w[c] -= q * row[c];
+        }
+    }
+    w == [0, 0, 0]
+}
+
+// ------------------------------------------------------------------------------------------
+// The sweep: union-find with image offsets and winding lattices
+// ------------------------------------------------------------------------------------------
+
+/// Integer type of the stored image offsets.
+///
+/// Offsets are relative to the parent in the union-find tree and are differences of two images
+/// of the same realisation of a component. That realisation is the one given by the joins that
+/// merged it, so the image of a node is reached by a chain of face steps no longer than the
+/// component: along axis `a` an offset never exceeds `N / n_a + 1` cells (N voxels, n_a points
+/// on that axis), and a stored offset at most twice that. `i16` is used when that bound fits,
+/// `i32` otherwise.
+pub(crate) trait Offset: Copy + Default {
+    fn get(self) -> i32;
+    fn put(v: i32) -> Self;
+}
+impl Offset for i16 {
+    #[inline]
+    fn get(self) -> i32 {
+        self as i32
+    }
+    #[inline]
+    fn put(v: i32) -> Self {
+        debug_assert!(v >= i16::MIN as i32 && v <= i16::MAX as i32);
+        v as i16
+    }
+}
+impl Offset for i32 {
+    #[inline]
+    fn get(self) -> i32 {
+        self
+    }
+    #[inline]
+    fn put(v: i32) -> Self {
+        v
+    }
+}
+
+/// True when the offsets of a grid of these dimensions fit in `i16` (see [`Offset`]).
+pub(crate) fn offsets_fit_i16(dims: [usize; 3]) -> bool {
+    let n: usize = dims.iter().product();
+    let min = *dims.iter().min().unwrap_or(&1);
+    2 * (n / min.max(1) + 2) <= i16::MAX as usize
+}
+
+/// A multiplicative hasher for small integer keys (roots, basin pairs): the keys are not
+/// adversarial, and the default SipHash costs more than the work around it.
+#[derive(Default, Clone, Copy)]
+pub(crate) struct FastHasher(u64);
+impl Hasher for FastHasher {
+    #[inline]
+    fn finish(&self) -> u64 {
+        self.0
+    }
+    #[inline]
+    fn write(&mut self, bytes: &[u8]) {
+        for &b in bytes {
+            self.write_u64(b as u64);
+        }
+    }
+    #[inline]
+    fn write_u64(&mut self, x: u64) {
+        self.0 = (self.0.rotate_left(5) ^ x).wrapping_mul(0x51_7c_c1_b7_27_22_0a_95);
+    }
+    #[inline]
+    fn write_u32(&mut self, x: u32) {
+        self.write_u64(x as u64);
+    }
+    #[inline]
+    fn write_i32(&mut self, x: i32) {
+        self.write_u64(x as u32 as u64);
+    }
+    #[inline]
+    fn write_usize(&mut self, x: usize) {
+        self.write_u64(x as u64);
+    }
+}
+pub(crate) type FastMap<K, V> = HashMap<K, V, BuildHasherDefault<FastHasher>>;
+
+#[derive(Debug, Clone, Default)]
+struct Winding {
+    /// Hermite normal form of the winding lattice; its length is the rank.
+    rows: Vec<[i64; 3]>,
+    /// Highest rank already reported as an opening.
+    announced: u8,
+}
+
+const NONE: u32 = u32::MAX;
+
+/// Union-find over the points of a periodic landscape (voxels, or sites), with image offsets,
+/// winding lattices and the bookkeeping of thresholds. Points are added and joined by a driver
+/// that visits them in increasing `(value, index)` order and calls [`Sweep::end_group`] after
+/// each run of equal values.
+pub(crate) struct Sweep<'a, O: Offset> {
+    values: &'a [f32],
+    lattice: &'a Lattice,
+    parent: Vec<u32>,
+    size: Vec<u32>,
+    low: Vec<u32>,
+    off: Vec<[O; 3]>,
+    /// Rank of the winding lattice of each root (a copy of `windings[root].rows.len()`, so that
+    /// the common case, a root without windings, needs no look-up).
+    rank: Vec<u8>,
+    windings: FastMap<u32, Winding>,
+    in_rank: [usize; 4],
+    added: usize,
+    largest: usize,
+    lowest: Option<f32>,
+    dirty: Vec<u32>,
+    openings: Vec<Channel>,
+    thresholds: [Option<Threshold>; 3],
+}
+
+impl<'a, O: Offset> Sweep<'a, O> {
+    /// A sweep over `values.len()` points; nothing added yet.
+    pub(crate) fn new(values: &'a [f32], lattice: &'a Lattice) -> Self {
+        let n = values.len();
+        Sweep {
+            values,
+            lattice,
+            parent: vec![NONE; n],
+            size: vec![0; n],
+            low: vec![0; n],
+            off: vec![[O::default(); 3]; n],
+            rank: vec![0; n],
+            windings: FastMap::default(),
+            in_rank: [0; 4],
+            added: 0,
+            largest: 0,
+            lowest: None,
+            dirty: Vec::new(),
+            openings: Vec::new(),
+            thresholds: [None, None, None],
+        }
+    }
+
+    /// Hints the processor to load the entries of `x` (no effect off x86-64 or out of range).
+    #[inline]
+    pub(crate) fn prefetch(&self, x: usize) {
+        #[cfg(target_arch = "x86_64")]
+        if x < self.parent.len() {
+            use std::arch::x86_64::{_MM_HINT_T0, _mm_prefetch};
+            // SAFETY: prefetching is a hint; the addresses lie inside live allocations
+            unsafe {
+                _mm_prefetch::<_MM_HINT_T0>(self.parent.as_ptr().add(x) as *const i8);
+                _mm_prefetch::<_MM_HINT_T0>(self.off.as_ptr().add(x) as *const i8);
+            }
+        }
+        #[cfg(not(target_arch = "x86_64"))]
+        let _ = x;
+    }
+
+    #[inline]
+    pub(crate) fn is_added(&self, x: usize) -> bool {
+        self.parent[x] != NONE
+    }
+
+    /// Adds point `x`, whose value is `v` (passed in so that the grid sweep need not look it up
+    /// far away in the grid).
+    #[inline]
+    pub(crate) fn add(&mut self, x: usize, v: f32) {
+        debug_assert!(!self.is_added(x));
+        self.parent[x] = x as u32;
+        self.size[x] = 1;
+        self.low[x] = x as u32;
+        self.off[x] = [O::default(); 3];
+        self.rank[x] = 0;
+        self.in_rank[0] += 1;
+        self.added += 1;
+        self.largest = self.largest.max(1);
+        if self.lowest.is_none_or(|l| v < l) {
+            self.lowest = Some(v);
+        }
+    }
+
+    /// Root of `x` and the image offset of `x` relative to its root (path halving).
+    #[inline]
+    pub(crate) fn find(&mut self, mut x: usize) -> (usize, [i32; 3]) {
+        let mut acc = [0i32; 3];
+        loop {
+            let p = self.parent[x] as usize;
+            if p == x {
+                return (x, acc);
+            }
+            let g = self.parent[p] as usize;
+            if g != p {
+                let (ox, op) = (self.off[x], self.off[p]);
+                self.off[x] = [
+                    O::put(ox[0].get() + op[0].get()),
+                    O::put(ox[1].get() + op[1].get()),
+                    O::put(ox[2].get() + op[2].get()),
+                ];
+                self.parent[x] = g as u32;
+            }
+            let o = self.off[x];
+            acc[0] += o[0].get();
+            acc[1] += o[1].get();
+            acc[2] += o[2].get();
+            x = self.parent[x] as usize;
+        }
+    }
+
+    fn rank(&self, root: usize) -> usize {
+        self.windings
+            .get(&(root as u32))
+            .map_or(0, |w| w.rows.len())
+    }
+
+    #[inline]
+    fn lower(&self, a: u32, b: u32) -> u32 {
+        let (va, vb) = (self.values[a as usize], self.values[b as usize]);
+        if va < vb || (va == vb && a < b) { a } else { b }
+    }
+
+    /// Joins `u` and `v`, where the image of `v` reached from `u` lies `t` cells away from the
+    /// image of `u`. Both must have been added.
+    #[inline]
+    pub(crate) fn join(&mut self, u: usize, v: usize, t: [i32; 3]) {
+        let (ru, ou) = self.find(u);
+        let (rv, ov) = self.find(v);
+        let w = [
+            ou[0] + t[0] - ov[0],
+            ou[1] + t[1] - ov[1],
+            ou[2] + t[2] - ov[2],
+        ];
+        if ru == rv {
+            if w != [0, 0, 0] {
+                self.add_winding(ru, w);
+            }
+            return;
+        }
+        // attach the smaller tree under the larger; `x` = image of the small root relative
+        // to the big root
+        let (big, small, x) = if self.size[ru] >= self.size[rv] {
+            (ru, rv, w)
+        } else {
+            (rv, ru, [-w[0], -w[1], -w[2]])
+        };
+        let (rank_big, rank_small) = (self.rank(big), self.rank(small));
+        let (size_big, size_small) = (self.size[big] as usize, self.size[small] as usize);
+        self.parent[small] = big as u32;
+        self.off[small] = x.map(O::put);
+        self.size[big] += self.size[small];
+        self.low[big] = self.lower(self.low[big], self.low[small]);
+        self.largest = self.largest.max(self.size[big] as usize);
+        if rank_small > 0 {
+            let ws = self.windings.remove(&(small as u32)).unwrap_or_default();
+            let e = self.windings.entry(big as u32).or_default();
+            let mut rows = std::mem::take(&mut e.rows);
+            rows.extend_from_slice(&ws.rows);
+            e.rows = hnf(rows);
+            e.announced = e.announced.max(ws.announced);
+            self.rank[big] = e.rows.len() as u8;
+        }
+        let rank = self.rank(big);
+        self.in_rank[rank_big] -= size_big;
+        self.in_rank[rank_small] -= size_small;
+        self.in_rank[rank] += size_big + size_small;
+        if rank > rank_big.max(rank_small) {
+            self.dirty.push(big as u32);
+        }
+    }
+
+    fn add_winding(&mut self, root: usize, w: [i32; 3]) {
+        let w = w.map(|x| x as i64);
+        let size = self.size[root] as usize;
+        let e = self.windings.entry(root as u32).or_default();
+        if in_lattice(&e.rows, w) {
+            return;
+        }
+        let old = e.rows.len();
+        let mut rows = std::mem::take(&mut e.rows);
+        rows.push(w);
+        e.rows = hnf(rows);
+        let new = e.rows.len();
+        self.rank[root] = new as u8;
+        if new > old {
+            self.in_rank[old] -= size;
+            self.in_rank[new] += size;
+            self.dirty.push(root as u32);
+        }
+    }
+
+    fn channel(&self, root: usize, energy: f32) -> Channel {
+        let w = &self.windings[&(root as u32)];
+        let low = self.low[root] as usize;
+        let lowest = self.values[low];
+        Channel {
+            dimension: w.rows.len() as u8,
+            span: Span::from_rows(&w.rows, self.lattice),
+            onset: energy,
+            lowest,
+            barrier: energy - lowest,
+            lowest_point: low,
+            size: self.size[root] as usize,
+            fraction: self.size[root] as f64 / self.values.len() as f64,
+        }
+    }
+
+    /// Closes a run of equal values at `energy`: records the regions that reached a higher
+    /// dimension during the run and the thresholds reached for the first time.
+    pub(crate) fn end_group(&mut self, energy: f32) {
+        if self.dirty.is_empty() {
+            return;
+        }
+        let dirty = std::mem::take(&mut self.dirty);
+        let mut roots: Vec<usize> = dirty.iter().map(|&d| self.find(d as usize).0).collect();
+        roots.sort_unstable();
+        roots.dedup();
+        // the lowest region first, so that openings of one run come in a stable order
+        roots.sort_by_key(|&r| total_key(self.values[self.low[r] as usize], self.low[r] as usize));
+        for r in roots {
+            let w = &self.windings[&(r as u32)];
+            let rank = w.rows.len() as u8;
+            if rank > w.announced {
+                let ch = self.channel(r, energy);
+                self.openings.push(ch);
+                self.windings.get_mut(&(r as u32)).unwrap().announced = rank;
+            }
+        }
+        for d in 1..=3usize {
+            if self.thresholds[d - 1].is_some() || self.in_rank[d..].iter().sum::<usize>() == 0 {
+                continue;
+            }
+            let mut members: Vec<usize> = self
+                .windings
+                .iter()
+                .filter(|(_, w)| w.rows.len() >= d)
+                .map(|(&r, _)| r as usize)
+                .collect();
+            members.sort_by_key(|&r| {
+                total_key(self.values[self.low[r] as usize], self.low[r] as usize)
+            });
+            let deepest = self.channel(members[0], energy);
+            let voxels: usize = members.iter().map(|&r| self.size[r] as usize).sum();
+            self.thresholds[d - 1] = Some(Threshold {
+                dimension: d as u8,
+                energy,
+                barrier: deepest.barrier,
+                channel: deepest,
+                components: members.len(),
+                fraction: voxels as f64 / self.values.len() as f64,
+            });
+        }
+    }
+
+    pub(crate) fn level_stats(&self, level: f32) -> LevelStats {
+        let n = self.values.len() as f64;
+        let r = &self.in_rank;
+        LevelStats {
+            level,
+            open_fraction: self.added as f64 / n,
+            percolating_fraction: [
+                (r[1] + r[2] + r[3]) as f64 / n,
+                (r[2] + r[3]) as f64 / n,
+                r[3] as f64 / n,
+            ],
+            dimension: (1..=3).rev().find(|&d| r[d] > 0).unwrap_or(0) as u8,
+        }
+    }
+
+    pub(crate) fn finish(self, ceiling: f32, levels: Vec<LevelStats>) -> Percolation {
+        let n = self.values.len();
+        let mut families: Vec<ChannelFamily> = Vec::new();
+        for ch in &self.openings {
+            let key = ch.span.key();
+            match families
+                .iter_mut()
+                .find(|f| f.dimension == ch.dimension && f.span.key() == key)
+            {
+                Some(f) => f.components += 1,
+                None => families.push(ChannelFamily {
+                    dimension: ch.dimension,
+                    span: ch.span.clone(),
+                    onset: ch.onset,
+                    barrier: ch.barrier,
+                    components: 1,
+                }),
+            }
+        }
+        let dimension = self
+            .windings
+            .values()
+            .map(|w| w.rows.len())
+            .max()
+            .unwrap_or(0) as u8;
+        Percolation {
+            ceiling,
+            dimension,
+            thresholds: self.thresholds,
+            openings: self.openings,
+            families,
+            lowest: self.lowest,
+            points: n,
+            open_fraction: self.added as f64 / n.max(1) as f64,
+            largest_fraction: self.largest as f64 / n.max(1) as f64,
+            levels,
+        }
+    }
+}
+
+// ------------------------------------------------------------------------------------------
+// The grid drivers
+// ------------------------------------------------------------------------------------------
+
+/// The 6 face neighbours of grid point (i, j, k) with the cell translation of each step.
+#[inline]
+pub(crate) fn face_neighbours(dims: [usize; 3], ijk: [usize; 3]) -> [(usize, [i32; 3]); 6] {
+    let [na, nb, nc] = dims;
+    let [i, j, k] = ijk;
+    let idx = |i: usize, j: usize, k: usize| (i * nb + j) * nc + k;
+    let (ip, tip) = if i + 1 == na { (0, 1) } else { (i + 1, 0) };
+    let (im, tim) = if i == 0 { (na - 1, -1) } else { (i - 1, 0) };
+    let (jp, tjp) = if j + 1 == nb { (0, 1) } else { (j + 1, 0) };
+    let (jm, tjm) = if j == 0 { (nb - 1, -1) } else { (j - 1, 0) };
+    let (kp, tkp) = if k + 1 == nc { (0, 1) } else { (k + 1, 0) };
+    let (km, tkm) = if k == 0 { (nc - 1, -1) } else { (k - 1, 0) };
+    [
+        (idx(ip, j, k), [tip, 0, 0]),
+        (idx(im, j, k), [tim, 0, 0]),
+        (idx(i, jp, k), [0, tjp, 0]),
+        (idx(i, jm, k), [0, tjm, 0]),
+        (idx(i, j, kp), [0, 0, tkp]),
+        (idx(i, j, km), [0, 0, tkm]),
+    ]
+}
+
+/// Percolation of the open voxels of `grid` (value strictly below `ceiling`).
+///
+/// When nothing percolates below the ceiling the result has `dimension == 0`, no thresholds,
+/// and still says how much of the cell is open (`open_fraction`), the lowest value and the
+/// largest closed pocket (`largest_fraction`).
+pub fn percolate(grid: &Grid, ceiling: f32) -> Percolation {
+    percolate_levels(grid, ceiling, &[])
+}
+
+/// As [`percolate`], and also records [`LevelStats`] (open and percolating fractions, dimension)
+/// at each of `levels` (any order; reported sorted), in the same sweep.
+pub fn percolate_levels(grid: &Grid, ceiling: f32, levels: &[f32]) -> Percolation {
+    let order = visit_order(&grid.values, ceiling);
+    percolate_in_order(grid, ceiling, &order, levels)
+}
+
+/// As [`percolate_levels`] with the visiting order already computed by [`visit_order`] (so
+/// that callers measuring the stages, or reusing the order, do not sort twice).
+pub fn percolate_in_order(grid: &Grid, ceiling: f32, order: &[u64], levels: &[f32]) -> Percolation {
+    if offsets_fit_i16(grid.dims) {
+        sweep_grid::<i16>(grid, ceiling, order, levels).finish_with(ceiling)
+    } else {
+        sweep_grid::<i32>(grid, ceiling, order, levels).finish_with(ceiling)
+    }
+}
+
+struct GridSweep<'a, O: Offset> {
+    sweep: Sweep<'a, O>,
+    levels: Vec<LevelStats>,
+}
+
+impl<O: Offset> GridSweep<'_, O> {
+    fn finish_with(self, ceiling: f32) -> Percolation {
+        self.sweep.finish(ceiling, self.levels)
+    }
+}
+
+fn sweep_grid<'a, O: Offset>(
+    grid: &'a Grid,
+    _ceiling: f32,
+    order: &[u64],
+    levels: &[f32],
+) -> GridSweep<'a, O> {
+    let mut sweep = Sweep::<O>::new(&grid.values, &grid.lattice);
+    let mut lv: Vec<f32> = levels.iter().copied().filter(|l| !l.is_nan()).collect();
+    lv.sort_by(|a, b| a.total_cmp(b));
+    let mut stats = Vec::with_capacity(lv.len());
+    let mut li = 0;
+    const AHEAD: usize = 12;
+    let plane = grid.dims[1] * grid.dims[2];
+    for (pos, &key) in order.iter().enumerate() {
+        let x = key_index(key);
+        let e = key_value(key);
+        if let Some(&later) = order.get(pos + AHEAD) {
+            // the union-find entries of a voxel's neighbours are scattered over the grid:
+            // ask for them well before they are needed
+            let y = key_index(later);
+            for z in [
+                y,
+                y.wrapping_sub(grid.dims[2]),
+                y + grid.dims[2],
+                y.wrapping_sub(plane),
+                y + plane,
+            ] {
+                sweep.prefetch(z);
+            }
+        }
+        while li < lv.len() && lv[li] < e {
+            stats.push(sweep.level_stats(lv[li]));
+            li += 1;
+        }
+        sweep.add(x, e);
+        for (v, t) in face_neighbours(grid.dims, grid.ijk(x)) {
+            if sweep.is_added(v) {
+                sweep.join(x, v, t);
+            }
+        }
+        if pos + 1 == order.len() || order[pos + 1] >> 32 != key >> 32 {
+            sweep.end_group(e);
+        }
+    }
+    while li < lv.len() {
+        stats.push(sweep.level_stats(lv[li]));
+        li += 1;
+    }
+    GridSweep {
+        sweep,
+        levels: stats,
+    }
+}
+
+/// The connected regions open at one level, painted on the grid.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RegionMap {
+    pub level: f32,
+    /// Region of each voxel (index into `regions`), `u32::MAX` for voxels above the level.
+    pub label: Vec<u32>,
+    pub regions: Vec<Region>,
+}
+
+/// One connected region of a [`RegionMap`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct Region {
+    pub span: Span,
+    pub lowest: f32,
+    pub lowest_point: usize,
+    pub voxels: usize,
+}
+
+/// What is connected at `level`: every voxel with a value at or below `level` labelled by its
+/// region, and each region's span (closed pocket, line, plane or 3D network). Regions are
+/// numbered by increasing lowest value.
+pub fn regions_at(grid: &Grid, level: f32) -> RegionMap {
+    let ceiling = level.next_up();
+    let order = visit_order(&grid.values, ceiling);
+    if offsets_fit_i16(grid.dims) {
+        regions_from(
+            grid,
+            level,
+            sweep_grid::<i16>(grid, ceiling, &order, &[]).sweep,
+            &order,
+        )
+    } else {
+        regions_from(
+            grid,
+            level,
+            sweep_grid::<i32>(grid, ceiling, &order, &[]).sweep,
+            &order,
+        )
+    }
+}
+
+fn regions_from<O: Offset>(
+    grid: &Grid,
+    level: f32,
+    mut sweep: Sweep<'_, O>,
+    order: &[u64],
+) -> RegionMap {
+    let mut label = vec![NONE; grid.len()];
+    let mut id_of_root: FastMap<usize, u32> = FastMap::default();
+    let mut regions = Vec::new();
+    // `order` is increasing, so regions are numbered by their lowest voxel
+    for &key in order {
+        let x = key_index(key);
+        let (r, _) = sweep.find(x);
+        let next = regions.len() as u32;
+        let id = *id_of_root.entry(r).or_insert(next);
+        if id == next {
+            let rows = sweep
+                .windings
+                .get(&(r as u32))
+                .map(|w| w.rows.clone())
+                .unwrap_or_default();
+            let low = sweep.low[r] as usize;
+            regions.push(Region {
+                span: Span::from_rows(&rows, &grid.lattice),
+                lowest: grid.values[low],
+                lowest_point: low,
+                voxels: sweep.size[r] as usize,
+            });
+        }
+        label[x] = id;
+    }
+    RegionMap {
+        level,
+        label,
+        regions,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn radix_order_equals_comparison_order() {
+        let values: Vec<f32> = (0..5000)
+            .map(|i| {
+                ((i * 7919) % 1013) as f32 * 0.37 - 120.0 + if i % 3 == 0 { -0.0 } else { 0.0 }
+            })
+            .collect();
+        assert_eq!(
+            visit_order(&values, 50.0),
+            visit_order_by_comparison(&values, 50.0)
+        );
+        let with_nan = [1.0, f32::NAN, -2.0, 3.0];
+        let idx: Vec<usize> = visit_order(&with_nan, 10.0)
+            .into_iter()
+            .map(key_index)
+            .collect();
+        assert_eq!(idx, vec![2, 0, 3]);
+        for v in [-3.5f32, -0.0, 0.0, 1e-30, 7.25, f32::MAX, f32::MIN] {
+            let k = total_key(v, 5);
+            assert_eq!(key_value(k), if v == 0.0 { 0.0 } else { v });
+            assert_eq!(key_index(k), 5);
+        }
+    }
+
+    #[test]
+    fn hermite_normal_form_gives_rank_and_primitive_rows() {
+        assert_eq!(hnf(vec![[0, 0, 2], [0, 0, 3]]), vec![[0, 0, 1]]);
+        assert_eq!(hnf(vec![[1, 1, 0], [-1, 1, 0]]).len(), 2);
+        let h = hnf(vec![[1, 1, 0], [1, -1, 0], [0, 0, 1], [1, 0, 0]]);
+        assert_eq!(h, vec![[1, 0, 0], [0, 1, 0], [0, 0, 1]]);
+        assert!(in_lattice(&hnf(vec![[1, 1, 0], [1, -1, 0]]), [2, 0, 0]));
+        assert!(!in_lattice(&hnf(vec![[1, 1, 0], [1, -1, 0]]), [1, 0, 0]));
+    }
+
+    #[test]
+    fn offsets_fit_i16_for_usual_grids_only() {
+        assert!(offsets_fit_i16([100, 100, 100]));
+        assert!(!offsets_fit_i16([2, 700, 700]));
+    }
+}
