@@ -214,7 +214,7 @@ pub fn read_cif(path: &Path, block: Option<&str>) -> Result<Structure, InputErro
 // Look-ups by alias
 
 /// The first alias present in the block (as a pair or a loop column), with the alias used.
-fn first_of<'b>(block: &'b Block, aliases: &[&'static str]) -> Option<&'static str> {
+fn first_of(block: &Block, aliases: &[&'static str]) -> Option<&'static str> {
     aliases
         .iter()
         .copied()
