@@ -327,12 +327,7 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     timings_push(&mut out, "site network", t);
 
     let t = Instant::now();
-    let popts = ProfileOptions {
-        ceiling,
-        ..Default::default()
-    };
-    out.profiles =
-        network::profile::channel_profiles(&out.landscape.energy, &out.percolation, &popts);
+    out.profiles = profiles(&out.landscape.energy, &out.percolation, ceiling);
     timings_push(&mut out, "profiles", t);
 
     out.transport = channel_transport(&out.percolation, &net, &opts.rate, &mut out.warnings);
@@ -351,6 +346,37 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     out.network = Some(net);
     out.graph_percolation = Some(graph_perc);
     Ok(out)
+}
+
+/// The lowest path through one repeat of every channel reached. The search first stays inside
+/// the cells the translation spans (fast); when the path found there does not reach down to the
+/// channel's threshold (the channel wanders across a cell face) it is repeated with one cell of
+/// margin on every side.
+fn profiles(grid: &Grid, p: &Percolation, ceiling: f32) -> Vec<Profile> {
+    let mut out = Vec::new();
+    for t in p.thresholds.iter().flatten() {
+        for tr in t.channel.span.translations() {
+            let mut found = None;
+            for margin in [0, 1] {
+                let o = ProfileOptions {
+                    ceiling,
+                    cell_margin: margin,
+                    ..Default::default()
+                };
+                if let Some(mut prof) =
+                    network::profile::channel_profile(grid, t.channel.lowest_point, tr, &o)
+                {
+                    if prof.bottleneck <= t.energy + 1e-5 {
+                        prof.dimension = t.dimension;
+                        found = Some(prof);
+                        break;
+                    }
+                }
+            }
+            out.extend(found);
+        }
+    }
+    out
 }
 
 fn timings_push(a: &mut Analysis, name: &'static str, t: Instant) {
