@@ -108,6 +108,12 @@ pub struct ChannelTransport {
     pub model: Option<HoppingModel>,
     pub arrhenius: Vec<(f64, f64)>,
     pub rates: Vec<RateRow>,
+    /// Carriers per m^3 used for the conductivity (the mobile ions of the structure, or the
+    /// inserted amount for an empty host).
+    pub carriers_per_m3: Option<f64>,
+    /// Nernst-Einstein conductivity at the temperature, S/cm (Haven ratio 1).
+    pub conductivity_s_cm: Option<f64>,
+    pub temperature_k: f64,
 }
 
 /// Everything the main job found.
@@ -330,7 +336,18 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     out.profiles = profiles(&out.landscape.energy, &out.percolation, ceiling);
     timings_push(&mut out, "profiles", t);
 
-    out.transport = channel_transport(&out.percolation, &net, &opts.rate, &mut out.warnings);
+    let carriers = carriers_per_m3(&out.structure, opts.ion, opts.rate.ions_per_formula_unit);
+    let charge = out.model.probe.valence;
+    out.transport = channel_transport(
+        &out.percolation,
+        &net,
+        &opts.rate,
+        &out.profiles,
+        &out.structure.lattice,
+        carriers,
+        charge,
+        &mut out.warnings,
+    );
     let probe_charge = out.model.probe.valence.round().max(1.0) as u8;
     let (cap, packing) = capacity_estimate(
         &out.structure,
@@ -383,6 +400,44 @@ fn timings_push(a: &mut Analysis, name: &'static str, t: Instant) {
     a.timings.push((name, t.elapsed().as_secs_f64()));
 }
 
+/// Hop length (A) of the hopping model from a channel profile: the repeat length of the
+/// channel divided by the number of distinct resting sites along one repeat, where minima
+/// separated by less than [`SHALLOW_SITE_EV`] from their neighbours count as one site.
+fn hop_length_from_profile(p: &Profile, lattice: &crate::lattice::Lattice) -> Option<f64> {
+    let t = nalgebra::Vector3::new(
+        p.translation[0] as f64,
+        p.translation[1] as f64,
+        p.translation[2] as f64,
+    );
+    let repeat = lattice.frac_delta_length(t);
+    // walk the profile: a new site starts each time the path climbs SHALLOW_SITE_EV above the
+    // last minimum and comes back down by as much
+    let shallow = SHALLOW_SITE_EV as f32;
+    let mut sites = 0usize;
+    let mut low = f32::INFINITY;
+    let mut climbed = false;
+    let mut high = f32::NEG_INFINITY;
+    for q in &p.points {
+        let e = q.energy;
+        if !climbed {
+            low = low.min(e);
+            if e > low + shallow {
+                climbed = true;
+                high = e;
+            }
+        } else {
+            high = high.max(e);
+            if e < high - shallow {
+                sites += 1;
+                climbed = false;
+                low = e;
+            }
+        }
+    }
+    let sites = sites.max(1);
+    (repeat > 0.0).then(|| repeat / sites as f64)
+}
+
 /// Mean length (A) of the hops open at `level`, in the network reached at that level.
 fn mean_hop_length(net: &Network, level: f32) -> Option<f64> {
     let open: Vec<f64> = net
@@ -398,15 +453,51 @@ fn mean_hop_length(net: &Network, level: f32) -> Option<f64> {
     }
 }
 
+/// The thresholds worth reporting on their own: a dimension reached at the same energy as a
+/// higher one (a spinel's 1D, 2D and 3D networks all open at once) is left to the higher one.
+pub fn distinct_thresholds(p: &Percolation) -> Vec<&percolation::Threshold> {
+    let reached: Vec<_> = p.thresholds.iter().flatten().collect();
+    reached
+        .iter()
+        .enumerate()
+        .filter(|(i, t)| {
+            !reached[i + 1..]
+                .iter()
+                .any(|u| (u.energy - t.energy).abs() < 1e-6)
+        })
+        .map(|(_, t)| *t)
+        .collect()
+}
+
+/// Mobile ions per m^3: those of the structure, or `inserted` per formula unit for a host.
+fn carriers_per_m3(s: &Structure, ion: Element, inserted: Option<f64>) -> Option<f64> {
+    let present = s.cell_composition().get(&ion).copied().unwrap_or(0.0);
+    let (z, _) = s.formula_and_z();
+    let per_cell = match inserted {
+        Some(x) => x * z as f64,
+        None => present,
+    };
+    transport::carrier_density_per_cell(per_cell, s.volume()).ok()
+}
+
 fn channel_transport(
     p: &Percolation,
     net: &Network,
     r: &RateOptions,
+    profiles: &[Profile],
+    lattice: &crate::lattice::Lattice,
+    carriers: Option<f64>,
+    charge: f64,
     warnings: &mut Vec<String>,
 ) -> Vec<ChannelTransport> {
     let mut out = Vec::new();
-    for t in p.thresholds.iter().flatten() {
-        let Some(hop) = mean_hop_length(net, t.energy) else {
+    for t in distinct_thresholds(p) {
+        let Some(hop) = profiles
+            .iter()
+            .find(|p| p.dimension == t.dimension)
+            .and_then(|p| hop_length_from_profile(p, lattice))
+            .or_else(|| mean_hop_length(net, t.energy))
+        else {
             continue;
         };
         let barrier = t.barrier as f64;
@@ -441,6 +532,13 @@ fn channel_transport(
             None => vec![],
         };
         let rates = transport::rate_table(diffusion, t.dimension, &r.c_rates).unwrap_or_default();
+        let temperature_k = r
+            .measured_diffusion
+            .map(|(_, tk)| tk)
+            .unwrap_or(r.temperature_k);
+        let conductivity_s_cm = carriers
+            .and_then(|n| transport::nernst_einstein(n, charge, diffusion, temperature_k).ok())
+            .map(|c| c.siemens_per_cm());
         out.push(ChannelTransport {
             dimension: t.dimension,
             barrier_ev: barrier,
@@ -450,6 +548,9 @@ fn channel_transport(
             model,
             arrhenius,
             rates,
+            carriers_per_m3: carriers,
+            conductivity_s_cm,
+            temperature_k,
         });
     }
     out

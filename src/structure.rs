@@ -137,23 +137,24 @@ impl Structure {
         m
     }
 
-    /// Formula units per cell (Z) and the reduced formula, e.g. (4, "LiFePO4"). Counts are
-    /// reduced by their greatest common divisor when they are (close to) integers; otherwise Z = 1
-    /// and the formula keeps fractional amounts.
-    pub fn formula_and_z(&self) -> (u32, String) {
+    /// Formula units per cell (Z) and the reduced formula, e.g. (4, "LiFePO4"). With partial
+    /// occupancies Z may be fractional: the formula is the smallest one with whole amounts when
+    /// there is one within 1e-3 (Li4Ti5O12 with Z = 8/3 for the spinel cell), otherwise the
+    /// counts are divided by the common divisor of the whole-numbered elements and kept
+    /// fractional (Na0.74CoO2, Z = 2).
+    pub fn formula_and_z(&self) -> (f64, String) {
         let comp = self.cell_composition();
         let counts: Vec<f64> = comp.values().copied().collect();
-        let integral = counts
+        let whole = |c: &f64| (c - c.round()).abs() < 1e-3 && c.round() >= 1.0;
+        let g = counts
             .iter()
-            .all(|c| (c - c.round()).abs() < 1e-3 && c.round() >= 1.0);
-        let z = if integral {
-            counts
-                .iter()
-                .fold(0u64, |g, c| gcd_u64(g, c.round() as u64))
-                .max(1)
-        } else {
-            1
-        };
+            .filter(|c| whole(c))
+            .fold(0u64, |g, c| gcd_u64(g, c.round() as u64))
+            .max(1) as f64;
+        let z = (1..=24)
+            .map(|k| g / k as f64)
+            .find(|z| counts.iter().all(|c| whole(&(c / z))))
+            .unwrap_or(if counts.iter().any(whole) { g } else { 1.0 });
         let mut els: Vec<(&Element, &f64)> = comp.iter().collect();
         // The inorganic chemist's order: increasing Pauling electronegativity (LiFePO4,
         // Li7La3Zr2O12, Li6PS5Cl), elements without a value last, ties by atomic number.
@@ -171,7 +172,7 @@ impl Structure {
         });
         let mut f = String::new();
         for (e, n) in els {
-            let n = n / z as f64;
+            let n = n / z;
             f.push_str(e.symbol());
             if (n - 1.0).abs() < 1e-3 {
             } else if (n - n.round()).abs() < 1e-3 {
@@ -181,7 +182,7 @@ impl Structure {
                 f.push_str(s.trim_end_matches('0').trim_end_matches('.'));
             }
         }
-        (z as u32, f)
+        (z, f)
     }
 
     /// Molar mass of the formula unit of [`Structure::formula_and_z`], g/mol.
@@ -204,6 +205,15 @@ impl Structure {
             .sum::<f64>()
             / AVOGADRO;
         mass_g / (self.volume() * 1e-24)
+    }
+}
+
+/// Z as a chemist writes it: "4", or "2.667" when fractional.
+pub fn format_z(z: f64) -> String {
+    if (z - z.round()).abs() < 1e-9 {
+        format!("{}", z.round() as i64)
+    } else {
+        format!("{z:.3}")
     }
 }
 

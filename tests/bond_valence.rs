@@ -277,8 +277,8 @@ fn space_group_expansion_gives_the_published_cell_contents() {
         [count(&sp, "Li"), count(&sp, "Mn"), count(&sp, "O")],
         [8.0, 16.0, 32.0]
     );
-    assert_eq!(rutile(true).formula_and_z(), (2, "TiO2".to_string()));
-    assert_eq!(licoo2().formula_and_z(), (3, "LiCoO2".to_string()));
+    assert_eq!(rutile(true).formula_and_z(), (2.0, "TiO2".to_string()));
+    assert_eq!(licoo2().formula_and_z(), (3.0, "LiCoO2".to_string()));
     assert_eq!(magnetite().sites.len(), 56);
 }
 

@@ -9,12 +9,22 @@ pub struct InspectArgs {
     /// Print the summary as JSON on stdout (schema in the README)
     #[arg(long)]
     pub json: bool,
+    /// Also write the expanded structure as a P1 CIF with oxidation states to this file
+    #[arg(long, value_name = "CIF")]
+    pub to_cif: Option<std::path::PathBuf>,
 }
 
 pub fn run(g: &GlobalOpts, a: InspectArgs) -> CmdResult {
     let path = &a.input.file;
     let s = hopmap::read::read_structure(path, a.input.block.as_deref())?;
     let file = path.display().to_string();
+    if let Some(out) = &a.to_cif {
+        hopmap::write_cif::write_cif_p1(out, &s)
+            .map_err(|e| format!("cannot write {}: {e}", out.display()))?;
+        if !g.quiet {
+            eprintln!("P1 CIF written to {}", out.display());
+        }
+    }
     if a.json {
         outln!(
             "{}",

@@ -14,6 +14,7 @@ pub fn structure(s: &Structure, file: &str) -> String {
         (None, Some(n)) => format!("No. {n}"),
         (None, None) => format!("unidentified ({} operations)", s.symmetry.ops.len()),
     };
+    let z = crate::structure::format_z(z);
     let _ = writeln!(o, "{file}: {formula}, Z = {z}  [data block '{}']", s.name);
     let _ = writeln!(
         o,
@@ -140,6 +141,7 @@ fn channel_table(o: &mut String, p: &Percolation, unit: &str) {
 pub fn paths(a: &Analysis, file: &str) -> String {
     let mut o = String::new();
     let (z, formula) = a.structure.formula_and_z();
+    let z = crate::structure::format_z(z);
     let _ = writeln!(o, "{}", crate::analysis::headline(a));
     let _ = writeln!(
         o,
@@ -314,8 +316,16 @@ fn rate_section(o: &mut String, a: &Analysis, particle_um: Option<f64>) {
     if let Some(t) = a.transport.first() {
         let _ = writeln!(
             o,
-            "\n  transport in the {}D network ({}): barrier {:.3} eV, mean hop {:.2} A, D(298 K) = {:.2e} m^2/s",
-            t.dimension, t.basis, t.barrier_ev, t.hop_length_a, t.diffusion_m2_s
+            "\n  transport in the {}D network ({}): barrier {:.3} eV, mean hop {:.2} A, D({} K) = {:.2e} m^2/s{}",
+            t.dimension,
+            t.basis,
+            t.barrier_ev,
+            t.hop_length_a,
+            t.temperature_k,
+            t.diffusion_m2_s,
+            t.conductivity_s_cm
+                .map(|c| format!(", sigma = {c:.2e} S/cm (Nernst-Einstein, Haven ratio 1)"))
+                .unwrap_or_default()
         );
         let _ = writeln!(
             o,
