@@ -42,7 +42,7 @@ fn inspect_reports_olivine_as_published() {
         &root("structures/reference/LiFePO4_olivine.cif"),
     ]));
     assert_eq!(v["formula"], "LiFePO4");
-    assert_eq!(v["z"], 4);
+    assert_eq!(v["z"], 4.0);
     assert_eq!(v["space_group"]["number"], 62);
     assert_eq!(v["positions_in_cell"], 28);
     let vol = v["cell"]["volume"].as_f64().unwrap();
