@@ -854,7 +854,7 @@ pub fn table(c: &Calibration) -> String {
         .unwrap_or(4)
         .max(9);
     s.push_str(&format!(
-        "{:<w$} {:>3} {:>4} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9}\n",
+        "{:<w$} {:>3} {:>4} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9}  {}\n",
         "reference",
         "ion",
         "dim",
@@ -863,7 +863,8 @@ pub fn table(c: &Calibration) -> String {
         "fit (eV)",
         "res (eV)",
         "LOO (eV)",
-        "LOO res"
+        "LOO res",
+        "LOO knobs (d0_ev eV, screening)"
     ));
     for r in &c.rows {
         let dim = if r.dimension_given {

@@ -15,8 +15,9 @@
 //!   tetragonal cell matches only [001], while in a cubic cell [001] would match any <100>.
 //! - **Barrier.** The barrier of the published dimension lies inside the published range
 //!   widened by [`TOLERANCE_EV`] on each side, except rows the CSV flags as model outliers
-//!   (column `model_outlier`, with the reason): those must still lie outside, so that the flag
-//!   is removed as soon as the model reproduces them.
+//!   (column `model_outlier`: "over-predicted: reason" or "under-predicted: reason"): those
+//!   must still lie beyond that end of the published range, so that the flag goes as soon as
+//!   the model reproduces them.
 //! - **Site graph.** The site-and-hop graph percolates at exactly the grid's E_1D, E_2D, E_3D.
 //! - **Valence check.** Every structure is plausible or strained (GII <= 0.2 v.u., Salinas-
 //!   Sanchez et al. 1992), or documented below.
@@ -423,17 +424,37 @@ fn published_barriers_are_reproduced_within_the_tolerance() {
             continue;
         };
         let off = distance_to_range(b, range);
-        match (&r.outlier, off <= TOLERANCE_EV) {
-            (None, false) => failures.push(format!(
+        match &r.outlier {
+            None if off > TOLERANCE_EV => failures.push(format!(
                 "{} ({}): {}D barrier {b:.3} eV is {off:.3} eV outside {:.2}-{:.2} eV ({})",
                 r.file, r.ion, r.dimension, range.0, range.1, r.barrier_sources
             )),
-            (Some(why), true) => failures.push(format!(
-                "{} ({}): flagged as a model outlier ({why}) but now within the tolerance \
-                 ({b:.3} eV against {:.2}-{:.2} eV): clear the model_outlier column",
-                r.file, r.ion, range.0, range.1
-            )),
-            _ => {}
+            None => {}
+            // A flagged row must still show the bias its flag states, beyond the unwidened
+            // range: when the model reproduces it, the flag has to go.
+            Some(why) => {
+                let still = if why.starts_with("over-predicted") {
+                    b > range.1
+                } else if why.starts_with("under-predicted") {
+                    b < range.0
+                } else {
+                    panic!(
+                        "{}: model_outlier must start with 'over-predicted' or 'under-predicted'",
+                        r.file
+                    )
+                };
+                println!(
+                    "{} ({}): model outlier, {b:.3} eV against {:.2}-{:.2} eV: {why}",
+                    r.file, r.ion, range.0, range.1
+                );
+                if !still {
+                    failures.push(format!(
+                        "{} ({}): flagged '{why}' but the barrier {b:.3} eV now lies within \
+                         {:.2}-{:.2} eV or on the other side: update the model_outlier column",
+                        r.file, r.ion, range.0, range.1
+                    ));
+                }
+            }
         }
     }
     assert!(checked >= 10, "only {checked} rows carry a barrier");
@@ -507,12 +528,23 @@ fn worst_ions(v: &ValenceReport) -> String {
 
 /// Structures known to fail the GII test for a reason outside the structure, with the largest
 /// GII accepted (v.u.) so that a regression still shows.
-const KNOWN_STRAINED: &[(&str, f64, &str)] = &[(
-    "LiCoO2_layered.cif",
-    0.25,
-    "the only Co3+-O2- row of the IUCr table (Brese & O'Keeffe 1991, R0 = 1.70 A) over-bonds \
-     low-spin Co3+ in this well-refined structure (BVS ~3.3 v.u.), and the O2- sums follow",
-)];
+const KNOWN_STRAINED: &[(&str, f64, &str)] = &[
+    (
+        "LiCoO2_layered.cif",
+        0.25,
+        "the only Co3+-O2- row of the IUCr table (Brese & O'Keeffe 1991, R0 = 1.70 A) over-bonds \
+         low-spin Co3+ in this well-refined structure (BVS ~3.3 v.u.), and the O2- sums follow",
+    ),
+    (
+        "Li6PS5Cl_argyrodite.cif",
+        0.22,
+        "the 'free' S2- on 4c is bonded only by the half-occupied Li 48h positions and comes out \
+         under-bonded (BVS ~1.5 v.u.); the file keeps the ordered anion model (the S/Cl exchange \
+         between 4a and 4c reported for this compound is left out, see its header), which puts \
+         the whole mismatch on that site. GII 0.14 v.u. with first-shell Li-S parameters; 0.20 \
+         with the softness-sensitive set the analysis uses for the mobile ion",
+    ),
+];
 
 #[test]
 fn every_reference_passes_the_valence_check_or_its_failure_is_explained() {
