@@ -1064,6 +1064,85 @@ mod tests {
         assert!((f[3] - 0.3).abs() < 1e-12 && f[4] == 0.4);
     }
 
+    fn reference_structure(file: &str) -> Structure {
+        let p = Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("structures/reference")
+            .join(file);
+        crate::read::read_structure(&p, None).unwrap()
+    }
+
+    fn coarse(ion: &str, spacing: f64) -> AnalysisOptions {
+        let mut o = AnalysisOptions::new(Element::from_symbol(ion).unwrap());
+        o.spacing_a = Some(spacing);
+        o
+    }
+
+    #[test]
+    fn the_energy_grid_is_the_morse_part_times_d0_plus_the_repulsion() {
+        // E = d0_ev M + C must reproduce the landscape computed directly at each d0_ev, to f32
+        // rounding, below the cap and at it.
+        let s = reference_structure("LiFePO4_olivine.cif");
+        let mut opts = coarse("Li", 0.3);
+        opts.knobs.screening_factor = 0.9;
+        let (s, _) = analysis::with_oxidation_states(&s, &opts.table).unwrap();
+        let parts = EnergyParts::compute(&s, &opts).unwrap();
+        for d0 in [0.15, 0.45] {
+            opts.knobs.d0_ev = d0;
+            let (_, _, _, _, direct) = analysis::model_and_landscape(&s, &opts).unwrap();
+            let split = parts.energy(d0);
+            assert_eq!(split.dims, direct.energy.dims);
+            let worst = split
+                .values
+                .iter()
+                .zip(&direct.energy.values)
+                .map(|(a, b)| (a - b).abs() / b.abs().max(1.0))
+                .fold(0.0f32, f32::max);
+            assert!(worst < 1e-5, "d0 {d0}: worst relative difference {worst}");
+        }
+    }
+
+    #[test]
+    fn knobs_that_generated_the_barriers_are_found_again() {
+        // Targets computed by the model itself at known knobs (off the tabulated values) must be
+        // fitted back to those knobs, with residuals near zero.
+        let (d0_true, sf_true) = (0.42, 0.85);
+        let mut truth = coarse("Li", 0.25);
+        truth.knobs.d0_ev = d0_true;
+        truth.knobs.screening_factor = sf_true;
+        let mut refs = Vec::new();
+        for (f, dim) in [
+            ("LiFePO4_olivine.cif", 1),
+            ("TiO2_rutile.cif", 1),
+            ("LiCoO2_layered.cif", 2),
+        ] {
+            let r = Reference {
+                name: f.into(),
+                structure: reference_structure(f),
+                ion: truth.ion,
+                barrier_ev: 0.0,
+                dimension: Some(dim),
+                source: "model".into(),
+            };
+            let b = evaluate(&r, &truth).unwrap().barrier(Some(dim)).unwrap();
+            refs.push(Reference { barrier_ev: b, ..r });
+        }
+        let grid = CalibrationGrid {
+            d0_ev: vec![0.2, 0.3, 0.4, 0.5, 0.6],
+            screening_factor: vec![0.6, 0.8, 1.0],
+        };
+        let c = calibrate(&refs, &coarse("Li", 0.25), grid).unwrap();
+        assert!((c.d0_ev - d0_true).abs() < 0.03, "d0_ev {}", c.d0_ev);
+        assert!(c.mae_ev < 0.01, "MAE {} eV", c.mae_ev);
+        assert!(!c.at_grid_edge);
+        // the base knobs (0.3 eV, 0.75) give clearly larger residuals than the fit
+        assert!(
+            c.base_mae_ev > 3.0 * c.mae_ev,
+            "{} vs {}",
+            c.base_mae_ev,
+            c.mae_ev
+        );
+    }
+
     #[test]
     fn written_parameters_read_back_as_knobs() {
         let c = Calibration {

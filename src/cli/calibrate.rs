@@ -9,7 +9,7 @@ use std::path::PathBuf;
 
 #[derive(Args, Debug)]
 #[command(
-    long_about = "Fits the two energy-scale knobs of the site-energy model, the Morse well depth per bond \
+    after_long_help = "Fits the two energy-scale knobs of the site-energy model, the Morse well depth per bond \
                   (d0_ev) and the screening factor of the cation repulsion (screening_factor), to a list \
                   of reference barriers, and writes them as a parameter file for --params.\n\n\
                   The list is a CSV file with a header line. Columns:\n  \
