@@ -6,6 +6,7 @@
 
 pub mod analysis;
 pub mod bv;
+pub mod calibrate;
 pub mod capacity;
 pub mod cif;
 pub mod demo;

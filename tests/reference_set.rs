@@ -1,0 +1,605 @@
+//! The bundled reference set (structures/reference/references.csv): published structures whose
+//! channel dimension, direction and barrier are known. Each row names its sources in the CSV
+//! (barrier sources, structure source, and whether the values are quoted from memory).
+//!
+//! Checks, with the model's default knobs (`ModelKnobs::default()`):
+//!
+//! - **Dimension.** The first network to open (the lowest threshold) has the published
+//!   dimension d: `E_d` exists and every lower dimension either opens at the same energy
+//!   (within [`SAME_ENERGY_EV`]) or not at all. The predicted dimension is the highest d with `E_d = E_1`.
+//! - **Direction.** 1D: the directions `[uvw]` of every 1D channel family opening at `E_1`; 2D:
+//!   the plane normals `(hkl)` of every 2D family opening at `E_2`. Each must be symmetry
+//!   equivalent to the published one under the point group of the structure (the rotation
+//!   parts of its space-group operations, in the cell of the file): a direction u goes to W u,
+//!   a plane normal h to W^T h, both compared as primitive vectors up to sign. So [001] in a
+//!   tetragonal cell matches only [001], while in a cubic cell [001] would match any <100>.
+//! - **Barrier.** The barrier of the published dimension lies inside the published range
+//!   widened by [`TOLERANCE_EV`] on each side, except rows the CSV flags as model outliers
+//!   (column `model_outlier`: "over-predicted: reason" or "under-predicted: reason"): those
+//!   must still lie beyond that end of the published range, so that the flag goes as soon as
+//!   the model reproduces them.
+//! - **Site graph.** The site-and-hop graph percolates at exactly the grid's E_1D, E_2D, E_3D.
+//! - **Valence check.** Every structure is plausible or strained (GII <= 0.2 v.u., Salinas-
+//!   Sanchez et al. 1992), or documented below.
+//!
+//! Cells above 500 A^3 use a 0.15 A grid to keep the whole test within about a minute on two
+//! shared cores; the others use the analysis default (0.1 A).
+
+use hopmap::analysis::{self, Analysis, AnalysisOptions};
+use hopmap::bv::ValenceReport;
+use hopmap::bv::valence::Verdict;
+use hopmap::calibrate::split_csv_record;
+use hopmap::element::Element;
+use hopmap::percolation::{Percolation, format_indices};
+use hopmap::structure::Structure;
+use rayon::prelude::*;
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+use std::sync::OnceLock;
+
+/// Widening of each published range on both sides (eV). The ranges already span the methods
+/// (DFT-NEB, atomistic potentials, impedance, NMR), which for one material differ by up to
+/// 0.3-0.6 eV (LiFePO4, Li4Ti5O12 rows); a static bond-valence screen ignores lattice
+/// relaxation and ion-ion correlation (science notes, section 7), so it is asked to land within
+/// 0.15 eV of the range, not inside it. A choice, not a sourced value.
+const TOLERANCE_EV: f64 = 0.15;
+
+/// Cells larger than this (A^3) use [`BIG_CELL_SPACING_A`].
+const BIG_CELL_A3: f64 = 500.0;
+const BIG_CELL_SPACING_A: f64 = 0.15;
+
+fn folder() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("structures/reference")
+}
+
+#[derive(Debug, Clone)]
+struct Row {
+    line: usize,
+    file: String,
+    ion: Element,
+    dimension: u8,
+    /// Indices of the direction ([uvw]) or plane normal ((hkl)); None for 3D.
+    direction: Option<[i32; 3]>,
+    range_ev: Option<(f64, f64)>,
+    barrier_sources: String,
+    structure_source: String,
+    from_memory: bool,
+    outlier: Option<String>,
+}
+
+fn parse_indices(text: &str) -> Option<[i32; 3]> {
+    let t = text.trim();
+    let inner = t
+        .strip_prefix('[')
+        .and_then(|x| x.strip_suffix(']'))
+        .or_else(|| t.strip_prefix('(').and_then(|x| x.strip_suffix(')')))?;
+    let mut out = Vec::new();
+    let mut chars = inner.chars().peekable();
+    while let Some(c) = chars.next() {
+        let (neg, d) = if c == '-' {
+            (true, chars.next()?)
+        } else {
+            (false, c)
+        };
+        let v = d.to_digit(10)? as i32;
+        out.push(if neg { -v } else { v });
+    }
+    out.try_into().ok()
+}
+
+fn read_rows() -> Vec<Row> {
+    let path = folder().join("references.csv");
+    let text = std::fs::read_to_string(&path).expect("references.csv is part of the crate");
+    let mut lines = text
+        .lines()
+        .enumerate()
+        .filter(|(_, l)| !l.trim().is_empty() && !l.starts_with('#'));
+    let (_, header) = lines.next().expect("header");
+    let header = split_csv_record(header).expect("header");
+    let col = |name: &str| {
+        header
+            .iter()
+            .position(|h| h == name)
+            .unwrap_or_else(|| panic!("references.csv has no column '{name}'"))
+    };
+    let (c_file, c_ion, c_dim, c_dir) =
+        (col("file"), col("ion"), col("dimension"), col("direction"));
+    let (c_lo, c_hi, c_bs, c_ss, c_mem, c_out) = (
+        col("barrier_low_eV"),
+        col("barrier_high_eV"),
+        col("barrier_sources"),
+        col("structure_source"),
+        col("from_memory"),
+        col("model_outlier"),
+    );
+    lines
+        .map(|(i, l)| {
+            let f = split_csv_record(l).unwrap_or_else(|| panic!("line {}: bad quoting", i + 1));
+            let get = |c: usize| f.get(c).cloned().unwrap_or_default();
+            let num = |c: usize| {
+                let t = get(c);
+                (!t.is_empty()).then(|| {
+                    t.parse::<f64>()
+                        .unwrap_or_else(|_| panic!("line {}: '{t}' is not a number", i + 1))
+                })
+            };
+            let dimension: u8 = get(c_dim).parse().expect("dimension 1-3");
+            let direction = match get(c_dir).as_str() {
+                "" => None,
+                t => Some(parse_indices(t).unwrap_or_else(|| {
+                    panic!("line {}: direction '{t}' is not [uvw] or (hkl)", i + 1)
+                })),
+            };
+            assert!(
+                dimension == 3 || direction.is_some(),
+                "line {}: 1D and 2D rows need a direction",
+                i + 1
+            );
+            let range_ev = match (num(c_lo), num(c_hi)) {
+                (Some(a), Some(b)) => {
+                    assert!(a <= b, "line {}: barrier range reversed", i + 1);
+                    Some((a, b))
+                }
+                (None, None) => None,
+                _ => panic!("line {}: give both ends of the barrier range", i + 1),
+            };
+            let outlier = Some(get(c_out)).filter(|s| !s.is_empty());
+            Row {
+                line: i + 1,
+                file: get(c_file),
+                ion: Element::from_symbol(&get(c_ion)).expect("ion symbol"),
+                dimension,
+                direction,
+                range_ev,
+                barrier_sources: get(c_bs),
+                structure_source: get(c_ss),
+                from_memory: get(c_mem) == "yes",
+                outlier,
+            }
+        })
+        .collect()
+}
+
+/// Primitive, first nonzero component positive.
+fn normalised(v: [i32; 3]) -> [i32; 3] {
+    fn gcd(a: i32, b: i32) -> i32 {
+        if b == 0 { a.abs() } else { gcd(b, a % b) }
+    }
+    let g = gcd(gcd(v[0], v[1]), v[2]).max(1);
+    let v = v.map(|x| x / g);
+    match v.iter().find(|&&x| x != 0) {
+        Some(&x) if x < 0 => v.map(|y| -y),
+        _ => v,
+    }
+}
+
+/// The symmetry-equivalent directions (`plane == false`: u -> W u) or plane normals
+/// (`plane == true`: h -> W^T h) of `v` under the rotations of the structure.
+fn equivalents(s: &Structure, v: [i32; 3], plane: bool) -> Vec<[i32; 3]> {
+    let mut out: Vec<[i32; 3]> = Vec::new();
+    for op in &s.symmetry.ops {
+        let w = op.rot;
+        let mut r = [0i32; 3];
+        for (i, ri) in r.iter_mut().enumerate() {
+            *ri = (0..3)
+                .map(|j| if plane { w[(j, i)] } else { w[(i, j)] } * v[j])
+                .sum();
+        }
+        let r = normalised(r);
+        if !out.contains(&r) {
+            out.push(r);
+        }
+    }
+    out.sort();
+    out
+}
+
+/// Thresholds closer than this (eV) open together: symmetry-equivalent grid points differ in the
+/// last bits of their f32 energies (summation order), e.g. 1D and 2D in Na0.74CoO2 open 1e-7 eV
+/// apart at the same saddle.
+const SAME_ENERGY_EV: f32 = 1e-4;
+
+fn same_energy(a: f32, b: f32) -> bool {
+    (a - b).abs() <= SAME_ENERGY_EV
+}
+
+/// Dimension of the first network to open: the highest d with E_d = E_1 (0 when none).
+fn predicted_dimension(p: &Percolation) -> u8 {
+    let Some(e1) = p.thresholds.iter().flatten().next().map(|t| t.energy) else {
+        return 0;
+    };
+    (1..=3u8)
+        .filter(|&d| p.energy(d).is_some_and(|e| same_energy(e, e1)))
+        .max()
+        .unwrap_or(0)
+}
+
+/// Directions (1D) or plane normals (2D) of the families of dimension d opening at E_d.
+fn predicted_directions(p: &Percolation, d: u8) -> Vec<[i32; 3]> {
+    let Some(t) = p.threshold(d) else {
+        return vec![];
+    };
+    let mut out: Vec<[i32; 3]> = p
+        .families
+        .iter()
+        .filter(|f| f.dimension == d && same_energy(f.onset, t.energy))
+        .map(|f| normalised(f.span.key()))
+        .collect();
+    let own = normalised(t.channel.span.key());
+    if !out.contains(&own) {
+        out.push(own);
+    }
+    out.sort();
+    out
+}
+
+struct Outcome {
+    row: Row,
+    analysis: Analysis,
+    seconds: f64,
+}
+
+fn run_row(row: &Row) -> Outcome {
+    let path = folder().join(&row.file);
+    let s = hopmap::read::read_structure(&path, None)
+        .unwrap_or_else(|e| panic!("references.csv line {}: {e}", row.line));
+    let mut opts = AnalysisOptions::new(row.ion);
+    if s.volume() > BIG_CELL_A3 {
+        opts.spacing_a = Some(BIG_CELL_SPACING_A);
+    }
+    let t = std::time::Instant::now();
+    let analysis = analysis::analyse(&s, &opts)
+        .unwrap_or_else(|e| panic!("references.csv line {}: {}: {e}", row.line, row.file));
+    Outcome {
+        row: row.clone(),
+        analysis,
+        seconds: t.elapsed().as_secs_f64(),
+    }
+}
+
+fn barrier_of(o: &Outcome) -> Option<f64> {
+    o.analysis
+        .percolation
+        .threshold(o.row.dimension)
+        .map(|t| t.barrier as f64)
+}
+
+/// Distance from the barrier to the published range (0 inside it; eV).
+fn distance_to_range(b: f64, (lo, hi): (f64, f64)) -> f64 {
+    if b < lo {
+        lo - b
+    } else if b > hi {
+        b - hi
+    } else {
+        0.0
+    }
+}
+
+fn fmt_dir(d: u8, v: &[[i32; 3]]) -> String {
+    let (l, r) = if d == 2 { ("(", ")") } else { ("[", "]") };
+    if d == 3 || v.is_empty() {
+        return "-".into();
+    }
+    v.iter()
+        .map(|x| format!("{l}{}{r}", format_indices(*x)))
+        .collect::<Vec<_>>()
+        .join(" ")
+}
+
+fn report(out: &[Outcome]) -> String {
+    let mut s = String::new();
+    s.push_str(&format!(
+        "\nreference set ({} rows; ModelKnobs::default(); barrier tolerance +/- {TOLERANCE_EV} eV beyond the published range)\n",
+        out.len()
+    ));
+    s.push_str(&format!(
+        "{:<26} {:>3} {:>9} {:>9} {:>13} {:>11} {:>9} {:>9} {:>6}  {}\n",
+        "structure",
+        "ion",
+        "dim exp",
+        "dim pred",
+        "direction exp",
+        "dir pred",
+        "range eV",
+        "pred eV",
+        "off eV",
+        "barrier source"
+    ));
+    let mut abs_mid = Vec::new();
+    for o in out {
+        let r = &o.row;
+        let p = &o.analysis.percolation;
+        let pd = predicted_dimension(p);
+        let dirs = predicted_directions(p, r.dimension);
+        let b = barrier_of(o);
+        let (range, off) = match (r.range_ev, b) {
+            (Some((lo, hi)), Some(b)) => {
+                abs_mid.push((b - 0.5 * (lo + hi)).abs());
+                (
+                    format!("{lo:.2}-{hi:.2}"),
+                    format!("{:.2}", distance_to_range(b, (lo, hi))),
+                )
+            }
+            (Some((lo, hi)), None) => (format!("{lo:.2}-{hi:.2}"), "none".into()),
+            _ => ("-".into(), "-".into()),
+        };
+        let src = if r.barrier_sources.is_empty() {
+            format!("(structure: {})", r.structure_source)
+        } else {
+            r.barrier_sources.clone()
+        };
+        let short: String = src.chars().take(70).collect();
+        s.push_str(&format!(
+            "{:<26} {:>3} {:>9} {:>9} {:>13} {:>11} {:>9} {:>9} {:>6}  {}{}{}\n",
+            r.file.trim_end_matches(".cif"),
+            r.ion.symbol(),
+            format!("{}D", r.dimension),
+            format!("{pd}D"),
+            r.direction
+                .map(|v| fmt_dir(r.dimension, &[v]))
+                .unwrap_or("-".into()),
+            fmt_dir(r.dimension, &dirs),
+            range,
+            b.map(|x| format!("{x:.2}")).unwrap_or("none".into()),
+            off,
+            short,
+            if src.chars().count() > 70 { "..." } else { "" },
+            if r.from_memory { " [from memory]" } else { "" },
+        ));
+    }
+    let mae = abs_mid.iter().sum::<f64>() / abs_mid.len().max(1) as f64;
+    s.push_str(&format!(
+        "mean absolute error to the range mid-points: {mae:.3} eV over {} barriers\n",
+        abs_mid.len()
+    ));
+    let total: f64 = out.iter().map(|o| o.seconds).sum();
+    s.push_str(&format!("analysis time: {total:.1} s summed over rows\n"));
+    s
+}
+
+fn outcomes() -> &'static [Outcome] {
+    static CELL: OnceLock<Vec<Outcome>> = OnceLock::new();
+    CELL.get_or_init(|| {
+        let rows = read_rows();
+        let out: Vec<Outcome> = rows.par_iter().map(run_row).collect();
+        println!("{}", report(&out));
+        out
+    })
+}
+
+#[test]
+fn the_first_network_to_open_has_the_published_dimension_and_direction() {
+    let mut failures = Vec::new();
+    for o in outcomes() {
+        let r = &o.row;
+        let p = &o.analysis.percolation;
+        let pd = predicted_dimension(p);
+        if pd != r.dimension {
+            failures.push(format!(
+                "{} ({}): first network {pd}D (E_1 {:?}, E_2 {:?}, E_3 {:?} eV), published {}D [{}]",
+                r.file,
+                r.ion,
+                p.energy(1),
+                p.energy(2),
+                p.energy(3),
+                r.dimension,
+                r.structure_source
+            ));
+            continue;
+        }
+        let Some(expected) = r.direction else {
+            continue;
+        };
+        let plane = r.dimension == 2;
+        let allowed = equivalents(&o.analysis.structure, expected, plane);
+        let got = predicted_directions(p, r.dimension);
+        if got.is_empty() || got.iter().any(|g| !allowed.contains(g)) {
+            failures.push(format!(
+                "{} ({}): {}D {} predicted, published {} (symmetry equivalents {})",
+                r.file,
+                r.ion,
+                r.dimension,
+                fmt_dir(r.dimension, &got),
+                fmt_dir(r.dimension, &[expected]),
+                fmt_dir(r.dimension, &allowed)
+            ));
+        }
+    }
+    assert!(failures.is_empty(), "{}", failures.join("\n"));
+}
+
+#[test]
+fn published_barriers_are_reproduced_within_the_tolerance() {
+    let mut failures = Vec::new();
+    let mut checked = 0;
+    for o in outcomes() {
+        let r = &o.row;
+        let Some(range) = r.range_ev else { continue };
+        checked += 1;
+        let Some(b) = barrier_of(o) else {
+            failures.push(format!(
+                "{}: no {}D network below the cap",
+                r.file, r.dimension
+            ));
+            continue;
+        };
+        let off = distance_to_range(b, range);
+        match &r.outlier {
+            None if off > TOLERANCE_EV => failures.push(format!(
+                "{} ({}): {}D barrier {b:.3} eV is {off:.3} eV outside {:.2}-{:.2} eV ({})",
+                r.file, r.ion, r.dimension, range.0, range.1, r.barrier_sources
+            )),
+            None => {}
+            // A flagged row must still show the bias its flag states, beyond the unwidened
+            // range: when the model reproduces it, the flag has to go.
+            Some(why) => {
+                let still = if why.starts_with("over-predicted") {
+                    b > range.1
+                } else if why.starts_with("under-predicted") {
+                    b < range.0
+                } else {
+                    panic!(
+                        "{}: model_outlier must start with 'over-predicted' or 'under-predicted'",
+                        r.file
+                    )
+                };
+                println!(
+                    "{} ({}): model outlier, {b:.3} eV against {:.2}-{:.2} eV: {why}",
+                    r.file, r.ion, range.0, range.1
+                );
+                if !still {
+                    failures.push(format!(
+                        "{} ({}): flagged '{why}' but the barrier {b:.3} eV now lies within \
+                         {:.2}-{:.2} eV or on the other side: update the model_outlier column",
+                        r.file, r.ion, range.0, range.1
+                    ));
+                }
+            }
+        }
+    }
+    assert!(checked >= 10, "only {checked} rows carry a barrier");
+    assert!(failures.is_empty(), "{}", failures.join("\n"));
+}
+
+#[test]
+fn the_site_graph_percolates_at_the_grid_energies_on_every_reference() {
+    for o in outcomes() {
+        let a = &o.analysis;
+        let g = a
+            .graph_percolation
+            .as_ref()
+            .unwrap_or_else(|| panic!("{}: no site graph", o.row.file));
+        for d in 1..=3u8 {
+            assert_eq!(
+                g.energy(d),
+                a.percolation.energy(d),
+                "{} ({}): E_{d}D of the site graph vs the grid",
+                o.row.file,
+                o.row.ion
+            );
+        }
+    }
+}
+
+/// GII with the occupants of each mixed site pooled into one ion: occupancy-weighted mean
+/// formal valence and bond-valence sum per site, weighted by multiplicity x total occupancy.
+/// The split occupants of a mixed site (Mn3+/Mn4+ on one spinel site, O/F on one anion site)
+/// sit at the same place and have the same bonds, so only their mean can match its formal
+/// valence.
+fn site_pooled_gii(v: &ValenceReport) -> f64 {
+    let mut sites: BTreeMap<&str, (f64, f64, f64, usize)> = BTreeMap::new();
+    for i in &v.ions {
+        let e = sites
+            .entry(i.site_label.as_str())
+            .or_insert((0.0, 0.0, 0.0, 0));
+        e.0 += i.occupancy * i.formal;
+        e.1 += i.occupancy * i.bvs;
+        e.2 += i.occupancy;
+        e.3 = i.multiplicity;
+    }
+    let (mut num, mut den) = (0.0, 0.0);
+    for (formal, bvs, occ, mult) in sites.values() {
+        if *occ == 0.0 {
+            continue;
+        }
+        let dev = (bvs / occ).abs() - (formal / occ).abs();
+        let w = *mult as f64 * occ;
+        num += w * dev * dev;
+        den += w;
+    }
+    (num / den).sqrt()
+}
+
+/// The three ions furthest from their formal valence, for messages.
+fn worst_ions(v: &ValenceReport) -> String {
+    let mut ions: Vec<_> = v.ions.iter().collect();
+    ions.sort_by(|a, b| b.deviation.abs().total_cmp(&a.deviation.abs()));
+    ions.iter()
+        .take(3)
+        .map(|i| {
+            format!(
+                "{} {} BVS {:.2} v.u. ({:+.2})",
+                i.label, i.species, i.bvs, i.deviation
+            )
+        })
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// Structures known to fail the GII test for a reason outside the structure, with the largest
+/// GII accepted (v.u.) so that a regression still shows.
+const KNOWN_STRAINED: &[(&str, f64, &str)] = &[
+    (
+        "LiCoO2_layered.cif",
+        0.25,
+        "the only Co3+-O2- row of the IUCr table (Brese & O'Keeffe 1991, R0 = 1.70 A) over-bonds \
+         low-spin Co3+ in this well-refined structure (BVS ~3.3 v.u.), and the O2- sums follow",
+    ),
+    (
+        "Li6PS5Cl_argyrodite.cif",
+        0.22,
+        "the 'free' S2- on 4c is bonded only by the half-occupied Li 48h positions and comes out \
+         under-bonded (BVS ~1.5 v.u.); the file keeps the ordered anion model (the S/Cl exchange \
+         between 4a and 4c reported for this compound is left out, see its header), which puts \
+         the whole mismatch on that site. GII 0.14 v.u. with first-shell Li-S parameters; 0.20 \
+         with the softness-sensitive set the analysis uses for the mobile ion",
+    ),
+];
+
+#[test]
+fn every_reference_passes_the_valence_check_or_its_failure_is_explained() {
+    let mut failures = Vec::new();
+    for o in outcomes() {
+        let r = &o.row;
+        let Some(v) = &o.analysis.valence else {
+            failures.push(format!("{}: no valence check", r.file));
+            continue;
+        };
+        if v.verdict != Verdict::Suspect {
+            continue;
+        }
+        let pooled = site_pooled_gii(v);
+        let mixed = v.ions.iter().any(|i| i.label != i.site_label);
+        if let Some((_, max, why)) = KNOWN_STRAINED.iter().find(|k| k.0 == r.file) {
+            println!(
+                "{}: GII {:.3} v.u. (suspect) explained: {why}",
+                r.file, v.gii
+            );
+            if v.gii > *max {
+                failures.push(format!("{}: GII {:.3} v.u. above {max}", r.file, v.gii));
+            }
+        } else if mixed && pooled <= 0.2 {
+            println!(
+                "{}: GII {:.3} v.u. counts the occupants of mixed sites one by one; pooled per site {:.3} v.u.",
+                r.file, v.gii, pooled
+            );
+        } else {
+            failures.push(format!(
+                "{}: GII {:.3} v.u. (pooled per site {pooled:.3} v.u.): suspect; {}",
+                r.file,
+                v.gii,
+                worst_ions(v)
+            ));
+        }
+    }
+    assert!(failures.is_empty(), "{}", failures.join("\n"));
+}
+
+#[test]
+fn direction_equivalents_follow_the_point_group() {
+    // Independent of the model: the orbit sizes of <100> and {001} in the point groups of the
+    // reference files (International Tables, Vol. A: cubic m-3m has 3 <100> axes, tetragonal
+    // 4/m has one [001] axis, hexagonal 6/mmm one (001) plane family).
+    let read = |f: &str| hopmap::read::read_structure(&folder().join(f), None).unwrap();
+    let spinel = read("LiMn2O4_spinel.cif");
+    assert_eq!(equivalents(&spinel, [0, 0, 1], false).len(), 3);
+    let holl = read("MnO2_hollandite.cif");
+    assert_eq!(equivalents(&holl, [0, 0, 1], false), vec![[0, 0, 1]]);
+    assert_eq!(equivalents(&holl, [1, 0, 0], false).len(), 2);
+    let p2 = read("Na0.74CoO2_P2.cif");
+    assert_eq!(equivalents(&p2, [0, 0, 1], true), vec![[0, 0, 1]]);
+    // hexagonal: (100), (010), (1-10) are one family of planes
+    assert_eq!(equivalents(&p2, [1, 0, 0], true).len(), 3);
+    assert_eq!(parse_indices("[1-10]"), Some([1, -1, 0]));
+    assert_eq!(parse_indices("(001)"), Some([0, 0, 1]));
+}
