@@ -11,14 +11,18 @@ the directories given with --root:
 (b) the expanded structure, when hopmap reads one: the number of distinct positions in the cell,
     the occupancy-weighted composition of the cell and the cell volume, against pymatgen's
     CifParser (parse_structures(primitive=False); composition from structure.composition).
-    Tolerances: volume 1e-3 relative, composition 1e-2 absolute, positions exact.
+    Tolerances: volume 1e-3 relative, composition 1e-2 absolute, positions exact. When pymatgen
+    refuses a file for occupancies above 1 (which hopmap reads with a warning), it is parsed
+    again with a large occupancy tolerance and the positions and volume are compared.
 
 Verdicts: agree, DISAGREE, known (listed with a reason in tools/crosscheck_known.tsv, columns
-file, check, reason; check `*` covers every check of that file), info (nothing to compare: an
-oracle failed where hopmap succeeded, or the oracles disagree among themselves).
+file, check, reason: one row per file and check, no patterns), info (nothing to compare: an
+oracle failed where hopmap succeeded, the oracles disagree among themselves, or pymatgen had to
+scale overfull occupancies down, which leaves the composition not comparable).
 
 The table goes to --out (default target/crosscheck.tsv), a summary to stdout. The exit status
-is 1 when a disagreement is not listed as known, 0 otherwise (2 for a usage problem).
+is 1 when a disagreement is not listed as known, or a known row of a file checked in this run
+no longer disagrees (stale), 0 otherwise (2 for a usage problem).
 
 The hopmap binary comes from --hopmap, else $HOPMAP_BIN, else target/release/hopmap. The value
 `fake:gemmi` stands in for hopmap with gemmi's small-structure reader (gemmi.read_small_structure),
@@ -193,22 +197,43 @@ def block_text(path, block_name):
     return None
 
 
+# pymatgen refuses a position whose occupancies add up to more than 1 (its default
+# occupancy_tolerance). hopmap reads such files with a warning, so the positions are compared
+# after a second parse with this tolerance; pymatgen then scales the occupancies of those
+# positions down to 1, so the composition is not comparable and is reported as info.
+OVERFULL_RETRY_TOLERANCE = 100.0
+
+
 def pymatgen_structure(path, block, blocks, timeout):
-    """{'ok': bool, 'positions', 'composition', 'volume', 'message'} for the named block."""
+    """{'ok': bool, 'positions', 'composition', 'volume', 'rescaled', 'message'} for the named
+    block; 'rescaled' is true when only the occupancy-tolerant second parse succeeded."""
+    first = pymatgen_parse(path, block, blocks, timeout, None)
+    if first["ok"] is False and "exceeded tolerance" in first["message"]:
+        second = pymatgen_parse(path, block, blocks, timeout, OVERFULL_RETRY_TOLERANCE)
+        if second["ok"]:
+            second["rescaled"] = True
+            second["message"] = ("occupancies above 1 scaled down to 1 by pymatgen ("
+                                 + first["message"] + ")")
+            return second
+    return first
+
+
+def pymatgen_parse(path, block, blocks, timeout, occupancy_tolerance):
     try:
         from pymatgen.io.cif import CifParser
     except ImportError:
         return {"ok": None, "message": "pymatgen not installed"}
     sink = io.StringIO()
+    kwargs = {} if occupancy_tolerance is None else {"occupancy_tolerance": occupancy_tolerance}
     try:
         with time_limit(timeout), warnings.catch_warnings(), contextlib.redirect_stdout(sink), \
                 contextlib.redirect_stderr(sink):
             warnings.simplefilter("ignore")
             if len(blocks) > 1 and block in blocks:
                 text = block_text(path, block)
-                parser = CifParser(io.StringIO(text))
+                parser = CifParser(io.StringIO(text), **kwargs)
             else:
-                parser = CifParser(str(path))
+                parser = CifParser(str(path), **kwargs)
             structs = parser.parse_structures(primitive=False, on_error="raise")
         if not structs:
             return {"ok": False, "message": "no structure"}
@@ -219,6 +244,7 @@ def pymatgen_structure(path, block, blocks, timeout):
             comp[sym] = comp.get(sym, 0.0) + float(n)
         return {
             "ok": True,
+            "rescaled": False,
             "positions": len(s),
             "composition": comp,
             "volume": float(s.volume),
@@ -316,6 +342,11 @@ def compare_structure(j, pm, row):
             "agree" if npos == pm["positions"] else "DISAGREE")
     except (KeyError, TypeError, ValueError) as e:
         row("positions", f"missing in JSON: {e}", str(pm["positions"]), "DISAGREE")
+    if pm.get("rescaled"):
+        row("composition", fmt_comp_json(j), fmt_comp(pm["composition"]) + "; " + pm["message"],
+            "info")
+        compare_volume(j, pm, row)
+        return
     try:
         comp = {}
         for k, v in j["composition"].items():
@@ -327,6 +358,17 @@ def compare_structure(j, pm, row):
             "agree" if worst <= COMPOSITION_ABS_TOL else "DISAGREE")
     except (KeyError, TypeError, ValueError, AttributeError) as e:
         row("composition", f"missing in JSON: {e}", fmt_comp(pm["composition"]), "DISAGREE")
+    compare_volume(j, pm, row)
+
+
+def fmt_comp_json(j):
+    try:
+        return fmt_comp({str(k): float(v) for k, v in j["composition"].items()})
+    except (KeyError, TypeError, ValueError, AttributeError) as e:
+        return f"missing in JSON: {e}"
+
+
+def compare_volume(j, pm, row):
     try:
         v = float(j["cell"]["volume"])
         rel = abs(v - pm["volume"]) / pm["volume"]
@@ -353,7 +395,12 @@ def find_cifs(roots):
     return out
 
 
+CHECKS = ("run", "run-syntax", "syntax", "structure", "positions", "composition", "volume")
+
+
 def read_known(path):
+    """{(file, check): reason}. One row per file and check, each with its reason: no patterns,
+    no `*` for every check of a file, so that each accepted difference was looked at."""
     known = {}
     if not path.exists():
         return known
@@ -363,9 +410,16 @@ def read_known(path):
         parts = line.split("\t")
         if n == 1 and parts[0].strip() == "file":
             continue  # header
-        if len(parts) < 3 or not parts[2].strip():
+        if len(parts) != 3 or not parts[2].strip():
             sys.exit(f"{path}:{n}: expected three tab-separated columns: file, check, reason")
-        known[(parts[0].strip(), parts[1].strip())] = parts[2].strip()
+        key = (parts[0].strip(), parts[1].strip())
+        if key[1] not in CHECKS:
+            sys.exit(f"{path}:{n}: check {key[1]!r} is not one of {', '.join(CHECKS)}")
+        if any(c in key[0] for c in "*?["):
+            sys.exit(f"{path}:{n}: {key[0]!r}: name one file per row, no patterns")
+        if key in known:
+            sys.exit(f"{path}:{n}: {key[0]} [{key[1]}] is listed twice")
+        known[key] = parts[2].strip()
     return known
 
 
@@ -489,14 +543,11 @@ def main(argv=None):
 
     used = set()
     for r in rows:
-        if r["verdict"] != "DISAGREE":
-            continue
-        for key in ((r["file"], r["check"]), (r["file"], "*")):
-            if key in known:
-                r["verdict"] = "known"
-                r["oracle"] += f" [known: {known[key]}]"
-                used.add(key)
-                break
+        key = (r["file"], r["check"])
+        if r["verdict"] == "DISAGREE" and key in known:
+            r["verdict"] = "known"
+            r["oracle"] += f" [known: {known[key]}]"
+            used.add(key)
 
     out = Path(args.out)
     out.parent.mkdir(parents=True, exist_ok=True)
@@ -523,14 +574,20 @@ def main(argv=None):
         print(f"  DISAGREE {r['file']} [{r['check']}]: hopmap {r['hopmap']} | oracle {r['oracle']}")
     if len(bad) > 40:
         print(f"  ... and {len(bad) - 40} more in {out}")
-    stale = sorted(set(known) - used)
-    if stale:
-        print(f"  {len(stale)} entries of {args.known} no longer needed: "
-              + ", ".join(f"{f} [{c}]" for f, c in stale[:10]))
+    # A known row for a file that was checked in this run but no longer disagrees is stale: the
+    # difference went away (a fix, or a new oracle version) and the row must go, so that the
+    # table lists only what is true today. Rows for files not in this run (../shared missing,
+    # or a run on a few files) are left alone.
+    checked = {d for _, d in files}
+    stale = sorted(k for k in set(known) - used if k[0] in checked)
+    for f, c in stale:
+        print(f"  STALE {args.known}: {f} [{c}] no longer disagrees; remove the row")
     slowest.sort(reverse=True)
     print("  slowest files: " + ", ".join(f"{d} {dt:.1f} s" for dt, d in slowest[:3]))
     print(f"  table: {out}")
-    return 1 if bad else 0
+    print(f"  {len(used)} known differences (each with its reason in {args.known}), "
+          f"{len(bad)} unexplained disagreements, {len(stale)} stale known rows")
+    return 1 if bad or stale else 0
 
 
 if __name__ == "__main__":

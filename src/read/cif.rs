@@ -16,7 +16,8 @@
 //! - **Sites**: label, type symbol with charge (`Nb5+`, `O2-`, `Li1+`, `Fe2.5+`), fractional
 //!   x, y, z, occupancy (1 when absent or `?`), Wyckoff letter. Oxidation states from the
 //!   `_atom_type_oxidation_number` loop win over the charge written in the type symbol. The
-//!   element comes from the type symbol, else from the label; `D` (deuterium) is hydrogen.
+//!   element comes from the type symbol, else from the label; `D` (deuterium) is hydrogen, and
+//!   a label beginning with `Wat` is a water oxygen (see [`read_label`]).
 //! - **Left out, with a warning**: dummy sites (type or label `Q`, `Du`, `Dum`, `X`, or
 //!   `_atom_site_calc_flag` `dum`), sites with `?` or `.` coordinates, sites of zero occupancy.
 //!   Sites with calc flag `c`/`calc` are kept: the core dictionary defines them as atoms whose
@@ -110,6 +111,16 @@ pub mod tags {
     ];
     pub const SITE_CALC_FLAG: &[&str] = &["_atom_site_calc_flag", "_atom_site.calc_flag"];
 
+    /// Superspace descriptions of modulated structures (the modulated-structures dictionary).
+    pub const SUPERSPACE: &[&str] = &[
+        "_space_group_ssg_name",
+        "_space_group.ssg_name",
+        "_space_group_symop_ssg_operation_algebraic",
+        "_space_group_symop.ssg_operation_algebraic",
+        "_cell_modulation_dimension",
+        "_cell.modulation_dimension",
+    ];
+
     pub const TYPE_SYMBOL: &[&str] = &["_atom_type_symbol", "_atom_type.symbol"];
     pub const TYPE_OXIDATION: &[&str] =
         &["_atom_type_oxidation_number", "_atom_type.oxidation_number"];
@@ -192,6 +203,27 @@ pub fn read_cif(path: &Path, block: Option<&str>) -> Result<Structure, InputErro
         })?,
     };
     let mut structure = structure_from_block(chosen, &file)?;
+    // CIF block codes must be unique in a file; when they are not, say which block was read.
+    let namesakes: Vec<usize> = doc
+        .blocks
+        .iter()
+        .filter(|b| !b.global && cif::document::tag_eq(&b.name, &chosen.name))
+        .map(|b| b.line)
+        .collect();
+    if namesakes.len() > 1 {
+        let lines: Vec<String> = namesakes.iter().map(|l| l.to_string()).collect();
+        structure.warnings.insert(
+            0,
+            format!(
+                "data block name '{}' is used by {} blocks of this file (lines {}); the one at \
+                 line {} is read",
+                chosen.name,
+                namesakes.len(),
+                lines.join(", "),
+                chosen.line
+            ),
+        );
+    }
     // Grammar warnings that fall inside the chosen block (before the next block starts).
     let end = doc
         .blocks
@@ -423,6 +455,19 @@ fn read_symmetry(
         }
     }
     let Some((sg, source)) = found else {
+        if let Some(what) = superspace(block) {
+            return Err(InputError::new(
+                file,
+                format!(
+                    "no three-dimensional symmetry: the block describes a modulated structure in \
+                     superspace ({what}); hopmap reads only structures with a space group or an \
+                     operator list (_space_group_symop_operation_xyz). A commensurate supercell \
+                     or approximant block, when the file has one, can be chosen by name"
+                ),
+            )
+            .at_line(block.line)
+            .context(ctx.to_string()));
+        }
         let why = if tried.is_empty() {
             "and no Hall symbol, Hermann-Mauguin symbol or space-group number".to_string()
         } else {
@@ -453,6 +498,30 @@ fn read_symmetry(
     info.ops = sg.ops;
     info.source = source;
     Ok(info)
+}
+
+/// What marks `block` as a superspace description of a modulated structure (the superspace
+/// group name, superspace operators, or a modulation dimension above 0), for the error message.
+fn superspace(block: &Block) -> Option<String> {
+    for tag in tags::SUPERSPACE {
+        let Some(values) = column(block, &[tag]) else {
+            continue;
+        };
+        if values.iter().all(|v| v.is_null()) {
+            continue;
+        }
+        if tag.contains("modulation_dimension") {
+            if values[0].as_number().is_some_and(|d| d > 0.0) {
+                return Some(format!("{tag} {}", values[0].as_number().unwrap_or(0.0)));
+            }
+            continue;
+        }
+        return Some(match values[0].as_str() {
+            Some(v) if !tag.contains("operation") => format!("{tag} '{}'", v.trim()),
+            _ => tag.to_string(),
+        });
+    }
+    None
 }
 
 /// The operator list, identity first, repeats dropped; `None` when the block has none.
@@ -578,6 +647,25 @@ pub fn read_symbol(s: &str) -> Option<SymbolReading> {
         None => return None,
     };
     Some(SymbolReading::Atom(element, read_charge(&s[used..])))
+}
+
+/// Reads the element from a site label, for sites without a type symbol: as
+/// [`read_symbol`], except that labels beginning with `Wat` (any case: `Wat1`, `Wat(25)`,
+/// `Watz3`, `WatOW`) are water oxygens, O, not tungsten.
+///
+/// The mineral structure databases (the American Mineralogist Crystal Structure Database in
+/// particular) label the oxygen of a water molecule `Wat`, `OW` or `Ow` and often give no type
+/// symbol; this is common practice in mineralogical CIFs, and general-purpose readers such as
+/// pymatgen's CIF parser read `Wat` as O too. `OW1`, `Ow1` already read as O (no element `Ow`),
+/// and `Hw1` as H. A tungsten site labelled `W1`, `W(2)` or `Wa` is still tungsten: only the
+/// three letters `Wat` make a water oxygen. A type symbol, when present, always wins over the
+/// label.
+pub fn read_label(label: &str) -> Option<SymbolReading> {
+    let l = label.trim();
+    if l.len() >= 3 && l.is_char_boundary(3) && l[..3].eq_ignore_ascii_case("wat") {
+        return Some(SymbolReading::Atom(Element::from_symbol("O")?, None));
+    }
+    read_symbol(l)
 }
 
 /// `2+`, `+2`, `+`, `2.5+`, `-2` -> signed charge; anything else (a label's digits) -> None.
@@ -709,7 +797,11 @@ fn read_site_rows(
             }
         }
         let symbol = type_symbol.unwrap_or(&label);
-        let (element, charge) = match read_symbol(symbol) {
+        let reading = match type_symbol {
+            Some(t) => read_symbol(t),
+            None => read_label(&label),
+        };
+        let (element, charge) = match reading {
             Some(SymbolReading::Atom(e, q)) => (e, q),
             Some(SymbolReading::Dummy) => {
                 warnings.push(format!(
@@ -1392,6 +1484,98 @@ mod tests {
         }
         assert_eq!(read_symbol("Zz1"), None);
         assert_eq!(read_symbol("123"), None);
+    }
+
+    /// Mineral structure databases (the American Mineralogist Crystal Structure Database, for
+    /// one) label water oxygens `Wat`, `WatOW`, `OW` or `Ow` and hydrogens `Hw`, often without
+    /// type symbols: common practice in mineralogical CIFs. Those are O and H, not W; a site
+    /// labelled `W1` or `W(2)` stays tungsten, and a type symbol always wins over the label.
+    #[test]
+    fn water_labels_without_type_symbols_are_oxygen_not_tungsten() {
+        use SymbolReading::*;
+        let el = |s| Element::from_symbol(s).unwrap();
+        for l in [
+            "Wat1", "Wat(25)", "Watz3", "WatOW", "WAT2", "wat", "OW(1)", "Ow1",
+        ] {
+            assert_eq!(read_label(l), Some(Atom(el("O"), None)), "{l}");
+        }
+        for l in ["Hw1", "HwL", "Hw"] {
+            assert_eq!(read_label(l), Some(Atom(el("H"), None)), "{l}");
+        }
+        for l in ["W1", "W(2)", "Wa", "W"] {
+            assert_eq!(read_label(l), Some(Atom(el("W"), None)), "{l}");
+        }
+        let s = structure(&format!(
+            "{HEAD}loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n\
+             _atom_site_fract_z\nW1 0 0 0\nWatOW 0.1 0.2 0.3\nWat(5) 0.3 0.1 0.2\n\
+             OW(1) 0.2 0.3 0.1\nHw1 0.25 0.35 0.15\n"
+        ));
+        let elements: Vec<&str> = s
+            .asymmetric_sites
+            .iter()
+            .map(|a| a.occupants[0].species.element.symbol())
+            .collect();
+        assert_eq!(elements, ["W", "O", "O", "O", "H"]);
+        // with a type symbol the label says nothing about the element
+        let s = structure(&format!(
+            "{HEAD}loop_\n_atom_site_label\n_atom_site_type_symbol\n_atom_site_fract_x\n\
+             _atom_site_fract_y\n_atom_site_fract_z\nWat1 W6+ 0 0 0\n"
+        ));
+        assert_eq!(s.asymmetric_sites[0].occupants[0].species.name(), "W6+");
+    }
+
+    /// An incommensurately modulated structure given only in superspace (superspace group
+    /// name and (3+d)-dimensional operators, no three-dimensional operator list) is refused
+    /// with an error that says so, not with a bare "no symmetry".
+    #[test]
+    fn superspace_only_blocks_are_refused_with_a_clear_error() {
+        let text = "data_m\n_cell_length_a 5\n_cell_length_b 6\n_cell_length_c 7\n\
+            _cell_modulation_dimension 1\n_space_group_ssg_name 'C2/m(a0g)0s'\n\
+            loop_\n_space_group_symop_ssg_id\n_space_group_symop_ssg_operation_algebraic\n\
+            1 x1,x2,x3,x4\n2 -x1,x2,-x3,-x4+1/2\n\
+            loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n\
+            _atom_site_fract_z\nCr1 0 0.1 0\n";
+        let doc = cif::parse(text.as_bytes()).unwrap();
+        let e = structure_from_block(&doc.blocks[0], "m.cif").unwrap_err();
+        assert!(
+            e.message.starts_with("no three-dimensional symmetry")
+                && e.message.contains("_space_group_ssg_name 'C2/m(a0g)0s'"),
+            "{e}"
+        );
+        // a superspace file that also lists the operators of its average structure is read
+        let text = text.replace(
+            "loop_\n_atom_site_label",
+            "loop_\n_symmetry_equiv_pos_as_xyz\nx,y,z\n-x,y,-z\nloop_\n_atom_site_label",
+        );
+        let doc = cif::parse(text.as_bytes()).unwrap();
+        let s = structure_from_block(&doc.blocks[0], "m.cif").unwrap();
+        assert_eq!(s.sites.len(), 1, "Cr1 on the two-fold axis");
+    }
+
+    /// CIF block codes must be unique within a file (CIF 1.1 specification, common practice);
+    /// a file that repeats one is still read, with a warning saying which block was used.
+    #[test]
+    fn repeated_block_names_are_read_with_a_warning() {
+        let dir = std::env::temp_dir().join(format!("hopmap-cif-dup-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("dup.cif");
+        let sites = "loop_\n_atom_site_label\n_atom_site_fract_x\n_atom_site_fract_y\n\
+                     _atom_site_fract_z\nO1 0.1 0.2 0.3\n";
+        std::fs::write(
+            &path,
+            format!("{HEAD}{sites}{}{sites}", HEAD.replace("data_t", "data_T")),
+        )
+        .unwrap();
+        let s = read_cif(&path, None).unwrap();
+        assert!(
+            s.warnings.iter().any(|w| w.contains(
+                "data block name 't' is used by 2 blocks of this file (lines 1, 18); the one at \
+                 line 1 is read"
+            )),
+            "{:?}",
+            s.warnings
+        );
+        std::fs::remove_dir_all(&dir).ok();
     }
 
     #[test]
