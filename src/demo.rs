@@ -82,6 +82,8 @@ the demo; they are not published or characterised phases.";
 #[derive(Debug, Clone, PartialEq)]
 pub struct DemoResult {
     pub headline: String,
+    /// The answer in plain words ([`html::answer_sentence`]).
+    pub answer: String,
     pub dimension: u8,
     /// Barriers of the 1D, 2D and 3D networks (eV), when reached.
     pub barriers_ev: [Option<f64>; 3],
@@ -203,6 +205,7 @@ pub fn summarise(a: &Analysis, report: String, seconds: f64) -> DemoResult {
     };
     DemoResult {
         headline: analysis::headline(a),
+        answer: html::answer_sentence(a),
         dimension: p.dimension,
         barriers_ev,
         best_dimension: best.map(|(t, _)| t.dimension),
@@ -256,6 +259,19 @@ pub fn rank(rows: &mut [DemoRow]) {
     });
 }
 
+/// Three significant figures; below 0.001, scientific.
+fn sig3(v: f64) -> String {
+    if v == 0.0 || !v.is_finite() {
+        return format!("{v}");
+    }
+    if v.abs() < 1e-3 {
+        return sci(v, 2);
+    }
+    let e = v.abs().log10().floor() as i32;
+    let d = (2 - e).max(0) as usize;
+    format!("{v:.d$}")
+}
+
 fn opt(x: Option<f64>, f: impl Fn(f64) -> String) -> String {
     x.map(f).unwrap_or_else(|| "–".into())
 }
@@ -286,12 +302,12 @@ pub fn index_page(rows: &[DemoRow]) -> String {
         if let Ok(x) = &top.outcome {
             let _ = writeln!(
                 h,
-                "<p class=\"answer\" id=\"answer\"><b>On this screen {}+ in {} moves best: {}; a \
+                "<p class=\"answer\" id=\"answer\"><b>Best on this screen: {} ({}). {} A \
                  particle up to {} µm across charges by bulk diffusion at 10C.</b></p>",
-                esc(&top.ion),
                 esc(&top.structure),
-                esc(&x.headline),
-                opt(x.particle_10c_um, |v| format!("{v:.2}"))
+                esc(&top.model),
+                esc(&x.answer),
+                opt(x.particle_10c_um, sig3)
             );
         }
     }
@@ -346,7 +362,7 @@ pub fn index_page(rows: &[DemoRow]) -> String {
                         .unwrap_or_else(|| "–".into()),
                     esc(&x.best_direction),
                     opt(x.diffusion_m2_s, |v| sci(v, 2)),
-                    opt(x.particle_10c_um, |v| format!("{v:.3}")),
+                    opt(x.particle_10c_um, sig3),
                     opt(x.capacity_mah_g, |v| format!("{v:.1}{mark}")),
                     opt(x.capacity_mah_cm3, |v| format!("{v:.0}{mark}")),
                 );
@@ -423,7 +439,11 @@ pub fn terminal_summary(rows: &[DemoRow], index: &Path, seconds: f64) -> String 
                     barriers_text(&x.barriers_ev, " "),
                     x.best_direction,
                     opt(x.diffusion_m2_s, |v| format!("{v:.2e}")),
-                    opt(x.particle_10c_um, |v| format!("{v:.3}")),
+                    opt(x.particle_10c_um, |v| if v.abs() < 1e-3 {
+                        format!("{v:.2e}")
+                    } else {
+                        sig3(v)
+                    }),
                     opt(x.capacity_mah_g, |v| format!(
                         "{v:.1}{}",
                         if x.capacity_is_site_bound {
@@ -523,6 +543,7 @@ mod tests {
             outcome: match x {
                 Some(v) => Ok(DemoResult {
                     headline: String::new(),
+                    answer: String::new(),
                     dimension: 1,
                     barriers_ev: [Some(0.3), None, None],
                     best_dimension: Some(1),

@@ -67,6 +67,25 @@ pub struct SlicePlane {
     pub origin: Frac,
     pub u: [i32; 3],
     pub v: [i32; 3],
+    /// Repeats of U and V drawn (short vectors are drawn two or three times, so that the
+    /// continuation of a channel across the cell edge shows).
+    pub u_repeat: i32,
+    pub v_repeat: i32,
+}
+
+impl SlicePlane {
+    /// The lattice vectors of the drawn parallelogram: U and V times their repeats.
+    pub fn drawn(&self) -> ([i32; 3], [i32; 3]) {
+        (
+            self.u.map(|x| x * self.u_repeat),
+            self.v.map(|x| x * self.v_repeat),
+        )
+    }
+}
+
+/// Repeats of a lattice vector of `len` A so that the drawing spans about 6 A (at most 3).
+fn repeats_for(len: f64) -> i32 {
+    ((6.0 / len).ceil() as i32).clamp(1, 3)
 }
 
 fn cross_i(a: [i32; 3], b: [i32; 3]) -> [i32; 3] {
@@ -186,7 +205,26 @@ pub fn slice_planes(a: &Analysis) -> Vec<SlicePlane> {
             continue;
         }
         keys.push(k);
-        planes.push(SlicePlane { origin, u, v });
+        let (ru, rv) = (repeats_for(cart_len(a, u)), repeats_for(cart_len(a, v)));
+        // The longer side runs across the page, so that the picture is wide rather than tall.
+        let plane = if cart_len(a, v) * rv as f64 > 1.3 * cart_len(a, u) * ru as f64 {
+            SlicePlane {
+                origin,
+                u: v,
+                v: u,
+                u_repeat: rv,
+                v_repeat: ru,
+            }
+        } else {
+            SlicePlane {
+                origin,
+                u,
+                v,
+                u_repeat: ru,
+                v_repeat: rv,
+            }
+        };
+        planes.push(plane);
         if planes.len() == 2 {
             break;
         }
@@ -246,8 +284,9 @@ struct PlaneFrame {
 fn plane_frame(a: &Analysis, plane: &SlicePlane) -> PlaneFrame {
     let m = a.structure.lattice.matrix();
     let to_v = |x: [i32; 3]| Vector3::new(x[0] as f64, x[1] as f64, x[2] as f64);
-    let uc = m * to_v(plane.u);
-    let vc = m * to_v(plane.v);
+    let (u, v) = plane.drawn();
+    let uc = m * to_v(u);
+    let vc = m * to_v(v);
     let n = uc.cross(&vc);
     let normal = n / n.norm();
     let ex = uc / uc.norm();
@@ -276,7 +315,7 @@ fn near_plane(
     let Some(inv) = basis.try_inverse() else {
         return vec![];
     };
-    let range = 3;
+    let range = 4;
     let mut out: Vec<[f64; 2]> = Vec::new();
     let base = f.0 - plane.origin.0;
     for i in -range..=range {
@@ -310,6 +349,16 @@ fn axis_name(v: [i32; 3]) -> String {
         [1, 0, 0] => "a [100]".into(),
         [0, 1, 0] => "b [010]".into(),
         [0, 0, 1] => "c [001]".into(),
+        _ => format!("[{}]", format_indices(v)),
+    }
+}
+
+/// The short label of a lattice direction next to its arrow: "a", "b", "c" or "[uvw]".
+fn arrow_name(v: [i32; 3]) -> String {
+    match v {
+        [1, 0, 0] => "a".into(),
+        [0, 1, 0] => "b".into(),
+        [0, 0, 1] => "c".into(),
         _ => format!("[{}]", format_indices(v)),
     }
 }
@@ -356,6 +405,17 @@ pub fn slice_range_ev(a: &Analysis) -> (f64, f64) {
     (lo, if hi > lo { hi } else { lo + 1.0 })
 }
 
+/// The energy of the first percolation threshold (eV): the level whose open sites and hops
+/// the slices mark.
+fn first_level(a: &Analysis) -> Option<f64> {
+    a.percolation
+        .thresholds
+        .iter()
+        .flatten()
+        .next()
+        .map(|t| t.energy as f64)
+}
+
 fn element_of_atom(a: &Analysis, i: usize) -> String {
     use crate::landscape::FrameworkKind;
     match a.model.atoms[i].kind {
@@ -372,16 +432,18 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
         let s = grid.spacing();
         (s[0] + s[1] + s[2]) / 3.0
     };
-    let side = |v: [i32; 3], len: f64| -> usize {
+    // Along a lattice axis drawn r times, r x (grid points) samples hit the grid points.
+    let side = |v: [i32; 3], r: i32, len: f64| -> usize {
         match AXES.iter().position(|x| *x == v) {
-            Some(ax) if grid.dims[ax] <= MAX_SIDE => grid.dims[ax],
+            Some(ax) if grid.dims[ax] * r as usize <= MAX_SIDE => grid.dims[ax] * r as usize,
             _ => ((len / spacing).ceil() as usize).clamp(8, MAX_SIDE),
         }
     };
-    let nu = side(plane.u, fr.uc.norm());
-    let nv = side(plane.v, fr.vc.norm());
-    let du = Vector3::new(plane.u[0] as f64, plane.u[1] as f64, plane.u[2] as f64);
-    let dv = Vector3::new(plane.v[0] as f64, plane.v[1] as f64, plane.v[2] as f64);
+    let nu = side(plane.u, plane.u_repeat, fr.uc.norm());
+    let nv = side(plane.v, plane.v_repeat, fr.vc.norm());
+    let (du, dv) = plane.drawn();
+    let du = Vector3::new(du[0] as f64, du[1] as f64, du[2] as f64);
+    let dv = Vector3::new(dv[0] as f64, dv[1] as f64, dv[2] as f64);
     let mut values = Vec::with_capacity(nu * nv);
     for j in 0..nv {
         for i in 0..nu {
@@ -393,7 +455,7 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
     let mut map = HeatMap::new(values, nu, nv, fr.u2, fr.v2)
         .with_unit("Site energy", "eV")
         .with_scale(lo, hi)
-        .with_direction_labels(axis_name(plane.u), axis_name(plane.v));
+        .with_direction_labels(arrow_name(plane.u), arrow_name(plane.v));
     for i in 0..a.model.atoms.len() {
         let el = element_of_atom(a, i);
         for st in near_plane(a, plane, &fr, a.model.atoms[i].frac, NEAR_PLANE_A) {
@@ -404,17 +466,9 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
         }
     }
     if let Some(net) = &a.network {
-        let top = a
-            .percolation
-            .thresholds
-            .iter()
-            .flatten()
-            .last()
-            .map(|t| t.energy as f64)
-            .unwrap_or(hi)
-            .min(hi);
+        let top = first_level(a).unwrap_or(hi).min(hi);
         let mut sites: Vec<([f64; 2], Option<String>)> = Vec::new();
-        for s in net.sites.iter().filter(|s| (s.energy as f64) <= hi) {
+        for s in net.sites.iter().filter(|s| (s.energy as f64) <= top + 1e-4) {
             for st in near_plane(a, plane, &fr, s.frac, NEAR_PLANE_A) {
                 sites.push((st, Some(format!("S{}", s.orbit))));
             }
@@ -443,7 +497,7 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
         }
         if !sites.is_empty() {
             map.marker_sets.push(FracMarkerSet {
-                legend: "sites (minima)".into(),
+                legend: "sites".into(),
                 shape: MarkerShape::Circle,
                 colour: Rgb::new(255, 255, 255),
                 points: sites,
@@ -451,7 +505,7 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
         }
         if !saddles.is_empty() {
             map.marker_sets.push(FracMarkerSet {
-                legend: "saddles (open hops)".into(),
+                legend: "saddles".into(),
                 shape: MarkerShape::TriangleUp,
                 colour: Rgb::new(0xd5, 0x5e, 0x00),
                 points: saddles,
@@ -474,11 +528,21 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
     let height = map_h + 130.0;
     let ion = a.model.probe.element.symbol();
     Figure::heatmap(width, height, map).with_title(format!(
-        "{ion}+ site energy in the plane of {} and {}, {}",
+        "{ion}+ site energy in the plane of {} and {}, {}{}",
         axis_name(plane.u),
         axis_name(plane.v),
-        plane_position(plane)
+        plane_position(plane),
+        repeats_words(plane)
     ))
+}
+
+/// ", 2 x 1 cells" when a vector is drawn more than once.
+fn repeats_words(plane: &SlicePlane) -> String {
+    if plane.u_repeat == 1 && plane.v_repeat == 1 {
+        String::new()
+    } else {
+        format!(" ({} x {} repeats)", plane.u_repeat, plane.v_repeat)
+    }
 }
 
 /// The slice figures.
@@ -499,15 +563,18 @@ pub fn slices(a: &Analysis) -> Vec<ReportFigure> {
             caption: format!(
                 "Site energy of the probe ion in the plane of {} and {}, {}, {what}. Colour scale \
                  from the lowest energy {:.2} eV to {:.2} eV (lowest + {:.1} eV); higher energies \
-                 take the top colour. Framework ions, sites and saddles within {NEAR_PLANE_A} Å of \
-                 the plane are projected onto it; site labels S<i>n</i> refer to the orbits of the \
-                 site table.",
+                 take the top colour. Framework ions within {NEAR_PLANE_A} Å of the plane are \
+                 projected onto it, and so are the sites and hop saddles open at the first \
+                 threshold ({}); site labels S<i>n</i> refer to the orbits of the site table.",
                 axis_name(plane.u),
                 axis_name(plane.v),
                 plane_position(plane),
                 lo,
                 hi,
-                hi - lo
+                hi - lo,
+                first_level(a)
+                    .map(|e| format!("{e:.3} eV"))
+                    .unwrap_or_else(|| "none reached".into())
             ),
             svg: slice_figure(a, plane).to_svg(),
         })
@@ -536,14 +603,47 @@ fn site_label(a: &Analysis, voxel: usize) -> String {
     }
 }
 
-/// The energy profile figures, one per channel profile.
+/// Keeps the label of a mark only where it does not crowd a mark labelled before it: marks are
+/// visited by decreasing priority and a label needs `gap` (A of path) to the nearest kept one.
+fn thin_labels(marks: &mut [ProfileMark], gap: f64, priority: impl Fn(&ProfileMark) -> f64) {
+    let mut order: Vec<usize> = (0..marks.len()).collect();
+    order.sort_by(|&i, &j| priority(&marks[j]).total_cmp(&priority(&marks[i])));
+    let mut kept: Vec<f64> = Vec::new();
+    for i in order {
+        let x = marks[i].path_length_a;
+        if kept.iter().any(|k| (k - x).abs() < gap) {
+            marks[i].label.clear();
+        } else {
+            kept.push(x);
+        }
+    }
+}
+
+/// The energy profile figures, one per distinct channel profile: a path that is the lowest
+/// repeat of several networks (e.g. the 1D channel that is also the cheapest direction of the
+/// 3D network) is drawn once.
 pub fn profiles(a: &Analysis) -> Vec<ReportFigure> {
+    // distinct profiles, with the dimensions of the networks they belong to
+    let mut distinct: Vec<(&crate::network::Profile, Vec<u8>)> = Vec::new();
+    for p in a.profiles.iter().filter(|p| !p.points.is_empty()) {
+        let same = distinct.iter_mut().find(|(q, _)| {
+            q.translation == p.translation
+                && (q.bottleneck - p.bottleneck).abs() < 1e-5
+                && (q.length - p.length).abs() < 1e-3
+        });
+        match same {
+            Some((_, dims)) => {
+                if !dims.contains(&p.dimension) {
+                    dims.push(p.dimension);
+                }
+            }
+            None => distinct.push((p, vec![p.dimension])),
+        }
+    }
     let mut out = Vec::new();
     let mut count = [0usize; 4];
-    for p in &a.profiles {
-        if p.points.is_empty() {
-            continue;
-        }
+    let ion = a.model.probe.element.symbol();
+    for (p, dims) in distinct {
         let lowest = p
             .points
             .iter()
@@ -554,15 +654,8 @@ pub fn profiles(a: &Analysis) -> Vec<ReportFigure> {
             .iter()
             .map(|q| (q.distance, q.energy as f64))
             .collect();
-        let sites: Vec<ProfileMark> = p
-            .sites()
-            .map(|q| ProfileMark {
-                path_length_a: q.distance,
-                energy_ev: q.energy as f64,
-                label: site_label(a, q.voxel),
-            })
-            .collect();
-        let saddles: Vec<ProfileMark> = p
+        let gap = (p.length / 14.0).max(0.3);
+        let mut saddles: Vec<ProfileMark> = p
             .saddles()
             .map(|q| ProfileMark {
                 path_length_a: q.distance,
@@ -570,7 +663,24 @@ pub fn profiles(a: &Analysis) -> Vec<ReportFigure> {
                 label: format!("+{:.2} eV", q.energy as f64 - lowest),
             })
             .collect();
+        thin_labels(&mut saddles, gap, |m| m.energy_ev);
+        let mut sites: Vec<ProfileMark> = p
+            .sites()
+            .map(|q| ProfileMark {
+                path_length_a: q.distance,
+                energy_ev: q.energy as f64,
+                label: site_label(a, q.voxel),
+            })
+            .collect();
+        thin_labels(&mut sites, gap, |m| -m.energy_ev);
         let mut plot = energy_profile(&line, &sites, &saddles);
+        for m in &mut plot.markers {
+            for pt in &mut m.points {
+                if pt.2.as_deref() == Some("") {
+                    pt.2 = None;
+                }
+            }
+        }
         plot.x.unit = "Å".into();
         plot.y.quantity = "Site energy".into();
         // Room above the highest point for the labels.
@@ -585,10 +695,11 @@ pub fn profiles(a: &Analysis) -> Vec<ReportFigure> {
         }
         let d = (p.dimension as usize).min(3);
         count[d] += 1;
-        let ion = a.model.probe.element.symbol();
+        let networks: Vec<String> = dims.iter().map(|d| format!("{d}D")).collect();
         let title = format!(
-            "{ion}+ along the {}D network: one repeat [{}], {:.2} Å of path",
-            p.dimension,
+            "{ion}+ along the {} network{}: one repeat [{}], {:.2} Å of path",
+            networks.join(" and "),
+            if dims.len() > 1 { "s" } else { "" },
             format_indices(p.translation),
             p.length
         );
@@ -596,11 +707,13 @@ pub fn profiles(a: &Analysis) -> Vec<ReportFigure> {
         out.push(ReportFigure {
             name: format!("profile-{}d-{}", p.dimension, count[d]),
             caption: format!(
-                "Site energy along the lowest path from the channel's lowest point to its image \
-                 one lattice translation [{}] away ({:.2} Å of path). Circles: sites (minima \
-                 along the path, labelled with their orbit); triangles: saddles, labelled with \
-                 their height above the lowest point of the path. Bottleneck {:.3} eV, i.e. \
-                 {:.3} eV above the lowest point.",
+                "Site energy along the lowest path from the lowest point of the {} network{} to \
+                 its image one lattice translation [{}] away ({:.2} Å of path). Circles: sites \
+                 (minima along the path, labelled with their orbit); triangles: saddles, labelled \
+                 with their height above the lowest point of the path (labels thinned where they \
+                 would overlap). Bottleneck {:.3} eV, i.e. {:.3} eV above the lowest point.",
+                networks.join(" and "),
+                if dims.len() > 1 { "s" } else { "" },
                 format_indices(p.translation),
                 p.length,
                 p.bottleneck,
@@ -616,11 +729,23 @@ pub fn profiles(a: &Analysis) -> Vec<ReportFigure> {
 // Rate
 // ------------------------------------------------------------------------------------------
 
+/// Particles smaller than this (um) are not worth a curve or a table.
+pub const NEGLIGIBLE_UM: f64 = 1e-3;
+
+/// The largest particle (um) a 1C charge fills through this network, when it is below
+/// [`NEGLIGIBLE_UM`] (bulk transport through the network is then negligible).
+pub fn negligible_at_1c(t: &crate::analysis::ChannelTransport) -> Option<f64> {
+    let rows = crate::transport::rate_table(t.diffusion_m2_s, t.dimension, &[1.0]).ok()?;
+    let x = rows.first()?.max_particle_diameter_um;
+    (x < NEGLIGIBLE_UM).then_some(x)
+}
+
 /// The largest particle (um) that bulk diffusion charges against C-rate, one line per network.
 pub fn size_rate(a: &Analysis) -> Option<ReportFigure> {
     let curves: Vec<SizeRateCurve> = a
         .transport
         .iter()
+        .filter(|t| negligible_at_1c(t).is_none())
         .filter_map(|t| {
             let rows =
                 crate::transport::rate_table(t.diffusion_m2_s, t.dimension, &CHART_C_RATES).ok()?;
@@ -640,12 +765,23 @@ pub fn size_rate(a: &Analysis) -> Option<ReportFigure> {
         return None;
     }
     let mut plot = size_rate_chart(&curves);
+    // A shade that differs from every line colour.
+    for r in &mut plot.regions {
+        r.colour = Rgb::new(0x9e, 0xc9, 0xe2);
+        r.opacity = 0.45;
+    }
     plot.y.unit = "µm".into();
     let ion = a.model.probe.element.symbol();
     let fig = Figure::lines(760.0, 460.0, plot).with_title(format!(
         "Largest {ion}+ host particle that bulk diffusion charges in time"
     ));
-    let first = &a.transport[0];
+    let first = a.transport.iter().find(|t| negligible_at_1c(t).is_none())?;
+    let left_out: Vec<String> = a
+        .transport
+        .iter()
+        .filter(|t| negligible_at_1c(t).is_some())
+        .map(|t| format!("{}D", t.dimension))
+        .collect();
     Some(ReportFigure {
         name: "size-rate".into(),
         caption: format!(
@@ -653,8 +789,18 @@ pub fn size_rate(a: &Analysis) -> Option<ReportFigure> {
              time t = 3600/n s of C-rate n, for each percolating network (d its dimension). In \
              the shaded region below the {}D line bulk diffusion is fast enough and no longer \
              limits the rate. Upper bounds from bulk transport alone (hopping model, dilute \
-             limit).",
-            first.dimension
+             limit).{}",
+            first.dimension,
+            if left_out.is_empty() {
+                String::new()
+            } else {
+                format!(
+                    " Not drawn: the {} network{}, where even a 1C charge fills less than {} nm.",
+                    left_out.join(" and "),
+                    if left_out.len() > 1 { "s" } else { "" },
+                    NEGLIGIBLE_UM * 1000.0
+                )
+            }
         ),
         svg: fig.to_svg(),
     })

@@ -812,6 +812,20 @@ fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut Stri
         if t.rates.is_empty() {
             continue;
         }
+        if let Some(x) = figures::negligible_at_1c(t) {
+            let _ = writeln!(
+                o,
+                "<p><b>{}D network</b> (E<sub>a</sub> = {:.3} eV, D = {} m²/s): even a 1C charge \
+                 fills only a particle {} µm across, below {} nm: bulk transport through this \
+                 network is negligible at every C-rate.</p>",
+                t.dimension,
+                t.barrier_ev,
+                sci(t.diffusion_m2_s, 2),
+                sci(x, 1),
+                figures::NEGLIGIBLE_UM * 1000.0
+            );
+            continue;
+        }
         let _ = writeln!(
             o,
             "<p><b>{}D network</b> (E<sub>a</sub> = {:.3} eV, D = {} m²/s):</p>",
