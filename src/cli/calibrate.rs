@@ -110,7 +110,7 @@ pub fn run(g: &GlobalOpts, a: CalibrateArgs) -> CmdResult {
             eprintln!("  {name}: tabulated in {secs:.1} s");
         }
     })?;
-    print!("{}", calibrate::table(&c));
+    out!("{}", calibrate::table(&c));
     if !g.quiet {
         eprintln!("{} percolation sweeps, {:.1} s in all", c.sweeps, c.seconds);
     }

@@ -6,13 +6,13 @@ use std::path::PathBuf;
 
 #[derive(Args, Debug)]
 pub struct DemoArgs {
-    /// Output folder for the demo report
+    /// Output folder for the demo report (created if needed)
     #[arg(long, default_value = "hopmap-demo", value_name = "DIR")]
     pub out: PathBuf,
 }
 
 pub fn run(g: &GlobalOpts, a: DemoArgs) -> CmdResult {
-    let summary = hopmap::demo::run(&a.out, !g.quiet).map_err(|e| e.to_string())?;
-    out!("{summary}");
+    let run = hopmap::demo::run(&a.out, !g.quiet)?;
+    out!("{}", run.summary);
     Ok(())
 }
