@@ -9,6 +9,7 @@ pub mod bv;
 pub mod calibrate;
 pub mod capacity;
 pub mod cif;
+pub mod csv_record;
 pub mod demo;
 pub mod element;
 mod element_table;

@@ -285,43 +285,7 @@ impl ScreenRow {
     }
 }
 
-/// Splits one CSV record (RFC 4180 quoting). Returns None for a record with an unterminated
-/// quote (an interrupted last line).
-fn split_csv_record(line: &str) -> Option<Vec<String>> {
-    let mut out = Vec::new();
-    let mut cur = String::new();
-    let mut chars = line.chars().peekable();
-    let mut quoted = false;
-    let mut at_start = true;
-    while let Some(c) = chars.next() {
-        if quoted {
-            if c == '"' {
-                if chars.peek() == Some(&'"') {
-                    cur.push('"');
-                    chars.next();
-                } else {
-                    quoted = false;
-                }
-            } else {
-                cur.push(c);
-            }
-        } else if c == '"' && at_start {
-            quoted = true;
-            at_start = false;
-        } else if c == ',' {
-            out.push(std::mem::take(&mut cur));
-            at_start = true;
-        } else {
-            cur.push(c);
-            at_start = false;
-        }
-    }
-    if quoted {
-        return None;
-    }
-    out.push(cur);
-    Some(out)
-}
+use crate::csv_record::split_csv_record;
 
 /// Reads the complete rows of a table written by [`run_batch`]; an incomplete last line (no
 /// newline: the run was interrupted while writing it) is ignored.
