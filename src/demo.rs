@@ -298,18 +298,18 @@ pub fn index_page(rows: &[DemoRow]) -> String {
          scenario)</span></h1>"
     );
     let ok: Vec<&DemoRow> = rows.iter().filter(|r| r.outcome.is_ok()).collect();
-    if let Some(top) = ok.first() {
-        if let Ok(x) = &top.outcome {
-            let _ = writeln!(
-                h,
-                "<p class=\"answer\" id=\"answer\"><b>Best on this screen: {} ({}). {} A \
+    if let Some(top) = ok.first()
+        && let Ok(x) = &top.outcome
+    {
+        let _ = writeln!(
+            h,
+            "<p class=\"answer\" id=\"answer\"><b>Best on this screen: {} ({}). {} A \
                  particle up to {} µm across charges by bulk diffusion at 10C.</b></p>",
-                esc(&top.structure),
-                esc(&top.model),
-                esc(&x.answer),
-                opt(x.particle_10c_um, sig3)
-            );
-        }
+            esc(&top.structure),
+            esc(&top.model),
+            esc(&x.answer),
+            opt(x.particle_10c_um, sig3)
+        );
     }
     let mut o = String::new();
     let _ = writeln!(o, "<h2 id=\"scenario\">The scenario</h2>");

@@ -344,6 +344,15 @@ fn near_plane(
     out
 }
 
+/// Distance (A) in the plane between two points given in slice coordinates (s, t), not
+/// taking periodicity into account.
+fn in_plane_distance(fr: &PlaneFrame, p: [f64; 2], q: [f64; 2]) -> f64 {
+    let (ds, dt) = (p[0] - q[0], p[1] - q[1]);
+    let x = ds * fr.u2[0] + dt * fr.v2[0];
+    let y = ds * fr.u2[1] + dt * fr.v2[1];
+    (x * x + y * y).sqrt()
+}
+
 fn axis_name(v: [i32; 3]) -> String {
     match v {
         [1, 0, 0] => "a [100]".into(),
@@ -470,7 +479,12 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
         let mut sites: Vec<([f64; 2], Option<String>)> = Vec::new();
         for s in net.sites.iter().filter(|s| (s.energy as f64) <= top + 1e-4) {
             for st in near_plane(a, plane, &fr, s.frac, NEAR_PLANE_A) {
-                sites.push((st, Some(format!("S{}", s.orbit))));
+                if !sites
+                    .iter()
+                    .any(|(q, _)| in_plane_distance(&fr, *q, st) < 0.3)
+                {
+                    sites.push((st, Some(format!("S{}", s.orbit))));
+                }
             }
         }
         if sites.len() > 16 {
@@ -479,17 +493,13 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
             }
         }
         let mut saddles: Vec<([f64; 2], Option<String>)> = Vec::new();
-        for h in net
-            .hops
-            .iter()
-            .filter(|h| (h.saddle_energy as f64) <= top + 1e-4 && h.length > 0.3)
-        {
+        for h in net.hops.iter().filter(|h| {
+            (h.saddle_energy as f64) <= top + 1e-4 && h.length >= crate::report::html::SHORT_HOP_A
+        }) {
             for st in near_plane(a, plane, &fr, h.saddle, NEAR_PLANE_A) {
-                let close = saddles.iter().any(|(q, _)| {
-                    let ds = (q[0] - st[0]) * fr.u2[0] + (q[1] - st[1]) * fr.v2[0];
-                    let dt = (q[1] - st[1]) * fr.v2[1];
-                    (ds * ds + dt * dt).sqrt() < 0.25
-                });
+                let close = saddles
+                    .iter()
+                    .any(|(q, _)| in_plane_distance(&fr, *q, st) < 0.3);
                 if !close {
                     saddles.push((st, None));
                 }
@@ -550,8 +560,8 @@ pub fn slices(a: &Analysis) -> Vec<ReportFigure> {
     let (lo, hi) = slice_range_ev(a);
     let what = match a.percolation.thresholds.iter().flatten().next() {
         Some(t) => format!(
-            "through the lowest point of the {}D channel that opens first ({})",
-            t.dimension, t.channel.span
+            "through the lowest point of the first channel to open ({}, at {:.3} eV)",
+            t.channel.span, t.energy
         ),
         None => "through the lowest point of the cell (nothing percolates)".to_string(),
     };
@@ -600,6 +610,15 @@ fn site_label(a: &Analysis, voxel: usize) -> String {
             }
         }
         None => String::new(),
+    }
+}
+
+/// "1D", "1D and 2D", "1D, 2D and 3D".
+fn and_list(items: &[String]) -> String {
+    match items {
+        [] => String::new(),
+        [x] => x.clone(),
+        [init @ .., last] => format!("{} and {last}", init.join(", ")),
     }
 }
 
@@ -695,10 +714,10 @@ pub fn profiles(a: &Analysis) -> Vec<ReportFigure> {
         }
         let d = (p.dimension as usize).min(3);
         count[d] += 1;
-        let networks: Vec<String> = dims.iter().map(|d| format!("{d}D")).collect();
+        let networks = and_list(&dims.iter().map(|d| format!("{d}D")).collect::<Vec<_>>());
         let title = format!(
             "{ion}+ along the {} network{}: one repeat [{}], {:.2} Å of path",
-            networks.join(" and "),
+            networks,
             if dims.len() > 1 { "s" } else { "" },
             format_indices(p.translation),
             p.length
@@ -712,7 +731,7 @@ pub fn profiles(a: &Analysis) -> Vec<ReportFigure> {
                  (minima along the path, labelled with their orbit); triangles: saddles, labelled \
                  with their height above the lowest point of the path (labels thinned where they \
                  would overlap). Bottleneck {:.3} eV, i.e. {:.3} eV above the lowest point.",
-                networks.join(" and "),
+                networks,
                 if dims.len() > 1 { "s" } else { "" },
                 format_indices(p.translation),
                 p.length,
@@ -765,6 +784,8 @@ pub fn size_rate(a: &Analysis) -> Option<ReportFigure> {
         return None;
     }
     let mut plot = size_rate_chart(&curves);
+    // The lines fall to the right: the top right corner is free for the legend.
+    plot.legend = crate::plot::LegendPosition::TopRight;
     // A shade that differs from every line colour.
     for r in &mut plot.regions {
         r.colour = Rgb::new(0x9e, 0xc9, 0xe2);

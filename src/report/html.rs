@@ -567,6 +567,9 @@ fn sites_section(a: &Analysis, o: &mut String) {
     }
 }
 
+/// Hops shorter than this (A) join split minima of one site; the hop table leaves them out.
+pub const SHORT_HOP_A: f64 = 0.5;
+
 /// A group of symmetry-equivalent hops.
 struct HopGroup {
     from_orbit: usize,
@@ -588,7 +591,11 @@ fn hop_groups(a: &Analysis, level: f32) -> Vec<HopGroup> {
         return vec![];
     };
     let mut groups: Vec<HopGroup> = Vec::new();
-    for h in net.hops.iter().filter(|h| h.saddle_energy <= level + 1e-4) {
+    for h in net
+        .hops
+        .iter()
+        .filter(|h| h.saddle_energy <= level + 1e-4 && h.length >= SHORT_HOP_A)
+    {
         let (of, ot) = (net.sites[h.from].orbit, net.sites[h.to].orbit);
         let (f, t, fw, bw) = if of <= ot {
             (of, ot, h.barrier_forward, h.barrier_backward)
@@ -634,11 +641,16 @@ fn hops_section(a: &Analysis, o: &mut String) {
         .unwrap_or(f32::NEG_INFINITY);
     let groups = hop_groups(a, level);
     let shown: usize = groups.iter().map(|g| g.count).sum();
+    let short = net
+        .hops
+        .iter()
+        .filter(|h| h.saddle_energy <= level + 1e-4 && h.length < SHORT_HOP_A)
+        .count();
     let _ = writeln!(
         o,
         "<h2 id=\"hops\">Hops</h2>\n<p class=\"note\">Hops between neighbouring sites whose \
          saddle lies at or below the highest percolation threshold ({:.3} eV): {} of the {} hops \
-         of the cell, in {} symmetry-distinct groups (same orbits, length and saddle energy). \
+         of the cell, in {} symmetry-distinct groups (same orbits, length and saddle energy){}. \
          Barriers are saddle minus site energy, read from the first orbit to the second and back. \
          Opening = distance from the saddle to the nearest framework ion minus that ion's Shannon \
          radius; clearance = opening minus the radius of {} ({:.2} Å), negative where the ion must \
@@ -647,6 +659,14 @@ fn hops_section(a: &Analysis, o: &mut String) {
         shown,
         net.hops.len(),
         groups.len(),
+        if short > 0 {
+            format!(
+                "; {short} hops shorter than {SHORT_HOP_A} Å, between split minima of one site, \
+                 are left out"
+            )
+        } else {
+            String::new()
+        },
         ion_name(a),
         a.model.probe.radius
     );
@@ -873,10 +893,15 @@ fn capacity_section(a: &Analysis, o: &mut String) {
         (
             "Redox bound",
             format!(
-                "{:.1} mAh/g ({} electrons per {})",
+                "{:.1} mAh/g ({} electron{} per formula unit {})",
                 c.redox_capacity_mah_g,
                 c.redox_electrons_per_formula_unit,
-                esc(&c.formula)
+                if c.redox_electrons_per_formula_unit == 1.0 {
+                    ""
+                } else {
+                    "s"
+                },
+                esc(&a.structure.formula_and_z().1)
             ),
         ),
         (
