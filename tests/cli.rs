@@ -296,6 +296,8 @@ fn screening_shards_merge_to_the_unsharded_run_and_bad_files_become_rows() {
 
 #[test]
 fn substitution_screens_a_doping_series_without_editing_files() {
+    // a quarter of the Ti of rutile replaced by Sn on the same site: Ti0.75Sn0.25O2
+    let out = tmp("sub").join("s.jsonl");
     let v = hopmap(&[
         "screen",
         "--quiet",
@@ -305,9 +307,31 @@ fn substitution_screens_a_doping_series_without_editing_files() {
         "Ti=Ti:0.75,Sn:0.25",
         &root("structures/reference/TiO2_rutile.cif"),
         "--out",
-        tmp("sub").join("s.jsonl").to_str().unwrap(),
+        out.to_str().unwrap(),
     ]);
     assert!(v.status.success(), "{}", String::from_utf8_lossy(&v.stderr));
-    let text = String::from_utf8_lossy(&v.stdout);
-    assert!(text.contains("TiO2") || text.contains("Sn"), "{text}");
+    let line = std::fs::read_to_string(&out).unwrap();
+    let row: serde_json::Value = serde_json::from_str(line.lines().next().unwrap()).unwrap();
+    assert_eq!(row["error"], "", "{row}");
+    assert_eq!(row["formula"], "Ti3SnO8", "{row}");
+    // the lowest channel is still the tunnel along c; the 1D barrier opens first
+    assert_eq!(row["direction"], "[001]", "{row}");
+    assert!(
+        row["barrier_1d_ev"].as_f64().unwrap() < row["barrier_3d_ev"].as_f64().unwrap(),
+        "{row}"
+    );
+    let bad = hopmap(&[
+        "screen",
+        "--quiet",
+        "--substitute",
+        "Ti=Ti:0.5",
+        &root("structures/reference/TiO2_rutile.cif"),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert_eq!(
+        bad.status.code(),
+        Some(2),
+        "fractions not summing to 1 are a usage error"
+    );
 }

@@ -54,6 +54,21 @@ pub struct RateArgsCommon {
     pub min_ion_distance: f64,
 }
 
+impl Default for RateArgsCommon {
+    /// The same defaults as the command-line options.
+    fn default() -> Self {
+        RateArgsCommon {
+            temperature: 298.15,
+            attempt_frequency: 1e13,
+            correlation_factor: 1.0,
+            site_filling: 0.0,
+            diffusivity: None,
+            inserted: None,
+            min_ion_distance: 2.3,
+        }
+    }
+}
+
 #[derive(Args, Debug)]
 pub struct PathsArgs {
     #[command(flatten)]

@@ -31,15 +31,7 @@ pub struct GridArgs {
 }
 
 pub fn run(g: &GlobalOpts, a: GridArgs) -> CmdResult {
-    let dummy_rate = RateArgsCommon {
-        temperature: 298.15,
-        attempt_frequency: 1e13,
-        correlation_factor: 1.0,
-        site_filling: 0.0,
-        diffusivity: None,
-        inserted: None,
-        min_ion_distance: 2.3,
-    };
+    let dummy_rate = RateArgsCommon::default();
     let opts = super::analyse::options(g, &a.model, &dummy_rate)?;
     let s = hopmap::read::read_structure(&a.input.file, a.input.block.as_deref())?;
     let (s, note, model, _prov, land) = hopmap::analysis::model_and_landscape(&s, &opts)

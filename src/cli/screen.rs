@@ -113,15 +113,7 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
         super::analyse::parse_ion(ion)?;
     }
     let jobs = screen::shard_jobs(&files, &a.ion, a.shard);
-    let base_rate = RateArgsCommon {
-        temperature: 298.15,
-        attempt_frequency: 1e13,
-        correlation_factor: 1.0,
-        site_filling: 0.0,
-        diffusivity: None,
-        inserted: None,
-        min_ion_distance: 2.3,
-    };
+    let base_rate = RateArgsCommon::default();
     let quiet = GlobalOpts {
         quiet: true,
         verbose: false,

@@ -396,7 +396,7 @@ impl HeatMap {
         svg.text(
             sx + bar_px / 2.0,
             ky - 7.0,
-            &format!("{} A", short(bar_a)),
+            &format!("{} Å", short(bar_a)),
             FONT - 1.0,
             Anchor::Middle,
             INK,

@@ -714,18 +714,6 @@ fn hops_section(a: &Analysis, o: &mut String) {
     }
 }
 
-/// The temperature (K) a hopping-model diffusion coefficient was evaluated at, recovered from
-/// the model (`D = D0 exp(-Ea / kB T)`); None for a measured D or a zero barrier.
-pub fn temperature_of(t: &ChannelTransport) -> Option<f64> {
-    let m = t.model.as_ref()?;
-    let d0 = m.prefactor_m2_s();
-    if !(m.barrier_ev > 0.0 && t.diffusion_m2_s > 0.0 && d0 > t.diffusion_m2_s) {
-        return None;
-    }
-    let tk = m.barrier_ev / (crate::transport::BOLTZMANN_EV_PER_K * (d0 / t.diffusion_m2_s).ln());
-    Some((tk * 100.0).round() / 100.0)
-}
-
 fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut String) {
     let _ = writeln!(o, "<h2 id=\"transport\">Transport</h2>");
     if a.transport.is_empty() {
@@ -735,12 +723,7 @@ fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut Stri
         );
         return;
     }
-    let temp = a
-        .transport
-        .iter()
-        .find_map(temperature_of)
-        .map(|t| format!("{t:.2} K"))
-        .unwrap_or_else(|| "the temperature asked for".into());
+    let temp = format!("{:.2} K", a.transport[0].temperature_k);
     let _ = writeln!(
         o,
         "<p>Diffusion coefficient of {} through each percolating network at {temp}, from the \
