@@ -332,9 +332,9 @@ Oxidation states: Na+, Co3+/Co4+, O2-.""",
 TiNb2O7, the Wadsley-Roth crystallographic-shear phase built of blocks of 3 x 3 corner-sharing
 octahedra, infinite along b, joined by edge sharing at the block borders (shear planes); the
 blocks sit at two levels, y = 0 and y = 1/2. Space group C2/m (No. 12, unique axis b, cell
-choice 1). Ti and Nb at random, Ti 1/3 + Nb 2/3, on all five metal sites
-(2a and four 4i); oxygen on 2b and ten 4i sites. A host without lithium: inside each block four
-square tunnels run along b.
+choice 1). Ti and Nb at random, Ti 1/3 + Nb 2/3, on all five metal sites (M1 on 2a, M2-M5 on
+4i; Ti written as M1a-M5a, Nb as M1b-M5b); oxygen on 2b and ten 4i sites. A host without
+lithium: inside each block four square tunnels run along b.
 Sources: the structure type and setting, A. D. Wadsley, "Mixed oxides of titanium and niobium.
 I", Acta Crystallogr. 14 (1961) 660-664; the cell a = 20.351, b = 3.801, c = 11.882 A,
 beta = 120.19 deg as quoted for TiNb2O7 anodes, e.g. J.-T. Han, Y.-H. Huang, J. B. Goodenough,
@@ -343,7 +343,7 @@ THIS IS A MODEL, NOT THE PUBLISHED COORDINATES: the ideal block framework placed
 published cell and refined by our own bond-valence distance least squares
 (block_oxide_model.py in this folder explains the construction and reproduces the numbers).
 Its topology (which octahedra share corners and which share edges) is that of the published
-structure, so the channels are; bond lengths, and so site energies, are the model's. The
+structure, and so are the channels; bond lengths, and so site energies, are the model's. The
 published refinements find partial Ti/Nb order, which this model ignores.
 Oxidation states: Ti4+, Nb5+, O2-.""",
         cell=(20.351, 3.801, 11.882, 90, 120.19, 90),
@@ -354,12 +354,12 @@ Oxidation states: Ti4+, Nb5+, O2-.""",
         z=6,
         sites=[
             *[
-                (f"{el}{n}", ion, x, 0.0, z, occ)
+                (f"M{n}{suffix}", ion, x, 0.0, z, occ)
                 for n, (x, z) in enumerate(
                     [(0.0, 0.0), (0.1878, 0.9992), (0.1124, 0.3680), (0.0807, 0.6368), (0.2947, 0.3628)],
                     start=1,
                 )
-                for el, ion, occ in (("Ti", "Ti4+", 1 / 3), ("Nb", "Nb5+", 2 / 3))
+                for suffix, ion, occ in (("a", "Ti4+", 1 / 3), ("b", "Nb5+", 2 / 3))
             ],
             ("O1", "O2-", 0.5, 0.0, 0.0, 1.0),
             ("O2", "O2-", 0.1009, 0.0, 0.9974, 1.0),
