@@ -18,7 +18,10 @@
 //!   shortest lattice axis out of the layer;
 //! - 3D network: the planes of its first and second, and first and third winding vectors.
 //!
-//! At most two slices are drawn. Framework atoms, sites and saddles within
+//! At most two such slices are drawn. A 1D channel also gets a cross-section: the plane of
+//! two lattice vectors whose normal lies closest to the channel direction (the a-c plane for a
+//! channel along b in a monoclinic cell), which shows the tunnels end-on, as they are drawn by
+//! hand for tunnel and block frameworks. Framework atoms, sites and saddles within
 //! [`NEAR_PLANE_A`] of the plane are projected onto it.
 
 use crate::analysis::Analysis;
@@ -134,8 +137,8 @@ fn cart_len(a: &Analysis, v: [i32; 3]) -> f64 {
         .frac_delta_length(Vector3::new(v[0] as f64, v[1] as f64, v[2] as f64))
 }
 
-/// The slice planes of the report (at most two), through the lowest point of the channel that
-/// opens first (or of the whole cell when nothing percolates).
+/// The slice planes of the report (two, and a cross-section for a 1D channel), through the lowest
+/// point of the channel that opens first (or of the whole cell when nothing percolates).
 pub fn slice_planes(a: &Analysis) -> Vec<SlicePlane> {
     let grid = &a.landscape.energy;
     if grid.is_empty() {
@@ -205,31 +208,70 @@ pub fn slice_planes(a: &Analysis) -> Vec<SlicePlane> {
             continue;
         }
         keys.push(k);
-        let (ru, rv) = (repeats_for(cart_len(a, u)), repeats_for(cart_len(a, v)));
-        // The longer side runs across the page, so that the picture is wide rather than tall.
-        let plane = if cart_len(a, v) * rv as f64 > 1.3 * cart_len(a, u) * ru as f64 {
-            SlicePlane {
-                origin,
-                u: v,
-                v: u,
-                u_repeat: rv,
-                v_repeat: ru,
-            }
-        } else {
-            SlicePlane {
-                origin,
-                u,
-                v,
-                u_repeat: ru,
-                v_repeat: rv,
-            }
-        };
-        planes.push(plane);
+        planes.push(oriented(a, origin, u, v));
         if planes.len() == 2 {
             break;
         }
     }
+    if let Some(Span::Line { direction, .. }) = first.map(|t| &t.channel.span) {
+        if let Some((u, v)) = cross_section(a, *direction) {
+            if !keys.contains(&plane_key(u, v)) {
+                planes.push(oriented(a, origin, u, v));
+            }
+        }
+    }
     planes
+}
+
+/// Two short lattice vectors spanning the plane most nearly perpendicular to `d`: the plane
+/// whose Cartesian normal makes the smallest angle with d, ties to the smaller drawing.
+fn cross_section(a: &Analysis, d: [i32; 3]) -> Option<([i32; 3], [i32; 3])> {
+    let m = a.structure.lattice.matrix();
+    let cart = |x: [i32; 3]| m * Vector3::new(x[0] as f64, x[1] as f64, x[2] as f64);
+    let dc = cart(d).normalize();
+    let mut best: Option<(f64, f64, [i32; 3], [i32; 3])> = None;
+    for (i, &u) in SMALL.iter().enumerate() {
+        for &v in &SMALL[i + 1..] {
+            let n = cart(u).cross(&cart(v));
+            if n.norm() < 1e-9 || cross_i(u, d) == [0, 0, 0] || cross_i(v, d) == [0, 0, 0] {
+                continue;
+            }
+            // 1 - |cos| of the angle between the normal and d; then the area drawn.
+            let off = 1.0 - n.normalize().dot(&dc).abs();
+            let area = n.norm();
+            let better = match best {
+                None => true,
+                Some((o, ar, _, _)) => off < o - 1e-6 || (off < o + 1e-6 && area < ar - 1e-6),
+            };
+            if better {
+                best = Some((off, area, u, v));
+            }
+        }
+    }
+    best.map(|(_, _, u, v)| (u, v))
+}
+
+/// The slice of U and V through `origin`, short vectors repeated, the longer side across.
+fn oriented(a: &Analysis, origin: Frac, u: [i32; 3], v: [i32; 3]) -> SlicePlane {
+    let (ru, rv) = (repeats_for(cart_len(a, u)), repeats_for(cart_len(a, v)));
+    // The longer side runs across the page, so that the picture is wide rather than tall.
+    if cart_len(a, v) * rv as f64 > 1.3 * cart_len(a, u) * ru as f64 {
+        SlicePlane {
+            origin,
+            u: v,
+            v: u,
+            u_repeat: rv,
+            v_repeat: ru,
+        }
+    } else {
+        SlicePlane {
+            origin,
+            u,
+            v,
+            u_repeat: ru,
+            v_repeat: rv,
+        }
+    }
 }
 
 fn lowest_voxel(grid: &Grid) -> usize {
@@ -565,17 +607,31 @@ pub fn slices(a: &Analysis) -> Vec<ReportFigure> {
         ),
         None => "through the lowest point of the cell (nothing percolates)".to_string(),
     };
+    let channel = match a.percolation.thresholds.iter().flatten().next() {
+        Some(t) => match &t.channel.span {
+            Span::Line { direction, .. } => Some(*direction),
+            _ => None,
+        },
+        None => None,
+    };
     slice_planes(a)
         .iter()
         .enumerate()
         .map(|(i, plane)| ReportFigure {
             name: format!("slice-{}", i + 1),
             caption: format!(
-                "Site energy of the probe ion in the plane of {} and {}, {}, {what}. Colour scale \
+                "{}Site energy of the probe ion in the plane of {} and {}, {}, {what}. Colour scale \
                  from the lowest energy {:.2} eV to {:.2} eV (lowest + {:.1} eV); higher energies \
                  take the top colour. Framework ions within {NEAR_PLANE_A} Å of the plane are \
                  projected onto it, and so are the sites and hop saddles open at the first \
                  threshold ({}); site labels S<i>n</i> refer to the orbits of the site table.",
+                match channel {
+                    Some(d) if dot_i(plane_key(plane.u, plane.v), d) != 0 => format!(
+                        "Cross-section of the channels along [{}], seen end-on. ",
+                        format_indices(d)
+                    ),
+                    _ => String::new(),
+                },
                 axis_name(plane.u),
                 axis_name(plane.v),
                 plane_position(plane),
