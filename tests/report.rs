@@ -216,6 +216,15 @@ fn nothing_is_fetched_from_a_network() {
 fn figures_have_axis_labels_with_units() {
     let figs = figures::all(olivine());
     assert!(figs.iter().any(|f| f.name.starts_with("slice")));
+    assert_eq!(
+        figs.iter()
+            .filter(|f| f
+                .caption
+                .starts_with("Cross-section of the channels along [010]"))
+            .count(),
+        1,
+        "one end-on cross-section of the 1D channels along b"
+    );
     assert!(figs.iter().any(|f| f.name.starts_with("profile-1d")));
     assert!(figs.iter().any(|f| f.name == "size-rate"));
     for f in &figs {
@@ -228,11 +237,20 @@ fn figures_have_axis_labels_with_units() {
                 "{}: scale bar in A",
                 f.name
             );
-            assert!(
-                has("[010]"),
-                "{}: the channel direction b is in the plane",
-                f.name
-            );
+            if f.caption.starts_with("Cross-section") {
+                // Olivine is orthorhombic: the plane perpendicular to b is the a-c plane.
+                assert!(
+                    has("[100]") && has("[001]") && !has("[010]"),
+                    "{}: the cross-section of the channels along b is the a-c plane",
+                    f.name
+                );
+            } else {
+                assert!(
+                    has("[010]"),
+                    "{}: the channel direction b is in the plane",
+                    f.name
+                );
+            }
         } else if f.name.starts_with("profile") {
             assert!(has("Path length (Å)"), "{}", f.name);
             assert!(has("Site energy (eV)"), "{}", f.name);
