@@ -166,20 +166,10 @@ pub fn formula_capacity_mah_g(
     ))
 }
 
-/// Formula of a composition, cations before anions and each group by atomic number (the order
-/// of [`crate::structure::Structure::formula_and_z`]), amounts of 1 left out.
+/// Formula of a composition, in the order of [`crate::structure::write_formula`] (increasing
+/// electronegativity: LiFePO4), amounts of 1 left out.
 pub fn composition_formula(composition: &Composition) -> String {
-    let mut els: Vec<(&Element, &f64)> = composition.iter().collect();
-    els.sort_by_key(|(e, _)| (e.is_usual_anion(), e.atomic_number()));
-    let mut s = String::new();
-    for (e, n) in els {
-        s.push_str(e.symbol());
-        if (n - 1.0).abs() > 1e-9 {
-            let t = format!("{n:.4}");
-            s.push_str(t.trim_end_matches('0').trim_end_matches('.'));
-        }
-    }
-    s
+    crate::structure::write_formula(composition.iter().map(|(e, n)| (*e, *n)))
 }
 
 /// A site the mobile ion can reach (a site of the percolating network), in fractional

@@ -155,33 +155,7 @@ impl Structure {
             .map(|k| g / k as f64)
             .find(|z| counts.iter().all(|c| whole(&(c / z))))
             .unwrap_or(if counts.iter().any(whole) { g } else { 1.0 });
-        let mut els: Vec<(&Element, &f64)> = comp.iter().collect();
-        // The inorganic chemist's order: increasing Pauling electronegativity (LiFePO4,
-        // Li7La3Zr2O12, Li6PS5Cl), elements without a value last, ties by atomic number.
-        els.sort_by(|(a, _), (b, _)| {
-            let key = |e: &Element| {
-                if e.electronegativity().is_nan() {
-                    10.0
-                } else {
-                    e.electronegativity()
-                }
-            };
-            key(a)
-                .total_cmp(&key(b))
-                .then(a.atomic_number().cmp(&b.atomic_number()))
-        });
-        let mut f = String::new();
-        for (e, n) in els {
-            let n = n / z;
-            f.push_str(e.symbol());
-            if (n - 1.0).abs() < 1e-3 {
-            } else if (n - n.round()).abs() < 1e-3 {
-                f.push_str(&format!("{}", n.round() as i64));
-            } else {
-                let s = format!("{n:.3}");
-                f.push_str(s.trim_end_matches('0').trim_end_matches('.'));
-            }
-        }
+        let f = write_formula(comp.iter().map(|(e, n)| (*e, n / z)));
         (z, f)
     }
 
@@ -215,6 +189,34 @@ pub fn format_z(z: f64) -> String {
     } else {
         format!("{z:.3}")
     }
+}
+
+/// A chemical formula in the inorganic chemist's order: increasing Pauling electronegativity
+/// (LiFePO4, Li7La3Zr2O12, Li6PS5Cl), elements without a value last, ties by atomic number;
+/// amounts of one left out, whole amounts as integers, others to three decimals.
+pub fn write_formula(amounts: impl IntoIterator<Item = (Element, f64)>) -> String {
+    let mut els: Vec<(Element, f64)> = amounts.into_iter().collect();
+    let key = |e: &Element| {
+        let x = e.electronegativity();
+        if x.is_nan() { 10.0 } else { x }
+    };
+    els.sort_by(|(a, _), (b, _)| {
+        key(a)
+            .total_cmp(&key(b))
+            .then(a.atomic_number().cmp(&b.atomic_number()))
+    });
+    let mut f = String::new();
+    for (e, n) in els {
+        f.push_str(e.symbol());
+        if (n - 1.0).abs() < 1e-3 {
+        } else if (n - n.round()).abs() < 1e-3 {
+            f.push_str(&format!("{}", n.round() as i64));
+        } else {
+            let s = format!("{n:.3}");
+            f.push_str(s.trim_end_matches('0').trim_end_matches('.'));
+        }
+    }
+    f
 }
 
 fn gcd_u64(a: u64, b: u64) -> u64 {

@@ -335,3 +335,31 @@ fn substitution_screens_a_doping_series_without_editing_files() {
         "fractions not summing to 1 are a usage error"
     );
 }
+
+/// An empty host (rutile TiO2, no Li in the file) has no redox bound until the inserted amount is
+/// given: the summary says so instead of quoting 0 mAh/g, and with `--inserted 1` it gives the
+/// one-electron Ti4+/Ti3+ bound, 335.6 mAh/g (x F / (3.6 M), M = 79.866 g/mol: arithmetic).
+#[test]
+fn an_empty_host_asks_for_the_inserted_amount_before_quoting_a_redox_capacity() {
+    let file = root("structures/reference/TiO2_rutile.cif");
+    let out = hopmap(&["paths", "--quiet", &file, "--ion", "Li"]);
+    assert!(out.status.success());
+    let text = String::from_utf8(out.stdout).unwrap();
+    let line = text
+        .lines()
+        .find(|l| l.trim_start().starts_with("capacity:"))
+        .expect("a capacity line");
+    assert!(line.contains("holds no Li"), "{line}");
+    assert!(line.contains("--inserted"), "{line}");
+    assert!(!line.contains("0.0 mAh/g"), "{line}");
+    let out = hopmap(&["paths", "--quiet", &file, "--ion", "Li", "--inserted", "1"]);
+    let text = String::from_utf8(out.stdout).unwrap();
+    let line = text
+        .lines()
+        .find(|l| l.trim_start().starts_with("capacity:"))
+        .expect("a capacity line");
+    assert!(
+        line.contains("redox bound 335.6 mAh/g (1 e per TiO2)"),
+        "{line}"
+    );
+}

@@ -63,6 +63,11 @@ fn handbook_gravimetric_capacities_to_a_tenth_of_a_mah_per_g() {
         let got = formula_capacity_mah_g(f, x).unwrap();
         assert!((got - q).abs() < 0.05, "{f}: {got:.3} mAh/g, handbook {q}");
     }
+    // Five electrons per TiNb2O7 (Ti4+/Ti3+ and two Nb5+/Nb3+): 387.6 mAh/g is the figure quoted
+    // for this anode, e.g. by Han, Huang & Goodenough, Chem. Mater. 23 (2011) 2027 (from memory);
+    // the arithmetic gives 387.67, so the quote is truncated rather than rounded.
+    let tno = formula_capacity_mah_g("TiNb2O7", 5.0).unwrap();
+    assert!((tno - 387.6).abs() < 0.1, "TiNb2O7: {tno:.3} mAh/g");
     // Quoted per gram of the lithiated LiC6 instead, the same reaction gives 339.2 mAh/g
     // (arithmetic: 96485.33212 / (3.6 x 79.005)).
     let lic6 = formula_capacity_mah_g("LiC6", 1.0).unwrap();

@@ -356,21 +356,36 @@ fn rate_section(o: &mut String, a: &Analysis, particle_um: Option<f64>) {
         }
     }
     if let Some(c) = &a.capacity {
-        let _ = writeln!(
-            o,
-            "\n  capacity: redox bound {:.1} mAh/g ({} e per {}), site bound {}, so {:.1} mAh/g{} (limited by {:?})",
-            c.redox_capacity_mah_g,
-            c.redox_electrons_per_formula_unit,
-            c.formula,
-            c.site_capacity_mah_g
-                .map(|x| format!("{x:.1} mAh/g"))
-                .unwrap_or_else(|| "-".into()),
-            c.capacity_mah_g,
-            c.capacity_mah_cm3
-                .map(|x| format!(", {x:.0} mAh/cm^3"))
-                .unwrap_or_default(),
-            c.limited_by
-        );
+        let site = c
+            .site_capacity_mah_g
+            .map(|x| format!("{x:.1} mAh/g"))
+            .unwrap_or_else(|| "not estimated".into());
+        if c.redox_electrons_per_formula_unit == 0.0 {
+            // An empty host: no redox bound until an inserted amount is given.
+            let ion = a.model.probe.element.symbol();
+            let _ = writeln!(
+                o,
+                "\n  capacity: the structure holds no {ion}, so there is no redox bound until \
+                 --inserted N ({ion} per {}) is given; site bound {site}",
+                c.formula
+            );
+        } else {
+            let _ = writeln!(
+                o,
+                "\n  capacity: redox bound {:.1} mAh/g ({} e per {}), site bound {site}, so {:.1} mAh/g{} (limited by the {} bound)",
+                c.redox_capacity_mah_g,
+                c.redox_electrons_per_formula_unit,
+                c.formula,
+                c.capacity_mah_g,
+                c.capacity_mah_cm3
+                    .map(|x| format!(", {x:.0} mAh/cm^3"))
+                    .unwrap_or_default(),
+                match c.limited_by {
+                    crate::capacity::CapacityLimit::Redox => "redox",
+                    crate::capacity::CapacityLimit::Sites => "site",
+                }
+            );
+        }
     }
 }
 
