@@ -365,35 +365,14 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     Ok(out)
 }
 
-/// The lowest path through one repeat of every channel reached. The search first stays inside
-/// the cells the translation spans (fast); when the path found there does not reach down to the
-/// channel's threshold (the channel wanders across a cell face) it is repeated with one cell of
-/// margin on every side.
+/// The lowest path through one repeat of every channel reached (below the ceiling of the
+/// percolation, so that its highest point is the channel's threshold).
 fn profiles(grid: &Grid, p: &Percolation, ceiling: f32) -> Vec<Profile> {
-    let mut out = Vec::new();
-    for t in p.thresholds.iter().flatten() {
-        for tr in t.channel.span.translations() {
-            let mut found = None;
-            for margin in [0, 1] {
-                let o = ProfileOptions {
-                    ceiling,
-                    cell_margin: margin,
-                    ..Default::default()
-                };
-                if let Some(mut prof) =
-                    network::profile::channel_profile(grid, t.channel.lowest_point, tr, &o)
-                {
-                    if prof.bottleneck <= t.energy + 1e-5 {
-                        prof.dimension = t.dimension;
-                        found = Some(prof);
-                        break;
-                    }
-                }
-            }
-            out.extend(found);
-        }
-    }
-    out
+    let o = ProfileOptions {
+        ceiling,
+        ..Default::default()
+    };
+    network::profile::channel_profiles(grid, p, &o)
 }
 
 fn timings_push(a: &mut Analysis, name: &'static str, t: Instant) {

@@ -454,7 +454,7 @@ pub(crate) fn hnf(mut rows: Vec<[i64; 3]>) -> Vec<[i64; 3]> {
 }
 
 /// True when `w` lies in the lattice whose Hermite normal form is `rows`.
-fn in_lattice(rows: &[[i64; 3]], w: [i64; 3]) -> bool {
+pub(crate) fn in_lattice(rows: &[[i64; 3]], w: [i64; 3]) -> bool {
     let mut w = w;
     for row in rows {
         let col = match row.iter().position(|&x| x != 0) {

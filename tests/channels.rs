@@ -763,3 +763,177 @@ fn the_site_graph_reproduces_the_grid_on_random_landscapes() {
     assert!(merged > 0);
     assert!(dims_seen.iter().all(|&n| n > 0), "{dims_seen:?}");
 }
+
+/// What every profile of `pr` must be, whatever the landscape: a chain of face steps from its
+/// start to the start's image one `translation` away (same voxel, position moved by exactly
+/// the translation), lengths adding up, no point above the bottleneck and one point on it.
+fn assert_profile_is_a_closed_repeat(g: &Grid, pr: &network::Profile) {
+    let (first, last) = (pr.points.first().unwrap(), pr.points.last().unwrap());
+    assert_eq!(first.voxel, pr.start_voxel);
+    assert_eq!(last.voxel, pr.start_voxel);
+    let t = nalgebra::Vector3::new(
+        pr.translation[0] as f64,
+        pr.translation[1] as f64,
+        pr.translation[2] as f64,
+    );
+    assert!((last.frac.0 - first.frac.0 - t).norm() < 1e-9);
+    let n = g.dims.map(|d| d as f64);
+    for w in pr.points.windows(2) {
+        let d = w[1].frac.0 - w[0].frac.0;
+        let steps: f64 = (0..3).map(|a| (d[a] * n[a]).abs()).sum();
+        assert!((steps - 1.0).abs() < 1e-6, "not a face step: {d:?}");
+        let expected = g.lattice.frac_delta_length(d);
+        assert!((w[1].distance - w[0].distance - expected).abs() < 1e-9);
+        assert_eq!(w[1].energy, g.values[w[1].voxel]);
+    }
+    // no path between the two images is shorter than the straight line
+    assert!(pr.length >= g.lattice.frac_delta_length(t) - 1e-9);
+    assert!((pr.length - last.distance).abs() < 1e-12);
+    assert!(pr.points.iter().all(|p| p.energy <= pr.bottleneck));
+    assert!(pr.points.iter().any(|p| p.energy == pr.bottleneck));
+}
+
+/// Below `E_d` the winding lattice of every region has rank below d, so at least one of the d
+/// translations generating the span at `E_d` is not yet a loop: the highest of their profiles'
+/// bottlenecks is `E_d` exactly, and none is above it. For d = 1 the one profile peaks at E_1D.
+fn assert_profiles_peak_at_their_thresholds(p: &Percolation, profiles: &[network::Profile]) {
+    for t in p.thresholds.iter().flatten() {
+        let mine: Vec<_> = profiles
+            .iter()
+            .filter(|q| q.dimension == t.dimension)
+            .collect();
+        let translations = t.channel.span.translations();
+        assert_eq!(mine.len(), translations.len(), "{}D", t.dimension);
+        for (q, tr) in mine.iter().zip(&translations) {
+            assert_eq!(q.translation, *tr);
+            assert_eq!(q.start_voxel, t.channel.lowest_point);
+            assert!(q.bottleneck <= t.energy, "{}D {tr:?}", t.dimension);
+        }
+        let top = mine
+            .iter()
+            .map(|q| q.bottleneck)
+            .fold(f32::NEG_INFINITY, f32::max);
+        assert_eq!(top, t.energy, "{}D", t.dimension);
+    }
+}
+
+#[test]
+fn a_channel_that_bends_across_a_cell_face_is_followed_to_its_saddle() {
+    // Cube a = 8 A, 40 points per axis. g = (1 - cos 2 pi (x - s(z))) + (1 - cos 2 pi y)
+    // + (1 - cos 2 pi z) / 2 with s(z) = -0.3 sin^2 (pi z): a valley along c whose floor bends
+    // from x = 0 at the minimum (z = 0, g = 0) to x = -0.3 at z = 1/2, where the floor is at
+    // 1, and back. Every loop along c passes the plane z = 1/2, where g >= 1, so E_1D = 1 along
+    // [001], reached on the grid point (x, z) = (-0.3, 1/2); loops along a or b pass a value
+    // of 2 or more. Under the level 1 the plane z = 1/2 is open at that point only (and at its
+    // images, the nearest other one at x = +0.7), so the lowest path from the minimum to its
+    // image one c up leaves the cell through the face x = 0 and comes back: at least 40 steps
+    // along c and 2 x 12 along a of 0.2 A, 12.8 A.
+    let n = 40;
+    let tau = 2.0 * std::f64::consts::PI;
+    let g = grid_from(
+        cell(8.0, 8.0, 8.0, 90.0, 90.0, 90.0),
+        [n, n, n],
+        |i, j, k| {
+            let (x, y, z) = (
+                i as f64 / n as f64,
+                j as f64 / n as f64,
+                k as f64 / n as f64,
+            );
+            let s = -0.3 * (std::f64::consts::PI * z).sin().powi(2);
+            (1.0 - (tau * (x - s)).cos()) + (1.0 - (tau * y).cos()) + 0.5 * (1.0 - (tau * z).cos())
+        },
+    );
+    let p = percolation::percolate(&g, f32::INFINITY);
+    assert!(close(p.energy(1).unwrap(), 1.0, 1e-6));
+    assert_eq!(direction(&p, 1), [0, 0, 1]);
+    assert_eq!(p.threshold(1).unwrap().channel.lowest_point, 0);
+    let profiles = network::profile::channel_profiles(&g, &p, &network::ProfileOptions::default());
+    assert_profiles_peak_at_their_thresholds(&p, &profiles);
+    let pr = profiles.iter().find(|q| q.dimension == 1).unwrap();
+    assert_eq!(pr.translation, [0, 0, 1]);
+    assert_profile_is_a_closed_repeat(&g, pr);
+    assert!(pr.length > 12.8 - 1e-9 && pr.length < 14.0, "{}", pr.length);
+    let top = pr
+        .points
+        .iter()
+        .find(|q| q.energy == pr.bottleneck)
+        .unwrap();
+    assert!((top.frac.0 - nalgebra::Vector3::new(-0.3, 0.0, 0.5)).norm() < 1e-9);
+    let west = pr.points.iter().map(|q| q.frac.0.x).fold(0.0, f64::min);
+    assert!((west + 0.3).abs() < 1e-9, "{west}");
+}
+
+#[test]
+fn profiles_close_and_peak_at_their_thresholds_on_random_landscapes() {
+    // No function to reason about: random values (some quantised, so that many voxels tie),
+    // odd and tiny grids, a skewed cell, walls below a ceiling. The percolation (a union-find
+    // sweep) and the profiles (a search in the periodic covering) are separate algorithms;
+    // they must agree on every threshold.
+    let mut state: u64 = 0x2545_f491_4f6c_dd1d;
+    let mut next = move || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        (state >> 11) as f64 / (1u64 << 53) as f64
+    };
+    let lattice = cell(3.1, 3.7, 4.3, 83.0, 97.0, 112.0);
+    let mut checked = [0usize; 4];
+    for dims in [
+        [6, 5, 4],
+        [1, 6, 6],
+        [2, 2, 9],
+        [9, 8, 7],
+        [12, 11, 10],
+        [16, 4, 14],
+    ] {
+        for quantum in [None, Some(6.0)] {
+            for ceiling in [0.1, 0.35, 0.5, 0.7, f32::INFINITY] {
+                let g = grid_from(lattice.clone(), dims, |_, _, _| {
+                    let v = next();
+                    match quantum {
+                        Some(q) => (v * q).floor() / q,
+                        None => v,
+                    }
+                });
+                let p = percolation::percolate(&g, ceiling);
+                let options = network::ProfileOptions {
+                    ceiling,
+                    ..Default::default()
+                };
+                let profiles = network::profile::channel_profiles(&g, &p, &options);
+                assert_profiles_peak_at_their_thresholds(&p, &profiles);
+                for pr in &profiles {
+                    assert_profile_is_a_closed_repeat(&g, pr);
+                    assert!(pr.points.iter().all(|q| q.energy < ceiling));
+                }
+                checked[p.dimension as usize] += 1;
+            }
+        }
+    }
+    assert!(checked.iter().all(|&n| n > 0), "{checked:?}");
+}
+
+#[test]
+fn reference_profiles_close_after_one_repeat_and_peak_at_the_thresholds() {
+    // Olivine LiFePO4 (1D along b, then paths across the walls between the tunnels that leave
+    // the cell sideways) and spinel Li4Ti5O12 (3D, its lowest paths wander more than half a
+    // cell off the straight line): the main job's profiles, on its own grid.
+    for (file, ion) in [
+        ("LiFePO4_olivine.cif", "Li"),
+        ("Li4Ti5O12_spinel.cif", "Li"),
+    ] {
+        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("structures/reference")
+            .join(file);
+        let s = hopmap::read::read_structure(&path, None).unwrap();
+        let opts = hopmap::analysis::AnalysisOptions::new(
+            hopmap::element::Element::from_symbol(ion).unwrap(),
+        );
+        let a = hopmap::analysis::analyse(&s, &opts).unwrap();
+        assert!(a.percolation.dimension > 0, "{file}");
+        assert_profiles_peak_at_their_thresholds(&a.percolation, &a.profiles);
+        for pr in &a.profiles {
+            assert_profile_is_a_closed_repeat(&a.landscape.energy, pr);
+        }
+    }
+}

@@ -3,24 +3,25 @@
 //!
 //! The path runs on the voxel grid (face steps) in the periodic covering of the cell, from a
 //! voxel to its own image translated by a lattice vector of the channel. It is found in two
-//! passes: first the bottleneck, the lowest level at which the two images are connected (a
-//! minimax Dijkstra); then, among the voxels at or below that level, the path of least cost,
-//! where a step costs its length (A) times `1 + w (E - E_start) / (E_bottleneck - E_start)`:
+//! passes: first the bottleneck, the lowest level at which the two images are connected, by a
+//! minimax search on the cell itself that follows the winding vectors of the loops it closes
+//! (see `bottleneck_key`); then, among the voxels at or below that level, the path of least
+//! cost, where a step costs its length (A) times `1 + w (E - E_start) / (E_bottleneck - E_start)`:
 //! with `w = 0` the shortest path under the bottleneck, with `w > 0` one that keeps to the
-//! valley floor. The search is confined to the cells spanned by the translation plus a margin,
-//! so that it stays finite when the channel is open in other directions too.
+//! valley floor. The second pass is an A* search in the covering, guided by the least length
+//! any chain of face steps to the end must still travel; no window of cells confines either
+//! pass, so the path found is the lowest and, under that level, the cheapest, wherever it
+//! wanders, and the search stays small however open the channel is in other directions.
 
 use crate::grid::Grid;
 use crate::lattice::Frac;
-use crate::percolation::{FastMap, Percolation, face_neighbours, total_key};
+use crate::percolation::{FastMap, Percolation, face_neighbours, hnf, in_lattice, total_key};
 use nalgebra::Vector3;
 use std::cmp::Reverse;
 use std::collections::BinaryHeap;
 
 #[derive(Debug, Clone, PartialEq)]
 pub struct ProfileOptions {
-    /// Cells searched beyond those spanned by the translation, per side and axis.
-    pub cell_margin: i32,
     /// Weight `w` of the energy in the cost of a step (see the module notes).
     pub energy_weight: f64,
     /// Minima along the path shallower than this (grid units) on either side are not marked
@@ -33,7 +34,6 @@ pub struct ProfileOptions {
 impl Default for ProfileOptions {
     fn default() -> Self {
         ProfileOptions {
-            cell_margin: 1,
             energy_weight: 1.0,
             min_prominence: 0.01,
             ceiling: f32::INFINITY,
@@ -88,16 +88,28 @@ impl Profile {
 }
 
 /// The profiles of every percolation threshold reached: for each, from the lowest voxel of the
-/// deepest channel, one profile per generating translation of its span.
+/// deepest channel, one profile per generating translation of its span. Thresholds reached by
+/// the same channel (a cubic network opens in 1D, 2D and 3D at once) share the same start and
+/// translations: each path is searched once.
 pub fn channel_profiles(
     grid: &Grid,
     percolation: &Percolation,
     options: &ProfileOptions,
 ) -> Vec<Profile> {
-    let mut out = Vec::new();
+    let mut out: Vec<Profile> = Vec::new();
+    let mut done: Vec<(usize, [i32; 3], Option<Profile>)> = Vec::new();
     for t in percolation.thresholds.iter().flatten() {
+        let start = t.channel.lowest_point;
         for tr in t.channel.span.translations() {
-            if let Some(mut p) = channel_profile(grid, t.channel.lowest_point, tr, options) {
+            let p = match done.iter().find(|(s, x, _)| *s == start && *x == tr) {
+                Some((_, _, p)) => p.clone(),
+                None => {
+                    let p = channel_profile(grid, start, tr, options);
+                    done.push((start, tr, p.clone()));
+                    p
+                }
+            };
+            if let Some(mut p) = p {
                 p.dimension = t.dimension;
                 out.push(p);
             }
@@ -106,128 +118,270 @@ pub fn channel_profiles(
     out
 }
 
-const BIAS: i32 = 512;
-
-fn encode(voxel: usize, cell: [i32; 3]) -> u64 {
-    let c = |x: i32| (x + BIAS) as u64 & 0x3ff;
-    (voxel as u64) | (c(cell[0]) << 32) | (c(cell[1]) << 42) | (c(cell[2]) << 52)
-}
-
-fn decode(node: u64) -> (usize, [i32; 3]) {
-    let c = |s: u32| ((node >> s) & 0x3ff) as i32 - BIAS;
-    ((node & 0xffff_ffff) as usize, [c(32), c(42), c(52)])
-}
-
-/// The profile from `start` to its image translated by `translation`; None when the two are not
-/// connected below the ceiling inside the searched cells, or the translation is zero or too
-/// long to search.
-pub fn channel_profile(
-    grid: &Grid,
-    start: usize,
-    translation: [i32; 3],
-    options: &ProfileOptions,
-) -> Option<Profile> {
-    if translation == [0, 0, 0] || start >= grid.len() || !(grid.values[start] < options.ceiling) {
-        return None;
-    }
-    let m = options.cell_margin.max(0);
-    let lo = translation.map(|t| t.min(0) - m);
-    let hi = translation.map(|t| t.max(0) + m);
-    if lo.iter().chain(hi.iter()).any(|x| x.abs() >= BIAS) {
-        return None;
-    }
-    let inside = |c: [i32; 3]| (0..3).all(|a| c[a] >= lo[a] && c[a] <= hi[a]);
+/// Pass 1: the key (see `total_key`) of the highest voxel on the lowest path from `start` to
+/// its image translated by `translation`, or None when no such path exists below the ceiling.
+///
+/// The voxels of the cell connected to `start` are visited in increasing minimax key (Prim's
+/// order), each remembering the image of the cell it was reached in. An edge between the voxel
+/// being visited and one visited earlier closes a loop whose winding vector is the difference
+/// of their images plus the step's cell translation; it is open at the key of the voxel being
+/// visited. The loops found so far generate the winding lattice of the region open at that key
+/// (fundamental cycles of the visiting tree), so the first key at which `translation` enters
+/// that lattice is the bottleneck. Runs on the cell, not its covering: at most one visit per
+/// voxel.
+fn bottleneck_key(grid: &Grid, start: usize, translation: [i32; 3], ceiling: f32) -> Option<u64> {
     let values = &grid.values;
-    let source = encode(start, [0, 0, 0]);
-    let target = encode(start, translation);
-
-    // pass 1: bottleneck
-    let mut best: FastMap<u64, u64> = FastMap::default();
+    let n = values.len();
+    let target = translation.map(i64::from);
+    let mut label = vec![u64::MAX; n];
+    let mut image = vec![[0i32; 3]; n];
+    let mut visited = vec![false; n];
+    let mut rows: Vec<[i64; 3]> = Vec::new();
     let mut heap = BinaryHeap::new();
-    let k0 = total_key(values[start], start);
-    best.insert(source, k0);
-    heap.push(Reverse((k0, source)));
-    let mut bottleneck = None;
-    while let Some(Reverse((k, node))) = heap.pop() {
-        if node == target {
-            bottleneck = Some(k);
-            break;
-        }
-        if best.get(&node).is_some_and(|&b| b < k) {
+    label[start] = total_key(values[start], start);
+    heap.push(Reverse((label[start], start as u32)));
+    while let Some(Reverse((k, x))) = heap.pop() {
+        let x = x as usize;
+        if visited[x] || k > label[x] {
             continue;
         }
-        let (x, cell) = decode(node);
+        visited[x] = true;
+        let ix = image[x];
         for (y, t) in face_neighbours(grid.dims, grid.ijk(x)) {
-            let c = [cell[0] + t[0], cell[1] + t[1], cell[2] + t[2]];
-            if !inside(c) || !(values[y] < options.ceiling) {
+            let iy = [ix[0] + t[0], ix[1] + t[1], ix[2] + t[2]];
+            if visited[y] {
+                // a loop (y == x on an axis of one point is a loop of one step)
+                let w = [0, 1, 2].map(|a| (iy[a] - image[y][a]) as i64);
+                if w != [0, 0, 0] && !in_lattice(&rows, w) {
+                    rows.push(w);
+                    rows = hnf(rows);
+                    if in_lattice(&rows, target) {
+                        return Some(k);
+                    }
+                }
+                continue;
+            }
+            if !(values[y] < ceiling) {
                 continue;
             }
             let nk = k.max(total_key(values[y], y));
-            let n = encode(y, c);
-            if best.get(&n).is_none_or(|&b| nk < b) {
-                best.insert(n, nk);
-                heap.push(Reverse((nk, n)));
+            if nk < label[y] {
+                label[y] = nk;
+                image[y] = iy;
+                heap.push(Reverse((nk, y as u32)));
             }
         }
     }
-    let bkey = bottleneck?;
-    drop(best);
+    None
+}
 
-    // pass 2: least cost under the bottleneck
-    let e0 = values[start] as f64;
+/// Where pass 2 keeps, for each point of the covering it reaches, the best cost found so far
+/// and the step that reached it. Points are unwrapped grid coordinates (the voxel plus `n_a`
+/// times the cell along each axis); they are stored under the grid index of the voxel in the
+/// low 32 bits (which the multiplicative hasher spreads over the buckets) and the cell in the
+/// high bits, 10 bits per axis.
+struct Covering {
+    dims: [i64; 3],
+    reached: FastMap<u64, (f64, u8)>,
+}
+
+impl Covering {
+    /// Key of a point; None for cells 512 or more from the start's along some axis.
+    fn slot(&self, p: [i64; 3]) -> Option<u64> {
+        const BIAS: i64 = 512;
+        let d = self.dims;
+        let cell = [0, 1, 2].map(|a| p[a].div_euclid(d[a]));
+        if cell.iter().any(|c| c.abs() >= BIAS) {
+            return None;
+        }
+        let v = [0, 1, 2].map(|a| p[a].rem_euclid(d[a]));
+        let index = ((v[0] * d[1] + v[1]) * d[2] + v[2]) as u64;
+        let c = |x: i64| (x + BIAS) as u64;
+        Some(index | (c(cell[0]) << 32) | (c(cell[1]) << 42) | (c(cell[2]) << 52))
+    }
+    /// Cost and arriving direction (0..6, or [`SOURCE`]) of a point reached.
+    fn get(&self, slot: u64) -> Option<(f64, u8)> {
+        self.reached.get(&slot).copied()
+    }
+    fn set(&mut self, slot: u64, cost: f64, dir: u8) {
+        self.reached.insert(slot, (cost, dir));
+    }
+}
+
+const SOURCE: u8 = 6;
+
+/// Unit step of face direction `dir` (0: +a, 1: -a, 2: +b, 3: -b, 4: +c, 5: -c).
+fn step(dir: usize) -> [i64; 3] {
+    let mut d = [0; 3];
+    d[dir / 2] = if dir % 2 == 0 { 1 } else { -1 };
+    d
+}
+
+/// Pass 2: the path of least cost from `from` to `to` (unwrapped grid coordinates) through
+/// voxels whose key is at most `bkey`, by A* (see the estimate below). Returns the points of
+/// the path, `from` first; None when `to` is not reached within 511 cells of the start.
+fn least_cost_path(
+    grid: &Grid,
+    from: [i64; 3],
+    to: [i64; 3],
+    bkey: u64,
+    weight: f64,
+) -> Option<Vec<[i64; 3]>> {
+    let mut store = Covering {
+        dims: grid.dims.map(|d| d as i64),
+        reached: FastMap::default(),
+    };
+    let values = &grid.values;
+    let dims = grid.dims.map(|d| d as i64);
+    let voxel = |p: [i64; 3]| {
+        let w = [0, 1, 2].map(|a| p[a].rem_euclid(dims[a]) as usize);
+        grid.index(w[0], w[1], w[2])
+    };
+    let e0 = values[voxel(from)] as f64;
     // the low half of a key is the grid index of the voxel that sets it
     let bval = values[(bkey & 0xffff_ffff) as usize] as f64;
     let span = (bval - e0).max(1e-30);
     let steps: [f64; 3] = [0, 1, 2].map(|a| grid.lattice.vector(a).norm() / grid.dims[a] as f64);
-    let w = options.energy_weight.max(0.0);
-    let mut dist: FastMap<u64, (f64, u64)> = FastMap::default();
+    // The estimate of the remaining cost. A chain of face steps from p to `to` must step into
+    // every layer of voxels (a plane of fixed index along an axis) between them, one step
+    // along that axis each; such a step costs at least its length times 1 + w r, with r the
+    // lowest rise among the open voxels of the layer it lands in. The sum of those least costs
+    // over the layers still to cross, axis by axis, never exceeds the remaining cost, and a
+    // step changes it by at most the step's cost (the triangle inequality): the first time
+    // `to` leaves the queue its cost is the least.
+    let rise_of = |v: f32| ((v as f64 - e0) / span).max(0.0);
+    let mut low = [0, 1, 2].map(|a| vec![f64::INFINITY; grid.dims[a]]);
+    for (x, &v) in values.iter().enumerate() {
+        if total_key(v, x) <= bkey {
+            let r = rise_of(v);
+            let ijk = grid.ijk(x);
+            for a in 0..3 {
+                let l = &mut low[a][ijk[a]];
+                *l = l.min(r);
+            }
+        }
+    }
+    // prefix[a][k]: least cost of stepping into layers 0..k along axis a (one period)
+    let prefix = [0, 1, 2].map(|a| {
+        let mut acc = vec![0.0; grid.dims[a] + 1];
+        for k in 0..grid.dims[a] {
+            let r = if low[a][k].is_finite() {
+                low[a][k]
+            } else {
+                0.0
+            };
+            acc[k + 1] = acc[k] + steps[a] * (1.0 + weight * r);
+        }
+        acc
+    });
+    // least cost of stepping into the unwrapped layers below k along axis a (from layer 0)
+    let below = |a: usize, k: i64| {
+        let n = dims[a];
+        prefix[a][n as usize] * k.div_euclid(n) as f64 + prefix[a][k.rem_euclid(n) as usize]
+    };
+    let estimate = |p: [i64; 3]| {
+        (0..3)
+            .map(|a| {
+                let (u, v) = (p[a], to[a]);
+                if u < v {
+                    below(a, v + 1) - below(a, u + 1)
+                } else {
+                    below(a, u) - below(a, v)
+                }
+            })
+            .sum::<f64>()
+    };
+    let s = store.slot(from)?;
+    let target = store.slot(to)?;
+    store.set(s, 0.0, SOURCE);
     let mut heap = BinaryHeap::new();
-    dist.insert(source, (0.0, source));
-    heap.push(Reverse((0u64, source)));
+    heap.push(Reverse((estimate(from).to_bits(), u64::MAX, s, from)));
     let mut reached = false;
-    while let Some(Reverse((dbits, node))) = heap.pop() {
-        let d = f64::from_bits(dbits);
-        if node == target {
+    while let Some(Reverse((_, gneg, slot, p))) = heap.pop() {
+        let g = f64::from_bits(u64::MAX - gneg);
+        if slot == target {
             reached = true;
             break;
         }
-        if dist.get(&node).is_some_and(|&(b, _)| b < d) {
+        if store.get(slot).is_some_and(|(b, _)| b < g) {
             continue;
         }
-        let (x, cell) = decode(node);
-        for (dir, (y, t)) in face_neighbours(grid.dims, grid.ijk(x))
-            .into_iter()
-            .enumerate()
-        {
-            let c = [cell[0] + t[0], cell[1] + t[1], cell[2] + t[2]];
-            if !inside(c) || total_key(values[y], y) > bkey {
+        for dir in 0..6 {
+            let d = step(dir);
+            let q = [p[0] + d[0], p[1] + d[1], p[2] + d[2]];
+            let y = voxel(q);
+            if total_key(values[y], y) > bkey {
                 continue;
             }
-            let rise = ((values[y] as f64 - e0) / span).max(0.0);
-            let nd = d + steps[dir / 2] * (1.0 + w * rise);
-            let n = encode(y, c);
-            if dist.get(&n).is_none_or(|&(b, _)| nd < b) {
-                dist.insert(n, (nd, node));
-                heap.push(Reverse((nd.to_bits(), n)));
+            let Some(qs) = store.slot(q) else { continue };
+            let rise = rise_of(values[y]);
+            let nd = g + steps[dir / 2] * (1.0 + weight * rise);
+            if store.get(qs).is_none_or(|(b, _)| nd < b) {
+                store.set(qs, nd, dir as u8);
+                let f = nd + estimate(q);
+                heap.push(Reverse((f.to_bits(), u64::MAX - nd.to_bits(), qs, q)));
             }
         }
     }
     if !reached {
         return None;
     }
-    let mut nodes = vec![target];
-    let mut cur = target;
-    while cur != source {
-        cur = dist[&cur].1;
-        nodes.push(cur);
+    let mut path = vec![to];
+    let mut p = to;
+    loop {
+        let (_, dir) = store.get(store.slot(p)?)?;
+        if dir == SOURCE {
+            break;
+        }
+        let d = step(dir as usize);
+        p = [p[0] - d[0], p[1] - d[1], p[2] - d[2]];
+        path.push(p);
     }
-    nodes.reverse();
+    path.reverse();
+    Some(path)
+}
+
+/// The profile from `start` to its image translated by `translation`; None when the two are not
+/// connected below the ceiling, or the translation is zero or too long to search.
+pub fn channel_profile(
+    grid: &Grid,
+    start: usize,
+    translation: [i32; 3],
+    options: &ProfileOptions,
+) -> Option<Profile> {
+    if translation == [0, 0, 0]
+        || start >= grid.len()
+        || grid.len() > u32::MAX as usize
+        || !(grid.values[start] < options.ceiling)
+    {
+        return None;
+    }
+    if translation.iter().any(|x| x.abs() >= 511) {
+        return None;
+    }
+    let values = &grid.values;
+    let dims = grid.dims.map(|d| d as i64);
+    let from = grid.ijk(start).map(|x| x as i64);
+    let to = [0, 1, 2].map(|a| from[a] + translation[a] as i64 * dims[a]);
+
+    // pass 1: bottleneck
+    let bkey = bottleneck_key(grid, start, translation, options.ceiling)?;
+
+    // pass 2: least cost under the bottleneck
+    let path = least_cost_path(grid, from, to, bkey, options.energy_weight.max(0.0))?;
+    let nodes: Vec<(usize, [i32; 3])> = path
+        .iter()
+        .map(|p| {
+            let c = [0, 1, 2].map(|a| p[a].div_euclid(dims[a]) as i32);
+            let v = [0, 1, 2].map(|a| p[a].rem_euclid(dims[a]) as usize);
+            (grid.index(v[0], v[1], v[2]), c)
+        })
+        .collect();
 
     let mut points = Vec::with_capacity(nodes.len());
     let mut travelled = 0.0;
     let mut last: Option<Vector3<f64>> = None;
-    for &n in &nodes {
-        let (x, cell) = decode(n);
+    for &(x, cell) in &nodes {
         let f =
             grid.frac(grid.ijk(x)).0 + Vector3::new(cell[0] as f64, cell[1] as f64, cell[2] as f64);
         if let Some(p) = last {
