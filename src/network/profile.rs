@@ -9,9 +9,13 @@
 //! cost, where a step costs its length (A) times `1 + w (E - E_start) / (E_bottleneck - E_start)`:
 //! with `w = 0` the shortest path under the bottleneck, with `w > 0` one that keeps to the
 //! valley floor. The second pass is an A* search in the covering, guided by the least length
-//! any chain of face steps to the end must still travel; no window of cells confines either
-//! pass, so the path found is the lowest and, under that level, the cheapest, wherever it
-//! wanders, and the search stays small however open the channel is in other directions.
+//! any chain of face steps to the end must still travel. It searches the cells spanned by the
+//! translation first, then those and one more on each side, and the unbounded covering only
+//! when the end is not reached in either: in a network open in other directions too (a 3D
+//! network crossing the blocks of a shear oxide), cheap detours along short axes would
+//! otherwise make the search visit millions of points in dozens of cells. So the path is always
+//! the lowest (pass 1 needs no window), and the cheapest under that level among the paths in
+//! the first window that holds one.
 
 use crate::grid::Grid;
 use crate::lattice::Frac;
@@ -226,6 +230,7 @@ fn least_cost_path(
     to: [i64; 3],
     bkey: u64,
     weight: f64,
+    window: Option<[[i64; 2]; 3]>,
 ) -> Option<Vec<[i64; 3]>> {
     let mut store = Covering {
         dims: grid.dims.map(|d| d as i64),
@@ -309,6 +314,13 @@ fn least_cost_path(
         for dir in 0..6 {
             let d = step(dir);
             let q = [p[0] + d[0], p[1] + d[1], p[2] + d[2]];
+            if let Some(w) = &window {
+                let a = dir / 2;
+                let c = q[a].div_euclid(dims[a]);
+                if c < w[a][0] || c > w[a][1] {
+                    continue;
+                }
+            }
             let y = voxel(q);
             if total_key(values[y], y) > bkey {
                 continue;
@@ -368,7 +380,16 @@ pub fn channel_profile(
     let bkey = bottleneck_key(grid, start, translation, options.ceiling)?;
 
     // pass 2: least cost under the bottleneck
-    let path = least_cost_path(grid, from, to, bkey, options.energy_weight.max(0.0))?;
+    let weight = options.energy_weight.max(0.0);
+    let window = |margin: i64| {
+        Some([0, 1, 2].map(|a| {
+            let t = translation[a] as i64;
+            [t.min(0) - margin, t.max(0) + margin]
+        }))
+    };
+    let path = least_cost_path(grid, from, to, bkey, weight, window(0))
+        .or_else(|| least_cost_path(grid, from, to, bkey, weight, window(1)))
+        .or_else(|| least_cost_path(grid, from, to, bkey, weight, None))?;
     let nodes: Vec<(usize, [i32; 3])> = path
         .iter()
         .map(|p| {
