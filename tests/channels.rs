@@ -937,3 +937,33 @@ fn reference_profiles_close_after_one_repeat_and_peak_at_the_thresholds() {
         }
     }
 }
+
+#[test]
+fn the_cubic_spinel_has_equivalent_profiles_along_a_b_and_c() {
+    // Li4Ti5O12 is cubic (Fd-3m): a, b and c are related by the threefold axes, so the lowest
+    // paths through one repeat along each are images of one another and must be as long and as
+    // high. Saddles tied in energy must all be open to the path search for that to hold.
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("structures/reference/Li4Ti5O12_spinel.cif");
+    let s = hopmap::read::read_structure(&path, None).unwrap();
+    let opts = hopmap::analysis::AnalysisOptions::new(
+        hopmap::element::Element::from_symbol("Li").unwrap(),
+    );
+    let a = hopmap::analysis::analyse(&s, &opts).unwrap();
+    let axes: Vec<_> = a
+        .profiles
+        .iter()
+        .filter(|p| p.dimension == 3)
+        .map(|p| (p.translation, p.length, p.bottleneck as f64))
+        .collect();
+    assert_eq!(axes.len(), 3, "{axes:?}");
+    for (t, len, top) in &axes {
+        assert!(
+            (len - axes[0].1).abs() < 1e-6 && (top - axes[0].2).abs() < 1e-6,
+            "{t:?}: {len:.3} A up to {top:.4} eV, against {:?}: {:.3} A up to {:.4} eV",
+            axes[0].0,
+            axes[0].1,
+            axes[0].2
+        );
+    }
+}

@@ -244,8 +244,13 @@ fn least_cost_path(
     };
     let e0 = values[voxel(from)] as f64;
     // the low half of a key is the grid index of the voxel that sets it
-    let bval = values[(bkey & 0xffff_ffff) as usize] as f64;
+    let level = values[(bkey & 0xffff_ffff) as usize];
+    let bval = level as f64;
     let span = (bval - e0).max(1e-30);
+    // Open voxels: energy at most the bottleneck's. Compared by energy, not by key, so that
+    // saddles tied with the bottleneck (the symmetry-equivalent ones of a cubic network) are
+    // all open, whatever their grid index, and equivalent directions get equivalent paths.
+    let open = |v: f32| v <= level;
     let steps: [f64; 3] = [0, 1, 2].map(|a| grid.lattice.vector(a).norm() / grid.dims[a] as f64);
     // The estimate of the remaining cost. A chain of face steps from p to `to` must step into
     // every layer of voxels (a plane of fixed index along an axis) between them, one step
@@ -257,7 +262,7 @@ fn least_cost_path(
     let rise_of = |v: f32| ((v as f64 - e0) / span).max(0.0);
     let mut low = [0, 1, 2].map(|a| vec![f64::INFINITY; grid.dims[a]]);
     for (x, &v) in values.iter().enumerate() {
-        if total_key(v, x) <= bkey {
+        if open(v) {
             let r = rise_of(v);
             let ijk = grid.ijk(x);
             for a in 0..3 {
@@ -322,7 +327,7 @@ fn least_cost_path(
                 }
             }
             let y = voxel(q);
-            if total_key(values[y], y) > bkey {
+            if !open(values[y]) {
                 continue;
             }
             let Some(qs) = store.slot(q) else { continue };
