@@ -713,19 +713,24 @@ fn close_minima_merge_only_when_that_keeps_the_network_exact() {
     assert!(tunnels.iter().all(|s| s.minima == 1));
 }
 
+/// A small deterministic random source (xorshift64), uniform in [0, 1).
+fn xorshift(seed: u64) -> impl FnMut() -> f64 {
+    let mut state = seed;
+    move || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        (state >> 11) as f64 / (1u64 << 53) as f64
+    }
+}
+
 #[test]
 fn the_site_graph_reproduces_the_grid_on_random_landscapes() {
     // No function to reason about here: random values (some quantised to force ties), odd and
     // tiny grids (1 or 2 points on an axis), a skewed cell, walls below a ceiling, and a merge
     // distance large enough that many minima are grouped and some groups must be split again.
     // Whatever the landscape, the site graph must give the grid's percolation exactly.
-    let mut state: u64 = 0x9e37_79b9_7f4a_7c15;
-    let mut next = move || {
-        state ^= state << 13;
-        state ^= state >> 7;
-        state ^= state << 17;
-        (state >> 11) as f64 / (1u64 << 53) as f64
-    };
+    let mut next = xorshift(0x9e37_79b9_7f4a_7c15);
     let lattice = cell(3.1, 3.7, 4.3, 83.0, 97.0, 112.0);
     let cases: [([usize; 3], Option<f64>, f64); 8] = [
         ([6, 5, 4], None, 0.5),
@@ -869,13 +874,7 @@ fn profiles_close_and_peak_at_their_thresholds_on_random_landscapes() {
     // odd and tiny grids, a skewed cell, walls below a ceiling. The percolation (a union-find
     // sweep) and the profiles (a search in the periodic covering) are separate algorithms;
     // they must agree on every threshold.
-    let mut state: u64 = 0x2545_f491_4f6c_dd1d;
-    let mut next = move || {
-        state ^= state << 13;
-        state ^= state >> 7;
-        state ^= state << 17;
-        (state >> 11) as f64 / (1u64 << 53) as f64
-    };
+    let mut next = xorshift(0x2545_f491_4f6c_dd1d);
     let lattice = cell(3.1, 3.7, 4.3, 83.0, 97.0, 112.0);
     let mut checked = [0usize; 4];
     for dims in [
