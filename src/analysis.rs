@@ -99,7 +99,9 @@ impl AnalysisOptions {
 pub struct ChannelTransport {
     pub dimension: u8,
     pub barrier_ev: f64,
-    /// Mean length of the hops inside the network at its threshold (A).
+    /// Hop length of the hopping model (A): the channel's repeat over the rate-limiting passes
+    /// along its profile (see `hop_length_from_profile`), or the mean length of the open hops
+    /// when there is no profile.
     pub hop_length_a: f64,
     /// Diffusion coefficient at the chosen temperature (m^2/s).
     pub diffusion_m2_s: f64,
@@ -380,8 +382,15 @@ fn timings_push(a: &mut Analysis, name: &'static str, t: Instant) {
 }
 
 /// Hop length (A) of the hopping model from a channel profile: the repeat length of the
-/// channel divided by the number of distinct resting sites along one repeat, where minima
-/// separated by less than [`SHALLOW_SITE_EV`] from their neighbours count as one site.
+/// channel divided by the number of rate-limiting passes along one repeat, i.e. of the times
+/// the path climbs to within [`SHALLOW_SITE_EV`] of its highest point after having been at
+/// least twice that far below it.
+///
+/// Random-walk arithmetic: along a periodic chain of period L crossed over n equal barriers,
+/// a walker makes hops of L/n at the rate over one barrier, so `D = (L/n)^2 Gamma / 2`; when one
+/// barrier per period dominates and the others are lower, the period is crossed at about the
+/// rate over that one, so `D ~ L^2 Gamma / 2` and the intermediate minima (a tunnel's cavity and
+/// window sites, say) do not shorten the hop. Counting the passes near the top covers both.
 fn hop_length_from_profile(p: &Profile, lattice: &crate::lattice::Lattice) -> Option<f64> {
     let t = nalgebra::Vector3::new(
         p.translation[0] as f64,
@@ -389,32 +398,24 @@ fn hop_length_from_profile(p: &Profile, lattice: &crate::lattice::Lattice) -> Op
         p.translation[2] as f64,
     );
     let repeat = lattice.frac_delta_length(t);
-    // walk the profile: a new site starts each time the path climbs SHALLOW_SITE_EV above the
-    // last minimum and comes back down by as much
-    let shallow = SHALLOW_SITE_EV as f32;
-    let mut sites = 0usize;
-    let mut low = f32::INFINITY;
-    let mut climbed = false;
-    let mut high = f32::NEG_INFINITY;
+    let band = SHALLOW_SITE_EV as f32;
+    let top = p
+        .points
+        .iter()
+        .map(|q| q.energy)
+        .fold(f32::NEG_INFINITY, f32::max);
+    let mut passes = 0usize;
+    let mut armed = true;
     for q in &p.points {
-        let e = q.energy;
-        if !climbed {
-            low = low.min(e);
-            if e > low + shallow {
-                climbed = true;
-                high = e;
-            }
-        } else {
-            high = high.max(e);
-            if e < high - shallow {
-                sites += 1;
-                climbed = false;
-                low = e;
-            }
+        if armed && q.energy >= top - band {
+            passes += 1;
+            armed = false;
+        } else if !armed && q.energy <= top - 2.0 * band {
+            armed = true;
         }
     }
-    let sites = sites.max(1);
-    (repeat > 0.0).then(|| repeat / sites as f64)
+    let passes = passes.max(1);
+    (repeat > 0.0).then(|| repeat / passes as f64)
 }
 
 /// Mean length (A) of the hops open at `level`, in the network reached at that level.

@@ -497,6 +497,38 @@ fn in_the_tinb2o7_block_oxide_lithium_runs_down_the_tunnels_and_crossing_the_she
     );
 }
 
+/// The hop length of the hopping model is the channel's repeat over its rate-limiting passes.
+/// Expected values from the crystallography of each file: olivine LiFePO4, two equivalent
+/// M1 (4a) sites per b repeat, so b/2 (the ~3 A hop of the field); layered LiCoO2, one Li per
+/// in-plane repeat, so a (the Li-Li distance); rutile, two empty octahedral sites per c, so c/2;
+/// the TiNb2O7 tunnel, one dominant barrier per b repeat, so b, however many shallow cavity and
+/// window minima lie between.
+#[test]
+fn the_hop_length_is_the_repeat_over_the_rate_limiting_passes() {
+    for (file, dim, expected) in [
+        ("LiFePO4_olivine.cif", 1u8, 6.010 / 2.0),
+        ("LiCoO2_layered.cif", 2, 2.8156),
+        ("TiO2_rutile.cif", 1, 2.9587 / 2.0),
+        ("TiNb2O7_block.cif", 1, 3.801),
+    ] {
+        let o = outcomes()
+            .iter()
+            .find(|o| o.row.file == file)
+            .unwrap_or_else(|| panic!("references.csv has {file}"));
+        let t = o
+            .analysis
+            .transport
+            .iter()
+            .find(|t| t.dimension == dim)
+            .unwrap_or_else(|| panic!("{file}: no {dim}D transport estimate"));
+        assert!(
+            (t.hop_length_a - expected).abs() < 2e-3,
+            "{file}: hop {:.4} A, expected {expected:.4} A",
+            t.hop_length_a
+        );
+    }
+}
+
 #[test]
 fn the_site_graph_percolates_at_the_grid_energies_on_every_reference() {
     for o in outcomes() {

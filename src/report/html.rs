@@ -728,15 +728,16 @@ fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut Stri
         o,
         "<p>Diffusion coefficient of {} through each percolating network at {temp}, from the \
          hopping model D = f (1 − c) a² ν<sub>0</sub> exp(−E<sub>a</sub> / k<sub>B</sub>T) / (2d), \
-         with E<sub>a</sub> the network's barrier, a the mean length of the hops open at its \
-         threshold and d its dimension.</p>",
+         with E<sub>a</sub> the network's barrier, a the hop length (the repeat of the \
+         network's lowest path divided by the number of passes within 0.05 eV of its highest \
+         point: shallow minima in between do not shorten the hop) and d its dimension.</p>",
         ion_name(a)
     );
     o.push_str("<table>\n");
     o.push_str(&th_row(&[
         "network",
         "barrier E<sub>a</sub> (eV)",
-        "mean hop a (Å)",
+        "hop a (Å)",
         &format!("D at {temp} (m²/s)"),
         "basis",
         "attempt frequency ν<sub>0</sub> (Hz)",

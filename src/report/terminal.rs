@@ -316,7 +316,7 @@ fn rate_section(o: &mut String, a: &Analysis, particle_um: Option<f64>) {
     if let Some(t) = a.transport.first() {
         let _ = writeln!(
             o,
-            "\n  transport in the {}D network ({}): barrier {:.3} eV, mean hop {:.2} A, D({} K) = {:.2e} m^2/s{}",
+            "\n  transport in the {}D network ({}): barrier {:.3} eV, hop {:.2} A, D({} K) = {:.2e} m^2/s{}",
             t.dimension,
             t.basis,
             t.barrier_ev,
