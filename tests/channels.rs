@@ -724,6 +724,23 @@ fn xorshift(seed: u64) -> impl FnMut() -> f64 {
     }
 }
 
+/// A grid of random values in [0, 1), rounded down to multiples of 1/q when a quantum q is given
+/// (so that many voxels tie).
+fn random_grid(
+    lattice: &Lattice,
+    dims: [usize; 3],
+    quantum: Option<f64>,
+    next: &mut impl FnMut() -> f64,
+) -> Grid {
+    grid_from(lattice.clone(), dims, |_, _, _| {
+        let v = next();
+        match quantum {
+            Some(q) => (v * q).floor() / q,
+            None => v,
+        }
+    })
+}
+
 #[test]
 fn the_site_graph_reproduces_the_grid_on_random_landscapes() {
     // No function to reason about here: random values (some quantised to force ties), odd and
@@ -745,13 +762,7 @@ fn the_site_graph_reproduces_the_grid_on_random_landscapes() {
     let (mut merged, mut dims_seen) = (0, [0usize; 4]);
     for (dims, quantum, merge) in cases {
         for ceiling in [0.2, 0.3, 0.35, 0.5, f32::INFINITY] {
-            let g = grid_from(lattice.clone(), dims, |_, _, _| {
-                let v = next();
-                match quantum {
-                    Some(q) => (v * q).floor() / q,
-                    None => v,
-                }
-            });
+            let g = random_grid(&lattice, dims, quantum, &mut next);
             let options = NetworkOptions {
                 sites: network::SiteOptions {
                     merge_distance: merge,
@@ -887,13 +898,7 @@ fn profiles_close_and_peak_at_their_thresholds_on_random_landscapes() {
     ] {
         for quantum in [None, Some(6.0)] {
             for ceiling in [0.1, 0.35, 0.5, 0.7, f32::INFINITY] {
-                let g = grid_from(lattice.clone(), dims, |_, _, _| {
-                    let v = next();
-                    match quantum {
-                        Some(q) => (v * q).floor() / q,
-                        None => v,
-                    }
-                });
+                let g = random_grid(&lattice, dims, quantum, &mut next);
                 let p = percolation::percolate(&g, ceiling);
                 let options = network::ProfileOptions {
                     ceiling,

@@ -600,20 +600,19 @@ fn repeats_words(plane: &SlicePlane) -> String {
 /// The slice figures.
 pub fn slices(a: &Analysis) -> Vec<ReportFigure> {
     let (lo, hi) = slice_range_ev(a);
-    let what = match a.percolation.thresholds.iter().flatten().next() {
+    let first = a.percolation.thresholds.iter().flatten().next();
+    let what = match first {
         Some(t) => format!(
             "through the lowest point of the first channel to open ({}, at {:.3} eV)",
             t.channel.span, t.energy
         ),
         None => "through the lowest point of the cell (nothing percolates)".to_string(),
     };
-    let channel = match a.percolation.thresholds.iter().flatten().next() {
-        Some(t) => match &t.channel.span {
-            Span::Line { direction, .. } => Some(*direction),
-            _ => None,
-        },
-        None => None,
-    };
+    // the direction of a 1D channel, to name the slice across it
+    let channel = first.and_then(|t| match &t.channel.span {
+        Span::Line { direction, .. } => Some(*direction),
+        _ => None,
+    });
     slice_planes(a)
         .iter()
         .enumerate()

@@ -729,9 +729,10 @@ fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut Stri
         "<p>Diffusion coefficient of {} through each percolating network at {temp}, from the \
          hopping model D = f (1 − c) a² ν<sub>0</sub> exp(−E<sub>a</sub> / k<sub>B</sub>T) / (2d), \
          with E<sub>a</sub> the network's barrier, a the hop length (the repeat of the \
-         network's lowest path divided by the number of passes within 0.05 eV of its highest \
+         network's lowest path divided by the number of passes within {} eV of its highest \
          point: shallow minima in between do not shorten the hop) and d its dimension.</p>",
-        ion_name(a)
+        ion_name(a),
+        crate::analysis::SHALLOW_SITE_EV
     );
     o.push_str("<table>\n");
     o.push_str(&th_row(&[

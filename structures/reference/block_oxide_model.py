@@ -31,8 +31,9 @@ model's bond lengths.
 
 Run: python structures/reference/block_oxide_model.py   (needs numpy and scipy; 1-2 minutes)
 It prints the asymmetric unit that make_reference.py lists for TiNb2O7_block.cif.
-With --check, it compares the refinement with the coordinates in TiNb2O7_block.cif (read with
-gemmi) and exits 1 if any site is off by more than 0.002 in x or z (CI runs this).
+With --check, it compares the refinement with the cell and coordinates in TiNb2O7_block.cif
+(read with gemmi) and exits 1 if the cell differs or any site is off by more than 0.002 in x or
+z (CI runs this).
 """
 
 from __future__ import annotations
@@ -176,13 +177,19 @@ def check(cif_path: str, sites: list[np.ndarray], n_metal: int, tol: float = 0.0
     import gemmi
 
     block = gemmi.cif.read(cif_path).sole_block()
+    failures = []
+    for tag, want in zip(
+        ("_cell_length_a", "_cell_length_b", "_cell_length_c", "_cell_angle_beta"), CELL
+    ):
+        got = gemmi.cif.as_number(block.find_value(tag))
+        if abs(got - want) > 1e-6:
+            failures.append(f"{tag} = {got}, the refinement used {want}")
     table = block.find(["_atom_site_label", "_atom_site_fract_x", "_atom_site_fract_z"])
     in_file = {}
     for row in table:
         label = row.str(0)
         kind = "O" if label.startswith("O") else "M"
         in_file[(kind, round(float(row.str(1)), 6), round(float(row.str(2)), 6))] = label
-    failures = []
     unmatched = [("M" if i < n_metal else "O", p) for i, p in enumerate(sites)]
     for (kind, x, z), label in sorted(in_file.items(), key=lambda kv: kv[1]):
         hit = None
