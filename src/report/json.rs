@@ -244,6 +244,7 @@ pub fn paths(a: &Analysis, file: &str) -> Value {
                 "length_a": round(p.length, 4),
                 "bottleneck_ev": round(p.bottleneck as f64, 4),
                 "points": p.points.iter().map(|q| json!([round(q.distance, 4), round(q.energy as f64, 4)])).collect::<Vec<_>>(),
+                "points_frac": p.points.iter().map(|q| frac3(q.frac)).collect::<Vec<_>>(),
                 "sites": p.sites().map(|q| json!({"distance_a": round(q.distance, 4), "energy_ev": round(q.energy as f64, 4), "frac": frac3(q.frac)})).collect::<Vec<_>>(),
                 "saddles": p.saddles().map(|q| json!({"distance_a": round(q.distance, 4), "energy_ev": round(q.energy as f64, 4), "frac": frac3(q.frac)})).collect::<Vec<_>>(),
             })
