@@ -27,6 +27,13 @@ pub fn default_spacing_a(volume_a3: f64) -> f64 {
     s.clamp(0.1, 0.25)
 }
 
+/// Radius (A) around an occupied site of the mobile ion within which its well is read off the
+/// grid: the lowest point this close to the site is where the ion sits in the landscape.
+pub const OCCUPIED_WELL_RADIUS_A: f64 = 0.5;
+
+/// An empty pocket deeper than the occupied sites by more than this (eV) is reported apart.
+pub const DEEPER_VOID_EV: f64 = 0.05;
+
 /// Minima shallower than this (eV, the lowest barrier out of the site) are listed apart in
 /// summaries: they are points in flat valleys or grid artefacts rather than sites an ion rests on.
 pub const SHALLOW_SITE_EV: f64 = 0.05;
@@ -223,6 +230,38 @@ pub fn mobile_sites(s: &Structure, ion: Element) -> Vec<MobileSite> {
         .collect()
 }
 
+/// The grid point where each occupied site of the mobile ion sits in the landscape: the lowest
+/// point within [`OCCUPIED_WELL_RADIUS_A`] of the site. Barriers are measured from these points
+/// (see [`percolation::percolate_marked`]).
+pub fn occupied_wells(grid: &Grid, sites: &[MobileSite]) -> Vec<usize> {
+    let mut v: Vec<usize> = sites
+        .iter()
+        .map(|s| grid.lowest_within(s.frac, OCCUPIED_WELL_RADIUS_A))
+        .collect();
+    v.sort_unstable();
+    v.dedup();
+    v
+}
+
+/// Says so when a network's lowest point is an empty pocket clearly deeper than the sites the
+/// ion occupies (the barrier is then measured from the occupied sites).
+fn deeper_void_warning(p: &Percolation, grid: &Grid, warnings: &mut Vec<String>) {
+    let Some(t) = p.thresholds.iter().flatten().next() else {
+        return;
+    };
+    let Some(occupied) = t.marked_lowest else {
+        return;
+    };
+    let depth = occupied - t.channel.lowest;
+    if depth as f64 > DEEPER_VOID_EV {
+        let f = grid.frac(grid.ijk(t.channel.lowest_point)).wrapped();
+        warnings.push(format!(
+            "the landscape's lowest point, an empty pocket at ({:.3}, {:.3}, {:.3}), lies {:.2} eV below the sites the ion occupies; barriers are measured from the occupied sites",
+            f.0.x, f.0.y, f.0.z, depth
+        ));
+    }
+}
+
 /// Model and grids only: the first half of [`analyse`], shared with `hopmap grid` and the
 /// calibration.
 pub fn model_and_landscape(
@@ -281,7 +320,10 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
 
     let t = Instant::now();
     let ceiling = model.energy_cap as f32;
-    let percolation = percolation::percolate(&land.energy, ceiling);
+    let mobile = mobile_sites(&s, opts.ion);
+    let marks = occupied_wells(&land.energy, &mobile);
+    let percolation = percolation::percolate_marked(&land.energy, ceiling, &marks);
+    deeper_void_warning(&percolation, &land.energy, &mut warnings);
     let mismatch_percolation = percolation::percolate(&land.mismatch, model.mismatch_cap as f32);
     timings.push(("percolation", t.elapsed().as_secs_f64()));
 

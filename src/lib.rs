@@ -24,6 +24,7 @@ pub mod percolation;
 pub mod plot;
 pub mod read;
 pub mod report;
+pub mod scoring;
 pub mod screen;
 pub mod spacegroup;
 pub mod structure;

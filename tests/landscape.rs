@@ -71,6 +71,7 @@ fn cation(symbol: &str, q: f64, rho: f64) -> CationKind {
         charge: q,
         rho,
         radius: 0.7,
+        exclusion: None,
     }
 }
 
@@ -95,6 +96,7 @@ fn model(
         anions,
         cations,
         atoms,
+        mobile: None,
         coulomb_cutoff: 8.0,
         energy_cap: 10.0,
         mismatch_cap: 10.0,

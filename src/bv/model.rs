@@ -46,10 +46,16 @@ use super::radii::RadiusValue;
 use super::valence::valence_check;
 use crate::element::Element;
 use crate::landscape::{
-    AnionKind, CationKind, FrameworkAtom, FrameworkKind, LandscapeModel, ProbeIon,
+    AnionKind, CationKind, Exclusion, FrameworkAtom, FrameworkKind, LandscapeModel,
+    MobileRepulsion, ProbeIon,
 };
 use crate::structure::{Species, Structure};
 use std::collections::BTreeMap;
+
+/// Bond length (A) at which the length rule of the well depth leaves `d0_ev` unchanged: the
+/// Morse minimum of Li-O at N_A = 5 with the softness-sensitive parameters (1.1745 + 0.514 ln 5
+/// = 2.0 A).
+pub const D0_REFERENCE_RMIN_A: f64 = 2.0;
 
 /// The calibration knobs of the landscape model. Plain numbers; [`Default`] gives the
 /// documented starting values (see the module docs).
@@ -63,6 +69,20 @@ pub struct ModelKnobs {
     pub screening_factor: f64,
     /// Cation charges and the probe charge are the formal valences times this.
     pub charge_scale: f64,
+    /// Charges of the repulsion are `V / n^p` with n the period of the element (the principal
+    /// quantum number of its valence shell) and p this exponent; 0 keeps formal valences.
+    pub charge_shell_exponent: f64,
+    /// `D0 = d0_ev x V_A x (D0_REFERENCE_RMIN_A / Rmin)^p` per probe-anion pair, p this
+    /// exponent: 0 gives one depth for every pair; p > 0 makes longer (softer, larger-ion) bonds
+    /// shallower, as the electrostatic energy of a bond scales with 1/R.
+    pub d0_length_exponent: f64,
+    /// Charge scale of the other mobile ions of the structure, left at their sites as a mean
+    /// field that repels the probe (0: not modelled, the probe sees the bare framework).
+    pub mobile_charge_scale: f64,
+    /// Exclusion switch of the mobile-ion repulsion (A): ions within `inner` of the probe take
+    /// no part, ions beyond `outer` repel in full (see [`crate::landscape::Exclusion`]).
+    pub mobile_exclusion_inner_a: f64,
+    pub mobile_exclusion_outer_a: f64,
     /// Cutoff of the Morse and bond-valence terms (A); `None`: each pair's own cutoff.
     pub morse_cutoff_a: Option<f64>,
     /// Cutoff of the screened repulsion (A); `None`: `max(8, 4 x largest rho)`.
@@ -86,6 +106,11 @@ impl Default for ModelKnobs {
             d0_scales_with_valence: true,
             screening_factor: 0.75,
             charge_scale: 1.0,
+            charge_shell_exponent: 0.0,
+            d0_length_exponent: 0.0,
+            mobile_charge_scale: 0.0,
+            mobile_exclusion_inner_a: 1.0,
+            mobile_exclusion_outer_a: 1.6,
             morse_cutoff_a: None,
             coulomb_cutoff_a: None,
             energy_cap_ev: 10.0,
@@ -324,12 +349,15 @@ pub fn build_model(
     }
     let s_eq = valence / coordination;
     let probe_radius = table.radii.lookup(ion, valence, coordination)?;
-    // D0
+    // D0: the depth per bond before the length rule
     let d0 = if knobs.d0_scales_with_valence {
         knobs.d0_ev * valence
     } else {
         knobs.d0_ev
     };
+    let pair_d0 = |rmin: f64| d0 * (D0_REFERENCE_RMIN_A / rmin).powf(knobs.d0_length_exponent);
+    let shell = |e: Element| (e.period() as f64).powf(-knobs.charge_shell_exponent);
+    let probe_charge = valence * knobs.charge_scale * shell(ion);
     // coordination numbers of the framework species in the full structure
     let counted = coordination_numbers(structure, table, &mut notes);
     // anion kinds
@@ -354,7 +382,7 @@ pub fn build_model(
             r0: p.r0,
             b: p.b,
             rmin,
-            d0,
+            d0: pair_d0(rmin),
             cutoff,
             radius: radius.radius,
             source,
@@ -371,13 +399,58 @@ pub fn build_model(
         let radius = table.radii.lookup(sp.element, q, cn)?;
         cations.push(CationKind {
             species: sp.clone(),
-            charge: q * knobs.charge_scale,
+            charge: q * knobs.charge_scale * shell(sp.element),
             rho: knobs.screening_factor * (probe_radius.radius + radius.radius),
             radius: radius.radius,
+            exclusion: None,
         });
         radii.push(radius);
     }
-    let max_rho = cations.iter().map(|c| c.rho).fold(0.0, f64::max);
+    // the other ions of the mobile species, left at their sites as a repelling mean field
+    let mobile = if knobs.mobile_charge_scale > 0.0 && removed_mobile > 0.0 {
+        let sites: Vec<(crate::lattice::Frac, f64)> = structure
+            .sites
+            .iter()
+            .filter_map(|site| {
+                let occ: f64 = site
+                    .occupants
+                    .iter()
+                    .filter(|o| o.species.element == ion)
+                    .map(|o| o.occupancy)
+                    .sum();
+                (occ > 0.0).then_some((site.frac, occ))
+            })
+            .collect();
+        notes.push(format!(
+            "the {ion} ions of the structure repel the probe from their sites (mean field, charge \
+             scale {}; ions closer than {}-{} A to the probe take no part)",
+            knobs.mobile_charge_scale,
+            knobs.mobile_exclusion_inner_a,
+            knobs.mobile_exclusion_outer_a
+        ));
+        Some(MobileRepulsion {
+            kind: CationKind {
+                species: Species::new(ion, Some(valence)),
+                charge: valence * knobs.mobile_charge_scale * shell(ion),
+                rho: knobs.screening_factor * 2.0 * probe_radius.radius,
+                radius: probe_radius.radius,
+                exclusion: Some(Exclusion {
+                    inner: knobs.mobile_exclusion_inner_a,
+                    outer: knobs
+                        .mobile_exclusion_outer_a
+                        .max(knobs.mobile_exclusion_inner_a + 1e-3),
+                }),
+            },
+            sites,
+        })
+    } else {
+        None
+    };
+    let max_rho = cations
+        .iter()
+        .chain(mobile.as_ref().map(|m| &m.kind))
+        .map(|c| c.rho)
+        .fold(0.0, f64::max);
     let coulomb_cutoff = knobs.coulomb_cutoff_a.unwrap_or((4.0 * max_rho).max(8.0));
     if coulomb_cutoff < 3.0 * max_rho {
         notes.push(format!(
@@ -417,13 +490,14 @@ pub fn build_model(
         probe: ProbeIon {
             element: ion,
             valence,
-            charge: valence * knobs.charge_scale,
+            charge: probe_charge,
             coordination,
             radius: probe_radius.radius,
         },
         anions,
         cations,
         atoms,
+        mobile,
         coulomb_cutoff,
         energy_cap: knobs.energy_cap_ev,
         mismatch_cap: knobs.mismatch_cap,

@@ -59,6 +59,11 @@ struct ModelSection {
     d0_scales_with_valence: Option<Spanned<bool>>,
     screening_factor: Option<Spanned<f64>>,
     charge_scale: Option<Spanned<f64>>,
+    charge_shell_exponent: Option<Spanned<f64>>,
+    d0_length_exponent: Option<Spanned<f64>>,
+    mobile_charge_scale: Option<Spanned<f64>>,
+    mobile_exclusion_inner_a: Option<Spanned<f64>>,
+    mobile_exclusion_outer_a: Option<Spanned<f64>>,
     morse_cutoff_a: Option<Spanned<f64>>,
     coulomb_cutoff_a: Option<Spanned<f64>>,
     energy_cap_ev: Option<Spanned<f64>>,
@@ -207,6 +212,23 @@ impl Overrides {
             number("d0_ev", &m.d0_ev, Some(-1e-300))?;
             number("screening_factor", &m.screening_factor, Some(0.0))?;
             number("charge_scale", &m.charge_scale, Some(-1e-300))?;
+            number(
+                "charge_shell_exponent",
+                &m.charge_shell_exponent,
+                Some(-1e-300),
+            )?;
+            number("d0_length_exponent", &m.d0_length_exponent, None)?;
+            number("mobile_charge_scale", &m.mobile_charge_scale, Some(-1e-300))?;
+            number(
+                "mobile_exclusion_inner_a",
+                &m.mobile_exclusion_inner_a,
+                Some(-1e-300),
+            )?;
+            number(
+                "mobile_exclusion_outer_a",
+                &m.mobile_exclusion_outer_a,
+                Some(0.0),
+            )?;
             number("morse_cutoff_a", &m.morse_cutoff_a, Some(0.0))?;
             number("coulomb_cutoff_a", &m.coulomb_cutoff_a, Some(0.0))?;
             number("energy_cap_ev", &m.energy_cap_ev, Some(0.0))?;
@@ -341,6 +363,11 @@ impl Overrides {
                         "d0_ev" => knobs.d0_ev = v,
                         "screening_factor" => knobs.screening_factor = v,
                         "charge_scale" => knobs.charge_scale = v,
+                        "charge_shell_exponent" => knobs.charge_shell_exponent = v,
+                        "d0_length_exponent" => knobs.d0_length_exponent = v,
+                        "mobile_charge_scale" => knobs.mobile_charge_scale = v,
+                        "mobile_exclusion_inner_a" => knobs.mobile_exclusion_inner_a = v,
+                        "mobile_exclusion_outer_a" => knobs.mobile_exclusion_outer_a = v,
                         "morse_cutoff_a" => knobs.morse_cutoff_a = Some(v),
                         "coulomb_cutoff_a" => knobs.coulomb_cutoff_a = Some(v),
                         "energy_cap_ev" => knobs.energy_cap_ev = v,

@@ -38,7 +38,7 @@
 //! [`evaluate_point`] calls `libm::erfc` directly. Fields are stored as f32 (4 bytes per point
 //! per field).
 
-use super::model::{COULOMB_EV_A, FrameworkKind, LandscapeModel};
+use super::model::{COULOMB_EV_A, Exclusion, FrameworkKind, LandscapeModel};
 use crate::grid::Grid;
 use crate::lattice::{Frac, Lattice};
 use nalgebra::{Matrix3, Vector3};
@@ -151,11 +151,13 @@ struct CationTerms {
 /// Table intervals per screening length.
 const TABLE_STEPS_PER_RHO: f64 = 256.0;
 
-/// `g(R) = erfc(R / rho) / R` as cubic polynomials on intervals of rho/256 from R = rho/2 to the
-/// reach of the kind, built from exact values and slopes at the interval ends (cubic Hermite).
+/// `g(R) = S(R) erfc(R / rho) / R` as cubic polynomials on intervals of rho/256 from R = rho/2 to
+/// the reach of the kind, built from exact values and slopes at the interval ends (cubic
+/// Hermite); `S` is the kind's exclusion switch (1 for framework cations).
 #[derive(Debug, Clone)]
 struct ScreenedTable {
     rho: f64,
+    exclusion: Option<Exclusion>,
     r_lo: f64,
     inv_h: f64,
     /// Per interval, coefficients of `c0 + c1 t + c2 t^2 + c3 t^3` with t in [0, 1).
@@ -163,11 +165,17 @@ struct ScreenedTable {
 }
 
 impl ScreenedTable {
-    fn new(rho: f64, reach: f64) -> Self {
-        let g = |r: f64| libm::erfc(r / rho) / r;
-        let dg = |r: f64| {
+    fn new(rho: f64, reach: f64, exclusion: Option<Exclusion>) -> Self {
+        let plain = |r: f64| libm::erfc(r / rho) / r;
+        let dplain = |r: f64| {
             let x = r / rho;
-            -std::f64::consts::FRAC_2_SQRT_PI * (-x * x).exp() / (rho * r) - g(r) / r
+            -std::f64::consts::FRAC_2_SQRT_PI * (-x * x).exp() / (rho * r) - plain(r) / r
+        };
+        let switch = |r: f64| exclusion.map_or((1.0, 0.0), |e| e.switch(r));
+        let g = |r: f64| switch(r).0 * plain(r);
+        let dg = |r: f64| {
+            let (sw, dsw) = switch(r);
+            sw * dplain(r) + dsw * plain(r)
         };
         let h = rho / TABLE_STEPS_PER_RHO;
         let r_lo = 0.5 * rho;
@@ -190,13 +198,14 @@ impl ScreenedTable {
             .collect();
         ScreenedTable {
             rho,
+            exclusion,
             r_lo,
             inv_h: 1.0 / h,
             coef,
         }
     }
 
-    /// `erfc(r / rho) / r` for r > 0 (direct evaluation below rho/2 and past the table).
+    /// `S(r) erfc(r / rho) / r` for r > 0 (direct evaluation below rho/2 and past the table).
     #[inline(always)]
     fn eval(&self, r: f64) -> f64 {
         let t = (r - self.r_lo) * self.inv_h;
@@ -207,7 +216,17 @@ impl ScreenedTable {
                 return c[0] + t * (c[1] + t * (c[2] + t * c[3]));
             }
         }
-        libm::erfc(r / self.rho) / r
+        screened_direct(r, self.rho, self.exclusion)
+    }
+}
+
+/// `S(r) erfc(r / rho) / r`, straight from the formula.
+fn screened_direct(r: f64, rho: f64, exclusion: Option<Exclusion>) -> f64 {
+    let sw = exclusion.map_or(1.0, |e| e.switch(r).0);
+    if sw == 0.0 {
+        0.0
+    } else {
+        sw * libm::erfc(r / rho) / r
     }
 }
 
@@ -235,17 +254,41 @@ fn anion_terms(model: &LandscapeModel) -> Vec<AnionTerms> {
         .collect()
 }
 
-fn cation_terms(model: &LandscapeModel) -> Vec<CationTerms> {
+/// The cation kinds of the model, then the mobile-ion kind when there is one (its index is
+/// `model.cations.len()`).
+fn repelling_kinds(model: &LandscapeModel) -> impl Iterator<Item = &super::model::CationKind> {
     model
         .cations
         .iter()
+        .chain(model.mobile.as_ref().map(|m| &m.kind))
+}
+
+/// Every repelling charge of the cell as (kind index, fractional position, occupancy), in the
+/// kind order of [`repelling_kinds`].
+fn repelling_charges(model: &LandscapeModel) -> Vec<(usize, Frac, f64)> {
+    let mut out: Vec<(usize, Frac, f64)> = model
+        .atoms
+        .iter()
+        .filter_map(|a| match a.kind {
+            FrameworkKind::Cation(i) => Some((i, a.frac, a.occupancy)),
+            FrameworkKind::Anion(_) => None,
+        })
+        .collect();
+    if let Some(m) = &model.mobile {
+        out.extend(m.sites.iter().map(|&(f, o)| (model.cations.len(), f, o)));
+    }
+    out
+}
+
+fn cation_terms(model: &LandscapeModel) -> Vec<CationTerms> {
+    repelling_kinds(model)
         .map(|k| {
             let reach = model.coulomb_cutoff.min(ERFC_NEGLIGIBLE * k.rho).max(0.0);
             CationTerms {
                 reach2: reach * reach,
                 strength: COULOMB_EV_A * model.probe.charge * k.charge,
                 reach,
-                screened: ScreenedTable::new(k.rho, reach),
+                screened: ScreenedTable::new(k.rho, reach, k.exclusion),
             }
         })
         .collect()
@@ -317,8 +360,9 @@ impl Images {
     }
 }
 
-/// All images of the framework atoms of each kind that can lie within `reach[kind] + margin` of a
-/// point of the cell.
+/// All images of the framework anions (`anion`), or of the repelling charges (framework cations,
+/// then the mobile ions), of each kind that can lie within `reach[kind] + margin` of a point of
+/// the cell.
 fn cell_images(model: &LandscapeModel, anion: bool, reach: &[f64], margin: f64) -> Images {
     let m = model.lattice.matrix();
     let centre = m * Vector3::new(0.5, 0.5, 0.5);
@@ -326,27 +370,35 @@ fn cell_images(model: &LandscapeModel, anion: bool, reach: &[f64], margin: f64) 
         .iter()
         .map(|c| (m * c - centre).norm())
         .fold(0.0, f64::max);
+    let charges: Vec<(usize, Frac, f64)> = if anion {
+        model
+            .atoms
+            .iter()
+            .filter_map(|a| match a.kind {
+                FrameworkKind::Anion(i) => Some((i, a.frac, a.occupancy)),
+                FrameworkKind::Cation(_) => None,
+            })
+            .collect()
+    } else {
+        repelling_charges(model)
+    };
     let mut out = Images::default();
     for (k, &r) in reach.iter().enumerate() {
         out.start.push(out.len());
         let reach_k = r + margin;
         let n = translation_range(&model.lattice, reach_k);
         let keep2 = (reach_k + circum) * (reach_k + circum);
-        for atom in &model.atoms {
-            let kind = match (atom.kind, anion) {
-                (FrameworkKind::Anion(i), true) | (FrameworkKind::Cation(i), false) => i,
-                _ => continue,
-            };
+        for &(kind, frac, occupancy) in &charges {
             if kind != k {
                 continue;
             }
-            let f = atom.frac.wrapped().0;
+            let f = frac.wrapped().0;
             for ta in -n[0]..=n[0] {
                 for tb in -n[1]..=n[1] {
                     for tc in -n[2]..=n[2] {
                         let c = m * (f + Vector3::new(ta as f64, tb as f64, tc as f64));
                         if (c - centre).norm_squared() <= keep2 {
-                            out.push([c.x, c.y, c.z], atom.occupancy);
+                            out.push([c.x, c.y, c.z], occupancy);
                         }
                     }
                 }
@@ -698,13 +750,22 @@ pub fn evaluate_point(model: &LandscapeModel, frac: Frac) -> (f64, f64) {
     let p = m * frac.wrapped().0;
     let mut bvs = 0.0;
     let mut energy = 0.0;
-    for atom in &model.atoms {
-        let cutoff = match atom.kind {
-            FrameworkKind::Anion(i) => model.anions[i].cutoff,
-            FrameworkKind::Cation(_) => model.coulomb_cutoff,
+    let kinds: Vec<_> = repelling_kinds(model).collect();
+    let anions = model.atoms.iter().filter_map(|a| match a.kind {
+        FrameworkKind::Anion(i) => Some((true, i, a.frac, a.occupancy)),
+        FrameworkKind::Cation(_) => None,
+    });
+    let charges = repelling_charges(model)
+        .into_iter()
+        .map(|(i, f, o)| (false, i, f, o));
+    for (is_anion, i, frac, occupancy) in anions.chain(charges) {
+        let cutoff = if is_anion {
+            model.anions[i].cutoff
+        } else {
+            model.coulomb_cutoff
         };
         let n = translation_range(&model.lattice, cutoff.max(0.0));
-        let f = atom.frac.wrapped().0;
+        let f = frac.wrapped().0;
         for ta in -n[0]..=n[0] {
             for tb in -n[1]..=n[1] {
                 for tc in -n[2]..=n[2] {
@@ -714,19 +775,18 @@ pub fn evaluate_point(model: &LandscapeModel, frac: Frac) -> (f64, f64) {
                         continue;
                     }
                     let r = r.max(R_GUARD);
-                    match atom.kind {
-                        FrameworkKind::Anion(i) => {
-                            let k = &model.anions[i];
-                            bvs += atom.occupancy * ((k.r0 - r) / k.b).exp();
-                            let morse = |r: f64| (((k.rmin - r) / k.b).exp() - 1.0).powi(2) - 1.0;
-                            energy += atom.occupancy * k.d0 * (morse(r) - morse(k.cutoff));
-                        }
-                        FrameworkKind::Cation(i) => {
-                            let k = &model.cations[i];
-                            energy += atom.occupancy * COULOMB_EV_A * model.probe.charge * k.charge
-                                / r
-                                * libm::erfc(r / k.rho);
-                        }
+                    if is_anion {
+                        let k = &model.anions[i];
+                        bvs += occupancy * ((k.r0 - r) / k.b).exp();
+                        let morse = |r: f64| (((k.rmin - r) / k.b).exp() - 1.0).powi(2) - 1.0;
+                        energy += occupancy * k.d0 * (morse(r) - morse(k.cutoff));
+                    } else {
+                        let k = kinds[i];
+                        energy += occupancy
+                            * COULOMB_EV_A
+                            * model.probe.charge
+                            * k.charge
+                            * screened_direct(r, k.rho, k.exclusion);
                     }
                 }
             }
@@ -789,12 +849,14 @@ mod tests {
                 charge: 4.0,
                 rho: 1.05,
                 radius: 0.605,
+                exclusion: None,
             }],
             atoms: vec![
                 atom([0.1, 0.2, 0.3], FrameworkKind::Anion(0), 1.0),
                 atom([0.6, 0.15, 0.8], FrameworkKind::Anion(0), 0.5),
                 atom([0.45, 0.4, 0.05], FrameworkKind::Cation(0), 1.0),
             ],
+            mobile: None,
             coulomb_cutoff: 8.0,
             energy_cap: 10.0,
             mismatch_cap: 10.0,
@@ -840,7 +902,7 @@ mod tests {
     fn screened_coulomb_table_follows_libm_erfc() {
         for rho in [0.6, 1.155, 2.3] {
             let reach = 6.5 * rho;
-            let table = ScreenedTable::new(rho, reach);
+            let table = ScreenedTable::new(rho, reach, None);
             let mut worst: f64 = 0.0;
             for n in 1..200_000 {
                 let r = reach * n as f64 / 200_000.0;
