@@ -34,6 +34,18 @@ pub const OCCUPIED_WELL_RADIUS_A: f64 = 0.5;
 /// An empty pocket deeper than the occupied sites by more than this (eV) is reported apart.
 pub const DEEPER_VOID_EV: f64 = 0.05;
 
+/// Uncertainty of a barrier from the model (eV): its mean absolute error against published
+/// barriers of the reference set, scored leave-one-family-out (`cargo bench --bench
+/// model_evidence`; the table is in the science notes). Every number derived from a barrier
+/// (D, conductivity, diffusion length, largest particle) is given with the band this makes: at
+/// room temperature 0.1 eV is a factor of about 50 in D.
+pub const BARRIER_UNCERTAINTY_EV: f64 = 0.15;
+
+/// Below this diffusion coefficient (m^2/s) there is no bulk transport worth the name at the
+/// temperature: an ion covers less than 0.1 um in a day (`sqrt(6 D t)` with t = 86400 s gives
+/// 0.07 um). Renderers then say "no bulk transport" instead of printing the number.
+pub const NO_BULK_TRANSPORT_M2_S: f64 = 1e-20;
+
 /// Minima shallower than this (eV, the lowest barrier out of the site) are listed apart in
 /// summaries: they are points in flat valleys or grid artefacts rather than sites an ion rests on.
 pub const SHALLOW_SITE_EV: f64 = 0.05;
@@ -123,6 +135,17 @@ pub struct ChannelTransport {
     /// Nernst-Einstein conductivity at the temperature, S/cm (Haven ratio 1).
     pub conductivity_s_cm: Option<f64>,
     pub temperature_k: f64,
+    /// The model's barrier uncertainty (eV) behind the bands below; None for a measured D.
+    pub barrier_uncertainty_ev: Option<f64>,
+    /// D at the barrier plus and minus the uncertainty (low, high; m^2/s).
+    pub diffusion_band_m2_s: Option<(f64, f64)>,
+    /// Conductivity at the same two barriers (low, high; S/cm).
+    pub conductivity_band_s_cm: Option<(f64, f64)>,
+    /// Largest particle diameter at each C-rate of `rates` for the low and high D (um).
+    pub particle_band_um: Vec<(f64, f64)>,
+    /// False when D is below [`NO_BULK_TRANSPORT_M2_S`]: the numbers then mean nothing
+    /// for a battery and renderers say so in words.
+    pub bulk_transport: bool,
 }
 
 /// Everything the main job found.
@@ -558,10 +581,39 @@ fn channel_transport(
             .measured_diffusion
             .map(|(_, tk)| tk)
             .unwrap_or(r.temperature_k);
-        let conductivity_s_cm = carriers
-            .and_then(|n| transport::nernst_einstein(n, charge, diffusion, temperature_k).ok())
-            .map(|c| c.siemens_per_cm());
+        let sigma = |d: f64| {
+            carriers
+                .and_then(|n| transport::nernst_einstein(n, charge, d, temperature_k).ok())
+                .map(|c| c.siemens_per_cm())
+        };
+        let conductivity_s_cm = sigma(diffusion);
+        // the band of the model's barrier uncertainty (not for a measured D)
+        let band = model.as_ref().map(|m| {
+            let at = |ea: f64| {
+                HoppingModel { barrier_ev: ea.max(0.0), ..m.clone() }.diffusion_coefficient(temperature_k)
+            };
+            (
+                at(barrier + BARRIER_UNCERTAINTY_EV),
+                at(barrier - BARRIER_UNCERTAINTY_EV),
+            )
+        });
+        let particle_band_um = match band {
+            Some((lo, hi)) => {
+                let table = |d: f64| transport::rate_table(d, t.dimension, &r.c_rates).unwrap_or_default();
+                table(lo)
+                    .iter()
+                    .zip(table(hi).iter())
+                    .map(|(a, b)| (a.max_particle_diameter_um, b.max_particle_diameter_um))
+                    .collect()
+            }
+            None => vec![],
+        };
         out.push(ChannelTransport {
+            barrier_uncertainty_ev: model.as_ref().map(|_| BARRIER_UNCERTAINTY_EV),
+            diffusion_band_m2_s: band,
+            conductivity_band_s_cm: band.and_then(|(lo, hi)| Some((sigma(lo)?, sigma(hi)?))),
+            particle_band_um,
+            bulk_transport: diffusion >= NO_BULK_TRANSPORT_M2_S,
             dimension: t.dimension,
             barrier_ev: barrier,
             hop_length_a: hop,
@@ -671,7 +723,10 @@ pub fn headline(a: &Analysis) -> String {
             percolation::Span::Closed => continue,
         };
         if parts.is_empty() {
-            parts.push(format!("{what}, barrier {:.2} eV", t.barrier));
+            parts.push(format!(
+                "{what}, barrier {:.2} ± {:.2} eV",
+                t.barrier, BARRIER_UNCERTAINTY_EV
+            ));
         } else {
             parts.push(format!(
                 "{} at {:.2} eV",
