@@ -590,7 +590,11 @@ fn channel_transport(
         // the band of the model's barrier uncertainty (not for a measured D)
         let band = model.as_ref().map(|m| {
             let at = |ea: f64| {
-                HoppingModel { barrier_ev: ea.max(0.0), ..m.clone() }.diffusion_coefficient(temperature_k)
+                HoppingModel {
+                    barrier_ev: ea.max(0.0),
+                    ..m.clone()
+                }
+                .diffusion_coefficient(temperature_k)
             };
             (
                 at(barrier + BARRIER_UNCERTAINTY_EV),
@@ -599,7 +603,8 @@ fn channel_transport(
         });
         let particle_band_um = match band {
             Some((lo, hi)) => {
-                let table = |d: f64| transport::rate_table(d, t.dimension, &r.c_rates).unwrap_or_default();
+                let table =
+                    |d: f64| transport::rate_table(d, t.dimension, &r.c_rates).unwrap_or_default();
                 table(lo)
                     .iter()
                     .zip(table(hi).iter())

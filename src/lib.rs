@@ -29,5 +29,6 @@ pub mod screen;
 pub mod spacegroup;
 pub mod structure;
 pub mod substitute;
+pub mod text;
 pub mod transport;
 pub mod write_cif;
