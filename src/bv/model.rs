@@ -57,6 +57,10 @@ use std::collections::BTreeMap;
 /// = 2.0 A).
 pub const D0_REFERENCE_RMIN_A: f64 = 2.0;
 
+/// Partly occupied positions closer than this (A) are one site split over several positions when
+/// the vacant share of a site is counted.
+pub const SPLIT_SITE_A: f64 = 0.8;
+
 /// The calibration knobs of the landscape model. Plain numbers; [`Default`] gives the
 /// documented starting values (see the module docs).
 #[derive(Debug, Clone, PartialEq)]
@@ -83,6 +87,11 @@ pub struct ModelKnobs {
     /// no part, ions beyond `outer` repel in full (see [`crate::landscape::Exclusion`]).
     pub mobile_exclusion_inner_a: f64,
     pub mobile_exclusion_outer_a: f64,
+    /// Framework cations on sites that stand empty at least this share of the time (one minus
+    /// the framework occupancy of the site, split positions within [`SPLIT_SITE_A`] counted as
+    /// one site) are left out of the landscape: the ion moves through the vacant share of those
+    /// sites (A-site-deficient perovskites). Above 1: never.
+    pub vacancy_share_threshold: f64,
     /// Cutoff of the Morse and bond-valence terms (A); `None`: each pair's own cutoff.
     pub morse_cutoff_a: Option<f64>,
     /// Cutoff of the screened repulsion (A); `None`: `max(8, 4 x largest rho)`.
@@ -111,6 +120,7 @@ impl Default for ModelKnobs {
             mobile_charge_scale: 0.0,
             mobile_exclusion_inner_a: 1.0,
             mobile_exclusion_outer_a: 1.6,
+            vacancy_share_threshold: 0.3,
             morse_cutoff_a: None,
             coulomb_cutoff_a: None,
             energy_cap_ev: 10.0,
@@ -270,6 +280,31 @@ pub fn build_model(
                 label: o.label.clone(),
             });
         }
+    }
+    // framework cations on sites that stand partly empty: the ion uses the vacant share
+    let vacated = vacancy_bearing(structure, ion, knobs.vacancy_share_threshold);
+    if !vacated.is_empty() {
+        let mut labels: Vec<&str> = vacated
+            .iter()
+            .map(|&i| framework_label(structure, i))
+            .collect();
+        labels.sort_unstable();
+        labels.dedup();
+        notes.push(format!(
+            "framework cations on sites that stand empty at least {:.0}% of the time ({}) are left \
+             out: the ion moves through the vacant share of those sites",
+            100.0 * knobs.vacancy_share_threshold,
+            labels.join(", ")
+        ));
+        framework.retain(|o| {
+            !vacated.iter().any(|&i| {
+                structure.sites[i].frac == o.frac
+                    && structure.sites[i]
+                        .occupants
+                        .iter()
+                        .any(|x| x.label == o.label)
+            })
+        });
     }
     if structure
         .sites
@@ -621,6 +656,55 @@ pub fn build_model(
         notes,
     };
     Ok((model, provenance))
+}
+
+fn framework_label(s: &Structure, site: usize) -> &str {
+    s.sites[site]
+        .occupants
+        .iter()
+        .find(|o| o.species.oxidation.unwrap_or(0.0) > 0.0)
+        .map(|o| o.label.as_str())
+        .unwrap_or("")
+}
+
+/// Sites (indices into `s.sites`) holding framework cations that stand empty at least
+/// `threshold` of the time: one minus the framework-cation occupancy summed over the positions
+/// within [`SPLIT_SITE_A`] (split sites count once; the mobile ion's own occupancy counts as
+/// vacant, since the ion can take that share).
+fn vacancy_bearing(s: &Structure, ion: crate::element::Element, threshold: f64) -> Vec<usize> {
+    if !(threshold <= 1.0) {
+        return vec![];
+    }
+    let cation_occ = |i: usize| -> f64 {
+        s.sites[i]
+            .occupants
+            .iter()
+            .filter(|o| o.species.element != ion && o.species.oxidation.unwrap_or(0.0) > 0.0)
+            .map(|o| o.occupancy)
+            .sum()
+    };
+    let partial: Vec<usize> = (0..s.sites.len())
+        .filter(|&i| {
+            let c = cation_occ(i);
+            c > 0.0 && c < 1.0 - 1e-6
+        })
+        .collect();
+    partial
+        .iter()
+        .copied()
+        .filter(|&i| {
+            let total: f64 = partial
+                .iter()
+                .filter(|&&j| {
+                    s.lattice
+                        .periodic_distance(s.sites[i].frac, s.sites[j].frac)
+                        < SPLIT_SITE_A
+                })
+                .map(|&j| cation_occ(j))
+                .sum();
+            1.0 - total >= threshold
+        })
+        .collect()
 }
 
 fn same_species(a: &Species, b: &Species) -> bool {

@@ -64,6 +64,7 @@ struct ModelSection {
     mobile_charge_scale: Option<Spanned<f64>>,
     mobile_exclusion_inner_a: Option<Spanned<f64>>,
     mobile_exclusion_outer_a: Option<Spanned<f64>>,
+    vacancy_share_threshold: Option<Spanned<f64>>,
     morse_cutoff_a: Option<Spanned<f64>>,
     coulomb_cutoff_a: Option<Spanned<f64>>,
     energy_cap_ev: Option<Spanned<f64>>,
@@ -229,6 +230,11 @@ impl Overrides {
                 &m.mobile_exclusion_outer_a,
                 Some(0.0),
             )?;
+            number(
+                "vacancy_share_threshold",
+                &m.vacancy_share_threshold,
+                Some(0.0),
+            )?;
             number("morse_cutoff_a", &m.morse_cutoff_a, Some(0.0))?;
             number("coulomb_cutoff_a", &m.coulomb_cutoff_a, Some(0.0))?;
             number("energy_cap_ev", &m.energy_cap_ev, Some(0.0))?;
@@ -368,6 +374,7 @@ impl Overrides {
                         "mobile_charge_scale" => knobs.mobile_charge_scale = v,
                         "mobile_exclusion_inner_a" => knobs.mobile_exclusion_inner_a = v,
                         "mobile_exclusion_outer_a" => knobs.mobile_exclusion_outer_a = v,
+                        "vacancy_share_threshold" => knobs.vacancy_share_threshold = v,
                         "morse_cutoff_a" => knobs.morse_cutoff_a = Some(v),
                         "coulomb_cutoff_a" => knobs.coulomb_cutoff_a = Some(v),
                         "energy_cap_ev" => knobs.energy_cap_ev = v,
