@@ -250,6 +250,22 @@ Oxidation states: Mn4+, O2-.""",
         ],
     ),
     dict(
+        file="TiO2_anatase.cif", block="TiO2_anatase", name="titanium dioxide, anatase",
+        z=4, cell=(3.7842, 3.7842, 9.5146, 90, 90, 90),
+        hm="I 41/a m d", number=141, hall=427, hall_symbol="-I 4bd 2",
+        comment=f"""\
+Anatase TiO2, space group I4_1/amd (No. 141), ORIGIN CHOICE 2: Ti 4a (0,3/4,1/8), O 8e
+(0,1/4,z). A host without lithium: Li inserts into the empty, distorted octahedral
+interstices (4b (0,1/4,3/8) in this setting), which form a 3D network like the Ti sites.
+Source: J. K. Burdett, T. Hughbanks, G. J. Miller, J. W. Richardson Jr., J. V. Smith, J. Am.
+Chem. Soc. 109 (1987) 3639-3646 (the paper of the rutile file of this folder; anatase at 295 K).
+Data used: a = 3.7842, c = 9.5146 A, z(O) = 0.20806 in origin choice 1 (Ti at 0,0,0), which is
+0.08306 in origin choice 2 written here.
+{MEMORY}
+Oxidation states: Ti4+, O2-.""",
+        sites=[("Ti1", "Ti4+", 0.0, 0.75, 0.125, 1.0), ("O1", "O2-", 0.0, 0.25, 0.08306, 1.0)],
+    ),
+    dict(
         file="TiS2_layered.cif", block="TiS2_layered", name="titanium disulfide, CdI2 type",
         z=1, cell=(3.4073, 3.4073, 5.6953, 90, 90, 120), **P3M1,
         comment=f"""\
