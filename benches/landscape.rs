@@ -65,14 +65,12 @@ fn olivine_framework() -> LandscapeModel {
             charge: 2.0,
             rho: 0.75 * (r_li + r_fe),
             radius: r_fe,
-            exclusion: None,
         },
         CationKind {
             species: Species::new(el("P"), Some(5.0)),
             charge: 5.0,
             rho: 0.75 * (r_li + r_p),
             radius: r_p,
-            exclusion: None,
         },
     ];
     let asym = [

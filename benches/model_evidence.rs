@@ -115,8 +115,9 @@ impl Setting {
                 "d0_length_exponent" => k.d0_length_exponent = *v,
                 "charge_shell_exponent" => k.charge_shell_exponent = *v,
                 "mobile_charge_scale" => k.mobile_charge_scale = *v,
-                "mobile_exclusion_inner_a" => k.mobile_exclusion_inner_a = *v,
-                "mobile_exclusion_outer_a" => k.mobile_exclusion_outer_a = *v,
+                "mobile_excluded_nearest" => k.mobile_excluded_nearest = *v as usize,
+                "vacancy_share_threshold" => k.vacancy_share_threshold = *v,
+                "softness_transfer" => k.softness_transfer = *v != 0.0,
                 other => panic!("HOPMAP_SWEEP: unknown knob '{other}'"),
             }
         }
@@ -156,7 +157,7 @@ fn parse_sweep(text: &str) -> Vec<Setting> {
 }
 
 fn d0_values() -> Vec<f64> {
-    (0..=14).map(|i| 0.10 + 0.03 * i as f64).collect()
+    (0..=16).map(|i| 0.06 + 0.03 * i as f64).collect()
 }
 
 /// Results of every setting and every `d0_ev` for one row: `[setting][d0]`.
@@ -175,7 +176,10 @@ fn tabulate(
         .map(|set| {
             let mut o = opts.clone();
             set.apply(&mut o.knobs);
-            let mkey = format!("{}", o.knobs.d0_length_exponent);
+            let mkey = format!(
+                "{} {}",
+                o.knobs.d0_length_exponent, o.knobs.softness_transfer
+            );
             let morse = match morse_cache.iter().find(|(k, _)| *k == mkey) {
                 Some((_, g)) => g.clone(),
                 None => {

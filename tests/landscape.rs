@@ -71,7 +71,6 @@ fn cation(symbol: &str, q: f64, rho: f64) -> CationKind {
         charge: q,
         rho,
         radius: 0.7,
-        exclusion: None,
     }
 }
 

@@ -46,8 +46,7 @@ use super::radii::RadiusValue;
 use super::valence::valence_check;
 use crate::element::Element;
 use crate::landscape::{
-    AnionKind, CationKind, Exclusion, FrameworkAtom, FrameworkKind, LandscapeModel,
-    MobileRepulsion, ProbeIon,
+    AnionKind, CationKind, FrameworkAtom, FrameworkKind, LandscapeModel, MobileRepulsion, ProbeIon,
 };
 use crate::structure::{Species, Structure};
 use std::collections::BTreeMap;
@@ -83,15 +82,19 @@ pub struct ModelKnobs {
     /// Charge scale of the other mobile ions of the structure, left at their sites as a mean
     /// field that repels the probe (0: not modelled, the probe sees the bare framework).
     pub mobile_charge_scale: f64,
-    /// Exclusion switch of the mobile-ion repulsion (A): ions within `inner` of the probe take
-    /// no part, ions beyond `outer` repel in full (see [`crate::landscape::Exclusion`]).
-    pub mobile_exclusion_inner_a: f64,
-    pub mobile_exclusion_outer_a: f64,
+    /// Sites of the mobile ion nearest the probe that take no part in that repulsion: 2 for a
+    /// vacancy hop (the site the probe left and the vacancy it moves into).
+    pub mobile_excluded_nearest: usize,
     /// Framework cations on sites that stand empty at least this share of the time (one minus
     /// the framework occupancy of the site, split positions within [`SPLIT_SITE_A`] counted as
     /// one site) are left out of the landscape: the ion moves through the vacant share of those
     /// sites (A-site-deficient perovskites). Above 1: never.
     pub vacancy_share_threshold: f64,
+    /// For a probe without a softness-sensitive (long-cutoff) parameter set for an anion (Ag+,
+    /// Cu+, Mg2+, ...), borrow the softness `b` and the cutoff of the alkali ion nearest in size
+    /// and move R0 so that the bond valence at the ideal bond length is unchanged (see
+    /// [`soften_pair`]).
+    pub softness_transfer: bool,
     /// Cutoff of the Morse and bond-valence terms (A); `None`: each pair's own cutoff.
     pub morse_cutoff_a: Option<f64>,
     /// Cutoff of the screened repulsion (A); `None`: `max(8, 4 x largest rho)`.
@@ -118,9 +121,9 @@ impl Default for ModelKnobs {
             charge_shell_exponent: 0.0,
             d0_length_exponent: 0.0,
             mobile_charge_scale: 0.0,
-            mobile_exclusion_inner_a: 1.0,
-            mobile_exclusion_outer_a: 1.6,
+            mobile_excluded_nearest: 2,
             vacancy_share_threshold: 0.3,
+            softness_transfer: false,
             morse_cutoff_a: None,
             coulomb_cutoff_a: None,
             energy_cap_ev: 10.0,
@@ -402,7 +405,13 @@ pub fn build_model(
     let mut coordination_used = Vec::new();
     for sp in &anion_species {
         let q = sp.oxidation.unwrap_or(0.0);
-        let p = table.resolve(ion, valence, sp.element, q, PairRole::Mobile)?;
+        let mut p = table.resolve(ion, valence, sp.element, q, PairRole::Mobile)?;
+        if knobs.softness_transfer
+            && p.convention == super::CutoffConvention::FirstShell
+            && let Some(soft) = soften_pair(&p, table, probe_radius.radius, s_eq)
+        {
+            p = soft;
+        }
         let rmin = p.r0 - p.b * (valence / coordination).ln();
         let cutoff = knobs.morse_cutoff_a.unwrap_or(p.cutoff_a);
         let (cn, cu) = coordination_for(sp, &counted);
@@ -437,7 +446,6 @@ pub fn build_model(
             charge: q * knobs.charge_scale * shell(sp.element),
             rho: knobs.screening_factor * (probe_radius.radius + radius.radius),
             radius: radius.radius,
-            exclusion: None,
         });
         radii.push(radius);
     }
@@ -458,10 +466,9 @@ pub fn build_model(
             .collect();
         notes.push(format!(
             "the {ion} ions of the structure repel the probe from their sites (mean field, charge \
-             scale {}; ions closer than {}-{} A to the probe take no part)",
-            knobs.mobile_charge_scale,
-            knobs.mobile_exclusion_inner_a,
-            knobs.mobile_exclusion_outer_a
+             scale {}; the {} sites nearest the probe take no part: the site it left and the \
+             vacancy it moves into)",
+            knobs.mobile_charge_scale, knobs.mobile_excluded_nearest
         ));
         Some(MobileRepulsion {
             kind: CationKind {
@@ -469,14 +476,9 @@ pub fn build_model(
                 charge: valence * knobs.mobile_charge_scale * shell(ion),
                 rho: knobs.screening_factor * 2.0 * probe_radius.radius,
                 radius: probe_radius.radius,
-                exclusion: Some(Exclusion {
-                    inner: knobs.mobile_exclusion_inner_a,
-                    outer: knobs
-                        .mobile_exclusion_outer_a
-                        .max(knobs.mobile_exclusion_inner_a + 1e-3),
-                }),
             },
             sites,
+            excluded_nearest: knobs.mobile_excluded_nearest.min(4),
         })
     } else {
         None
@@ -656,6 +658,56 @@ pub fn build_model(
         notes,
     };
     Ok((model, provenance))
+}
+
+/// The alkali ions, whose softness-sensitive parameter sets (ref c of the IUCr table, Adams
+/// 2001) cover every common anion.
+const ALKALI: [&str; 5] = ["Li", "Na", "K", "Rb", "Cs"];
+
+/// A softness-sensitive version of a first-shell probe-anion pair: `b` and the cutoff of the
+/// alkali ion whose Shannon radius (six-fold, +1) is nearest the probe's, and
+/// `R0' = R_eq + b' ln(s_eq)` with `R_eq = R0 - b ln(s_eq)`, so that a bond of the ideal valence
+/// `s_eq = V_A / N_A` keeps its length. None when no alkali twin has a stated-cutoff row.
+pub fn soften_pair(
+    p: &BondParams,
+    table: &ParameterTable,
+    probe_radius: f64,
+    s_eq: f64,
+) -> Option<BondParams> {
+    let twin = ALKALI
+        .iter()
+        .filter_map(|sym| {
+            let e = crate::element::Element::from_symbol(sym)?;
+            let r = table.radii.lookup(e, 1.0, 6.0).ok()?.radius;
+            Some((e, (r - probe_radius).abs()))
+        })
+        .min_by(|a, b| a.1.total_cmp(&b.1))?
+        .0;
+    let t = table
+        .resolve(twin, 1.0, p.anion, p.anion_valence, PairRole::Mobile)
+        .ok()?;
+    if t.convention != super::CutoffConvention::Stated {
+        return None;
+    }
+    let r_eq = p.r0 - p.b * s_eq.ln();
+    let mut out = p.clone();
+    out.r0 = r_eq + t.b * s_eq.ln();
+    out.b = t.b;
+    out.cutoff_a = t.cutoff_a;
+    out.convention = super::CutoffConvention::Stated;
+    out.ref_id = format!("{}+softness of {}", p.ref_id, t.ref_id);
+    out.citation = format!(
+        "{}; softness b and cutoff borrowed from {}-{} ({}), R0 moved to keep the ideal bond length",
+        p.citation, twin, p.anion, t.citation
+    );
+    out.r0_origin = ValueOrigin::Rule;
+    out.b_origin = ValueOrigin::Rule;
+    out.cutoff_origin = ValueOrigin::Rule;
+    out.notes.push(format!(
+        "softness transferred from {twin}-{}: b {:.3} -> {:.3} A, R0 {:.3} -> {:.3} A",
+        p.anion, p.b, t.b, p.r0, out.r0
+    ));
+    Some(out)
 }
 
 fn framework_label(s: &Structure, site: usize) -> &str {

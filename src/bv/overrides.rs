@@ -57,13 +57,13 @@ struct FileDoc {
 struct ModelSection {
     d0_ev: Option<Spanned<f64>>,
     d0_scales_with_valence: Option<Spanned<bool>>,
+    softness_transfer: Option<Spanned<bool>>,
     screening_factor: Option<Spanned<f64>>,
     charge_scale: Option<Spanned<f64>>,
     charge_shell_exponent: Option<Spanned<f64>>,
     d0_length_exponent: Option<Spanned<f64>>,
     mobile_charge_scale: Option<Spanned<f64>>,
-    mobile_exclusion_inner_a: Option<Spanned<f64>>,
-    mobile_exclusion_outer_a: Option<Spanned<f64>>,
+    mobile_excluded_nearest: Option<Spanned<f64>>,
     vacancy_share_threshold: Option<Spanned<f64>>,
     morse_cutoff_a: Option<Spanned<f64>>,
     coulomb_cutoff_a: Option<Spanned<f64>>,
@@ -221,14 +221,9 @@ impl Overrides {
             number("d0_length_exponent", &m.d0_length_exponent, None)?;
             number("mobile_charge_scale", &m.mobile_charge_scale, Some(-1e-300))?;
             number(
-                "mobile_exclusion_inner_a",
-                &m.mobile_exclusion_inner_a,
+                "mobile_excluded_nearest",
+                &m.mobile_excluded_nearest,
                 Some(-1e-300),
-            )?;
-            number(
-                "mobile_exclusion_outer_a",
-                &m.mobile_exclusion_outer_a,
-                Some(0.0),
             )?;
             number(
                 "vacancy_share_threshold",
@@ -244,16 +239,19 @@ impl Overrides {
             number("probe_valence", &p.valence, Some(0.0))?;
             number("probe_coordination", &p.coordination, Some(0.0))?;
         }
-        if let Some(f) = doc
-            .model
-            .as_ref()
-            .and_then(|m| m.d0_scales_with_valence.as_ref())
-        {
-            out.knobs.push(KnobSetting::Flag {
-                name: "d0_scales_with_valence".into(),
-                value: *f.get_ref(),
-                line: line_col(text, f.span().start).0,
-            });
+        if let Some(m) = &doc.model {
+            for (name, flag) in [
+                ("d0_scales_with_valence", &m.d0_scales_with_valence),
+                ("softness_transfer", &m.softness_transfer),
+            ] {
+                if let Some(f) = flag {
+                    out.knobs.push(KnobSetting::Flag {
+                        name: name.into(),
+                        value: *f.get_ref(),
+                        line: line_col(text, f.span().start).0,
+                    });
+                }
+            }
         }
         for entry in &doc.pair {
             let e = entry.get_ref();
@@ -372,8 +370,9 @@ impl Overrides {
                         "charge_shell_exponent" => knobs.charge_shell_exponent = v,
                         "d0_length_exponent" => knobs.d0_length_exponent = v,
                         "mobile_charge_scale" => knobs.mobile_charge_scale = v,
-                        "mobile_exclusion_inner_a" => knobs.mobile_exclusion_inner_a = v,
-                        "mobile_exclusion_outer_a" => knobs.mobile_exclusion_outer_a = v,
+                        "mobile_excluded_nearest" => {
+                            knobs.mobile_excluded_nearest = v.round().clamp(0.0, 4.0) as usize
+                        }
                         "vacancy_share_threshold" => knobs.vacancy_share_threshold = v,
                         "morse_cutoff_a" => knobs.morse_cutoff_a = Some(v),
                         "coulomb_cutoff_a" => knobs.coulomb_cutoff_a = Some(v),
@@ -386,8 +385,10 @@ impl Overrides {
                     (name, *line)
                 }
                 KnobSetting::Flag { name, value, line } => {
-                    if name == "d0_scales_with_valence" {
-                        knobs.d0_scales_with_valence = *value;
+                    match name.as_str() {
+                        "d0_scales_with_valence" => knobs.d0_scales_with_valence = *value,
+                        "softness_transfer" => knobs.softness_transfer = *value,
+                        _ => {}
                     }
                     (name, *line)
                 }

@@ -38,7 +38,7 @@
 //! [`evaluate_point`] calls `libm::erfc` directly. Fields are stored as f32 (4 bytes per point
 //! per field).
 
-use super::model::{COULOMB_EV_A, Exclusion, FrameworkKind, LandscapeModel};
+use super::model::{COULOMB_EV_A, FrameworkKind, LandscapeModel};
 use crate::grid::Grid;
 use crate::lattice::{Frac, Lattice};
 use nalgebra::{Matrix3, Vector3};
@@ -146,18 +146,19 @@ struct CationTerms {
     strength: f64,
     reach: f64,
     screened: ScreenedTable,
+    /// The nearest images of this kind that take no part (the mobile-ion kind: the origin and
+    /// the target of a vacancy hop); 0 for framework cations.
+    exclude_nearest: usize,
 }
 
 /// Table intervals per screening length.
 const TABLE_STEPS_PER_RHO: f64 = 256.0;
 
-/// `g(R) = S(R) erfc(R / rho) / R` as cubic polynomials on intervals of rho/256 from R = rho/2 to
-/// the reach of the kind, built from exact values and slopes at the interval ends (cubic
-/// Hermite); `S` is the kind's exclusion switch (1 for framework cations).
+/// `g(R) = erfc(R / rho) / R` as cubic polynomials on intervals of rho/256 from R = rho/2 to the
+/// reach of the kind, built from exact values and slopes at the interval ends (cubic Hermite).
 #[derive(Debug, Clone)]
 struct ScreenedTable {
     rho: f64,
-    exclusion: Option<Exclusion>,
     r_lo: f64,
     inv_h: f64,
     /// Per interval, coefficients of `c0 + c1 t + c2 t^2 + c3 t^3` with t in [0, 1).
@@ -165,17 +166,11 @@ struct ScreenedTable {
 }
 
 impl ScreenedTable {
-    fn new(rho: f64, reach: f64, exclusion: Option<Exclusion>) -> Self {
-        let plain = |r: f64| libm::erfc(r / rho) / r;
-        let dplain = |r: f64| {
-            let x = r / rho;
-            -std::f64::consts::FRAC_2_SQRT_PI * (-x * x).exp() / (rho * r) - plain(r) / r
-        };
-        let switch = |r: f64| exclusion.map_or((1.0, 0.0), |e| e.switch(r));
-        let g = |r: f64| switch(r).0 * plain(r);
+    fn new(rho: f64, reach: f64) -> Self {
+        let g = |r: f64| libm::erfc(r / rho) / r;
         let dg = |r: f64| {
-            let (sw, dsw) = switch(r);
-            sw * dplain(r) + dsw * plain(r)
+            let x = r / rho;
+            -std::f64::consts::FRAC_2_SQRT_PI * (-x * x).exp() / (rho * r) - g(r) / r
         };
         let h = rho / TABLE_STEPS_PER_RHO;
         let r_lo = 0.5 * rho;
@@ -198,14 +193,13 @@ impl ScreenedTable {
             .collect();
         ScreenedTable {
             rho,
-            exclusion,
             r_lo,
             inv_h: 1.0 / h,
             coef,
         }
     }
 
-    /// `S(r) erfc(r / rho) / r` for r > 0 (direct evaluation below rho/2 and past the table).
+    /// `erfc(r / rho) / r` for r > 0 (direct evaluation below rho/2 and past the table).
     #[inline(always)]
     fn eval(&self, r: f64) -> f64 {
         let t = (r - self.r_lo) * self.inv_h;
@@ -216,17 +210,42 @@ impl ScreenedTable {
                 return c[0] + t * (c[1] + t * (c[2] + t * c[3]));
             }
         }
-        screened_direct(r, self.rho, self.exclusion)
+        libm::erfc(r / self.rho) / r
     }
 }
 
-/// `S(r) erfc(r / rho) / r`, straight from the formula.
-fn screened_direct(r: f64, rho: f64, exclusion: Option<Exclusion>) -> f64 {
-    let sw = exclusion.map_or(1.0, |e| e.switch(r).0);
-    if sw == 0.0 {
-        0.0
-    } else {
-        sw * libm::erfc(r / rho) / r
+/// The `k` smallest distances seen so far and the weighted terms that go with them (k <= 4).
+#[derive(Debug, Clone, Copy)]
+struct Nearest {
+    k: usize,
+    r: [f64; 4],
+    term: [f64; 4],
+}
+
+impl Nearest {
+    fn new(k: usize) -> Self {
+        Nearest {
+            k: k.min(4),
+            r: [f64::INFINITY; 4],
+            term: [0.0; 4],
+        }
+    }
+    #[inline(always)]
+    fn offer(&mut self, r: f64, term: f64) {
+        if self.k == 0 || r >= self.r[self.k - 1] {
+            return;
+        }
+        let mut i = self.k - 1;
+        while i > 0 && self.r[i - 1] > r {
+            self.r[i] = self.r[i - 1];
+            self.term[i] = self.term[i - 1];
+            i -= 1;
+        }
+        self.r[i] = r;
+        self.term[i] = term;
+    }
+    fn excluded(&self) -> f64 {
+        self.term[..self.k].iter().sum()
     }
 }
 
@@ -281,14 +300,18 @@ fn repelling_charges(model: &LandscapeModel) -> Vec<(usize, Frac, f64)> {
 }
 
 fn cation_terms(model: &LandscapeModel) -> Vec<CationTerms> {
+    let mobile_index = model.mobile.as_ref().map(|_| model.cations.len());
+    let excluded = model.mobile.as_ref().map_or(0, |m| m.excluded_nearest);
     repelling_kinds(model)
-        .map(|k| {
+        .enumerate()
+        .map(|(i, k)| {
             let reach = model.coulomb_cutoff.min(ERFC_NEGLIGIBLE * k.rho).max(0.0);
             CationTerms {
                 reach2: reach * reach,
                 strength: COULOMB_EV_A * model.probe.charge * k.charge,
                 reach,
-                screened: ScreenedTable::new(k.rho, reach, k.exclusion),
+                screened: ScreenedTable::new(k.rho, reach),
+                exclude_nearest: if Some(i) == mobile_index { excluded } else { 0 },
             }
         })
         .collect()
@@ -468,14 +491,30 @@ fn point_sums(
         let (lo, hi) = (ca.start[k], ca.start[k + 1]);
         let (xs, ys, zs, os) = (&ca.x[lo..hi], &ca.y[lo..hi], &ca.z[lo..hi], &ca.occ[lo..hi]);
         let mut e = 0.0;
-        for j in 0..xs.len() {
-            let (dx, dy, dz) = (p[0] - xs[j], p[1] - ys[j], p[2] - zs[j]);
-            let d2 = dx * dx + dy * dy + dz * dz;
-            if d2 < t.reach2 {
-                let r = d2.max(g2).sqrt();
-                e += os[j] * t.screened.eval(r);
-                count += 1;
+        if t.exclude_nearest == 0 {
+            for j in 0..xs.len() {
+                let (dx, dy, dz) = (p[0] - xs[j], p[1] - ys[j], p[2] - zs[j]);
+                let d2 = dx * dx + dy * dy + dz * dz;
+                if d2 < t.reach2 {
+                    let r = d2.max(g2).sqrt();
+                    e += os[j] * t.screened.eval(r);
+                    count += 1;
+                }
             }
+        } else {
+            let mut near = Nearest::new(t.exclude_nearest);
+            for j in 0..xs.len() {
+                let (dx, dy, dz) = (p[0] - xs[j], p[1] - ys[j], p[2] - zs[j]);
+                let d2 = dx * dx + dy * dy + dz * dz;
+                if d2 < t.reach2 {
+                    let r = d2.max(g2).sqrt();
+                    let term = os[j] * t.screened.eval(r);
+                    e += term;
+                    near.offer(r, term);
+                    count += 1;
+                }
+            }
+            e -= near.excluded();
         }
         energy += t.strength * e;
     }
@@ -751,6 +790,7 @@ pub fn evaluate_point(model: &LandscapeModel, frac: Frac) -> (f64, f64) {
     let mut bvs = 0.0;
     let mut energy = 0.0;
     let kinds: Vec<_> = repelling_kinds(model).collect();
+    let mut near = Nearest::new(model.mobile.as_ref().map_or(0, |m| m.excluded_nearest));
     let anions = model.atoms.iter().filter_map(|a| match a.kind {
         FrameworkKind::Anion(i) => Some((true, i, a.frac, a.occupancy)),
         FrameworkKind::Cation(_) => None,
@@ -782,16 +822,22 @@ pub fn evaluate_point(model: &LandscapeModel, frac: Frac) -> (f64, f64) {
                         energy += occupancy * k.d0 * (morse(r) - morse(k.cutoff));
                     } else {
                         let k = kinds[i];
-                        energy += occupancy
+                        let term = occupancy
                             * COULOMB_EV_A
                             * model.probe.charge
                             * k.charge
-                            * screened_direct(r, k.rho, k.exclusion);
+                            * libm::erfc(r / k.rho)
+                            / r;
+                        energy += term;
+                        if i == model.cations.len() {
+                            near.offer(r, term);
+                        }
                     }
                 }
             }
         }
     }
+    energy -= near.excluded();
     (
         capped((bvs - model.probe.valence).abs(), model.mismatch_cap),
         capped(energy, model.energy_cap),
@@ -849,7 +895,6 @@ mod tests {
                 charge: 4.0,
                 rho: 1.05,
                 radius: 0.605,
-                exclusion: None,
             }],
             atoms: vec![
                 atom([0.1, 0.2, 0.3], FrameworkKind::Anion(0), 1.0),
@@ -902,7 +947,7 @@ mod tests {
     fn screened_coulomb_table_follows_libm_erfc() {
         for rho in [0.6, 1.155, 2.3] {
             let reach = 6.5 * rho;
-            let table = ScreenedTable::new(rho, reach, None);
+            let table = ScreenedTable::new(rho, reach);
             let mut worst: f64 = 0.0;
             for n in 1..200_000 {
                 let r = reach * n as f64 / 200_000.0;

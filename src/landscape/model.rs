@@ -41,7 +41,7 @@ pub struct AnionKind {
 }
 
 /// A cation species and its screened Coulomb repulsion with the probe: a framework cation, or
-/// another ion of the mobile species at its own sites (see [`Exclusion`]).
+/// the other ions of the mobile species at their sites ([`MobileRepulsion`]).
 #[derive(Debug, Clone, PartialEq)]
 pub struct CationKind {
     pub species: Species,
@@ -51,40 +51,6 @@ pub struct CationKind {
     pub rho: f64,
     /// Shannon radius (A), for bottleneck sizes.
     pub radius: f64,
-    /// For the other ions of the mobile species: the repulsion is switched off near the probe,
-    /// where an ion of the structure stands for the probe itself or for the site it hops to.
-    /// `None` for framework cations.
-    pub exclusion: Option<Exclusion>,
-}
-
-/// A smooth switch of a pair term with distance: 0 below `inner`, 1 beyond `outer`, and the
-/// cubic smoothstep `t^2 (3 - 2t)`, `t = (R - inner) / (outer - inner)`, in between (value and
-/// slope continuous).
-///
-/// The mobile ions of the structure repel the probe through this switch: an ion within `inner`
-/// of the probe is the probe itself (the vacancy it left) or the ion whose site it is taking, and
-/// takes no part; ions farther away than `outer` repel it in full, in proportion to their site
-/// occupancy (mean field).
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Exclusion {
-    pub inner: f64,
-    pub outer: f64,
-}
-
-impl Exclusion {
-    /// The switch and its derivative at distance `r` (A).
-    #[inline(always)]
-    pub fn switch(&self, r: f64) -> (f64, f64) {
-        if r <= self.inner {
-            (0.0, 0.0)
-        } else if r >= self.outer {
-            (1.0, 0.0)
-        } else {
-            let w = self.outer - self.inner;
-            let t = (r - self.inner) / w;
-            (t * t * (3.0 - 2.0 * t), 6.0 * t * (1.0 - t) / w)
-        }
-    }
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -104,13 +70,17 @@ pub struct FrameworkAtom {
     pub label: String,
 }
 
-/// The ions of the mobile species left in place as a mean field: each site of the structure
-/// that holds the ion repels the probe with its occupancy, through the kind's [`Exclusion`].
+/// The ions of the mobile species left in place as a mean field, in the picture of a vacancy
+/// hop: every site of the structure that holds the ion repels the probe with its occupancy,
+/// except the `excluded_nearest` sites nearest the probe, which stand for the site the probe
+/// has left and the vacancy it moves into.
 #[derive(Debug, Clone, PartialEq)]
 pub struct MobileRepulsion {
     pub kind: CationKind,
     /// Fractional position and occupancy of every site of the ion in the cell.
     pub sites: Vec<(Frac, f64)>,
+    /// How many of the nearest sites take no part (2: the origin and the target of the hop).
+    pub excluded_nearest: usize,
 }
 
 /// Everything needed to evaluate the two landscapes at any point.
