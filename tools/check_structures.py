@@ -59,7 +59,8 @@ FULL = 1.0 - 1e-6
 # "6 A cut-off"), so that all rows are first-coordination-shell parameters. Refs: a = Brown &
 # Altermatt 1985, b = Brese & O'Keeffe 1991, i = Wood & Palenik 1998,
 # bj = Krivovichev 2012, e = I. D. Brown, private communication, aj as listed in the table.
-# Rows whose table valence is 9 ("unspecified", Ag-Br and Ag-I) are used for Ag+.
+# Rows whose table valence is 9 ("unspecified", Ag-Br and Ag-I) are used for Ag+, and for
+# P5+-Se and Sb5+-S, which the table has only with an unspecified valence.
 BV_PARAMS: dict[tuple[str, int, str, int], tuple[float, float, str]] = {
     ("Li", 1, "O", -2): (1.466, 0.37, "a"),
     ("Li", 1, "S", -2): (1.94, 0.37, "b"),
@@ -104,6 +105,18 @@ BV_PARAMS: dict[tuple[str, int, str, int], tuple[float, float, str]] = {
     ("Ge", 4, "S", -2): (2.217, 0.37, "a"),
     ("Y", 3, "S", -2): (2.48, 0.37, "b"),
     ("Ti", 4, "S", -2): (2.29, 0.37, "e"),
+    ("Li", 1, "Br", -1): (2.02, 0.37, "b"),
+    ("Li", 1, "I", -1): (2.22, 0.37, "b"),
+    ("K", 1, "Br", -1): (2.66, 0.37, "b"),
+    ("Ag", 1, "O", -2): (1.842, 0.37, "a"),
+    ("Mn", 2, "O", -2): (1.790, 0.37, "a"),
+    ("Co", 2, "O", -2): (1.692, 0.37, "a"),
+    ("Ni", 2, "O", -2): (1.675, 0.37, "e"),
+    ("Mg", 2, "Se", -2): (2.32, 0.37, "b"),
+    ("Sc", 3, "Se", -2): (2.44, 0.37, "b"),
+    ("Na", 1, "Se", -2): (2.41, 0.37, "b"),
+    ("P", 5, "Se", -2): (2.26, 0.37, "b"),  # table row has valence 9 (unspecified)
+    ("Sb", 5, "S", -2): (2.45, 0.37, "b"),  # table row has valence 9 (unspecified)
 }
 
 
@@ -150,6 +163,33 @@ BVS_EXCEPTIONS: dict[tuple[str, str], tuple[float, str]] = {
         0.45,
         "tetrahedral Al2 sums to about 2.6 v.u. with R0(Al-O) = 1.620 A (ref e); tetrahedral "
         "Al-O bonds near 1.80 A come out low with this parameter",
+    ),
+    ("KAl11O17_beta_alumina.cif", "Al2"): (
+        0.45,
+        "the framework of NaAl11O17_beta_alumina.cif (ion-exchange model): tetrahedral Al2 as "
+        "there, about 2.6 v.u.",
+    ),
+    ("AgAl11O17_beta_alumina.cif", "Al2"): (
+        0.45,
+        "the framework of NaAl11O17_beta_alumina.cif (ion-exchange model): tetrahedral Al2 as "
+        "there, about 2.6 v.u.",
+    ),
+    ("AgAl11O17_beta_alumina.cif", "Ag1"): (
+        0.6,
+        "Ag on the oversized Beevers-Ross site of the Na framework sums to about 0.5 v.u., as Na "
+        "does there (ion-exchange model; the site's looseness is why the ion is mobile)",
+    ),
+    ("Li3OBr_antiperovskite.cif", "O1"): (
+        0.65,
+        "O in the cubic antiperovskite Li3OBr sums to about 1.38 v.u.; Li-O = a/2 is fixed by "
+        "the cell and stretched further by the larger Br than in Li3OCl (common practice: the "
+        "underbonded O of these metastable antiperovskites)",
+    ),
+    ("Na3SbS4_cubic.cif", "Sb1"): (
+        0.65,
+        "Sb5+ sums to about 5.6 v.u. at Sb-S = 2.33 A with the only Sb-S parameter of the table "
+        "that does not assume Sb3+ (Sb of unspecified valence, R0 = 2.45 A, ref b); the bond "
+        "length, not the parameter, is the remembered fact",
     ),
 }
 
