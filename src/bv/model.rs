@@ -114,16 +114,16 @@ pub struct ModelKnobs {
 impl Default for ModelKnobs {
     fn default() -> Self {
         ModelKnobs {
-            d0_ev: 0.3,
+            d0_ev: 0.21,
             d0_scales_with_valence: true,
-            screening_factor: 0.75,
+            screening_factor: 1.4,
             charge_scale: 1.0,
-            charge_shell_exponent: 0.0,
-            d0_length_exponent: 0.0,
+            charge_shell_exponent: 0.75,
+            d0_length_exponent: 3.0,
             mobile_charge_scale: 0.0,
             mobile_excluded_nearest: 2,
             vacancy_share_threshold: 0.3,
-            softness_transfer: false,
+            softness_transfer: true,
             morse_cutoff_a: None,
             coulomb_cutoff_a: None,
             energy_cap_ev: 10.0,
