@@ -508,11 +508,15 @@ fn sites_section(a: &Analysis, o: &mut String) {
     let lowest = net.sites.first().map(|s| s.energy).unwrap_or(0.0);
     let _ = writeln!(
         o,
-        "<h2 id=\"sites\">Sites</h2>\n<p class=\"note\">Local minima of the site energy ({} in \
-         the cell), grouped into {} orbits by the space-group operations. Position of the first \
-         member in fractional coordinates; depth = lowest barrier out of the site; label = the \
-         nearest site of the mobile ion in the input structure, when within reach.</p>",
+        "<h2 id=\"sites\">Sites</h2>\n<p class=\"note\">Minima of the site energy ({} in \
+         the cell, from {} grid minima: a minimum whose lowest exit towards a lower one is less \
+         than {:.2} eV above it is merged into the site it drains to), grouped into {} orbits by \
+         the space-group operations. Position of the first member in fractional coordinates; \
+         depth = lowest barrier out of the site; label = the nearest site of the mobile ion in \
+         the input structure, when within reach.</p>",
         net.sites.len(),
+        net.basins.minima.len(),
+        net.merging.depth,
         net.orbits.len()
     );
     o.push_str("<table>\n");

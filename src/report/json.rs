@@ -214,6 +214,7 @@ pub fn paths(a: &Analysis, file: &str) -> Value {
                         "label_distance_a": s.label_distance.map(|d| round(d, 3)),
                         "depth_ev": if s.depth.is_finite() { Some(round(s.depth as f64, 4)) } else { None },
                         "shallow": (s.depth as f64) < crate::analysis::SHALLOW_SITE_EV,
+                        "merged_minima": s.minima,
                     })
                 })
                 .collect()

@@ -194,9 +194,11 @@ pub fn paths(a: &Analysis, file: &str) -> String {
     if let Some(net) = &a.network {
         let _ = writeln!(
             o,
-            "\n  sites ({} in the cell, {} orbits):",
+            "\n  sites ({} in the cell, {} orbits; from {} grid minima, those less than {:.2} eV deep merged into the site they drain to):",
             net.sites.len(),
-            net.orbits.len()
+            net.orbits.len(),
+            net.basins.minima.len(),
+            net.merging.depth
         );
         let _ = writeln!(
             o,
@@ -226,7 +228,7 @@ pub fn paths(a: &Analysis, file: &str) -> String {
         if shallow > 0 {
             let _ = writeln!(
                 o,
-                "    ({shallow} more orbits are shallow minima, less than {:.2} eV deep: flat valleys or grid artefacts; see --json)",
+                "    ({shallow} more orbits are shallow minima, less than {:.2} eV deep; see --json)",
                 crate::analysis::SHALLOW_SITE_EV
             );
         }
