@@ -154,20 +154,16 @@ pub enum AnalysisError {
     Structure { structure: String, message: String },
 }
 
-/// Gives every occupant an oxidation state, assigning them when the file has none.
+/// Gives every occupant an oxidation state: the user's settings, then the file's, then assigned
+/// ones; warnings of the assignment (a residual charge) join the structure's warnings.
 pub fn with_oxidation_states(
     s: &Structure,
     table: &ParameterTable,
 ) -> Result<(Structure, Option<String>), AnalysisError> {
-    let complete = s
-        .sites
-        .iter()
-        .all(|site| site.occupants.iter().all(|o| o.species.oxidation.is_some()));
-    if complete {
-        return Ok((s.clone(), None));
-    }
     let a = assign_oxidation_states(s, table)?;
-    Ok((a.structure, Some(a.note)))
+    let mut out = a.structure;
+    out.warnings.extend(a.warnings);
+    Ok((out, (!a.nothing_assigned).then_some(a.note)))
 }
 
 /// Grid points per axis for a spacing (A).
@@ -260,15 +256,33 @@ pub fn model_and_landscape(
 /// Runs the whole job on one structure.
 pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis, AnalysisError> {
     let mut timings = Vec::new();
-    let mut warnings: Vec<String> = structure.warnings.clone();
     let t0 = Instant::now();
     let (s, oxidation_note, model, provenance, land) = model_and_landscape(structure, opts)?;
+    let mut warnings: Vec<String> = s.warnings.clone();
     timings.push(("model and grids", t0.elapsed().as_secs_f64()));
     if provenance.uses_fallback {
         warnings.push(
             "a probe-anion pair uses the O'Keeffe-Brese estimate of R0 (no tabulated parameters): treat barriers with extra caution"
                 .to_string(),
         );
+    }
+    if provenance.removed_mobile == 0.0 {
+        warnings.push(format!(
+            "the structure has no {0}: its framework is analysed as an empty host for {0}",
+            opts.ion
+        ));
+    }
+    for r in provenance
+        .radii
+        .iter()
+        .chain(std::iter::once(&provenance.probe.radius))
+        .filter(|r| r.origin == crate::bv::ValueOrigin::Fallback)
+    {
+        let why = r.notes.last().cloned().unwrap_or_default();
+        let w = format!("radius of {} is a fallback: {why}", r.species_name());
+        if !warnings.contains(&w) {
+            warnings.push(w);
+        }
     }
     let valence = match valence_check_with(&s, &opts.table, Some(opts.ion)) {
         Ok(v) => Some(v),
