@@ -447,19 +447,30 @@ fn mean_hop_length(net: &Network, level: f32) -> Option<f64> {
     }
 }
 
-/// The thresholds worth reporting on their own: a dimension reached at the same energy as a
-/// higher one (a spinel's 1D, 2D and 3D networks all open at once) is left to the higher one.
-pub fn distinct_thresholds(p: &Percolation) -> Vec<&percolation::Threshold> {
-    let reached: Vec<_> = p.thresholds.iter().flatten().collect();
-    reached
+/// Networks whose thresholds lie closer than this (eV) are one network of the higher
+/// dimension: less than kT at room temperature (25.7 meV), so an ion that crosses the lower
+/// bottleneck crosses the other as readily, and of the order of the scatter of a threshold
+/// between grids placed differently in the cell (primitive and conventional cells, a shifted
+/// origin, spacings of 0.1-0.2 A). A layered LiCoO2 read from a primitive cell opens 1D
+/// channels 2 meV below its 2D layers: that is reported as 2D layers.
+pub const CHANNEL_MERGE_EV: f32 = 0.02;
+
+/// True when a higher-dimensional network opens within [`CHANNEL_MERGE_EV`] of `t`.
+pub fn merged_with_higher(p: &Percolation, t: &percolation::Threshold) -> bool {
+    p.thresholds
         .iter()
-        .enumerate()
-        .filter(|(i, t)| {
-            !reached[i + 1..]
-                .iter()
-                .any(|u| (u.energy - t.energy).abs() < 1e-6)
-        })
-        .map(|(_, t)| *t)
+        .flatten()
+        .any(|u| u.dimension > t.dimension && u.energy - t.energy < CHANNEL_MERGE_EV)
+}
+
+/// The thresholds worth reporting on their own: a dimension reached at the same energy as a
+/// higher one, or within [`CHANNEL_MERGE_EV`] below it (a spinel's 1D, 2D and 3D networks all
+/// open at once), is left to the higher one.
+pub fn distinct_thresholds(p: &Percolation) -> Vec<&percolation::Threshold> {
+    p.thresholds
+        .iter()
+        .flatten()
+        .filter(|t| !merged_with_higher(p, t))
         .collect()
 }
 
@@ -611,15 +622,9 @@ pub fn headline(a: &Analysis) -> String {
         );
     }
     let mut parts = Vec::new();
-    let reached: Vec<_> = p.thresholds.iter().flatten().collect();
-    for (i, t) in reached.iter().enumerate() {
-        // a dimension reached at the same energy as a higher one is reported as the higher one
-        if reached[i + 1..]
-            .iter()
-            .any(|u| (u.energy - t.energy).abs() < 1e-6)
-        {
-            continue;
-        }
+    for t in distinct_thresholds(p) {
+        // a dimension reached at (nearly) the same energy as a higher one is reported as the
+        // higher one
         let what = match &t.channel.span {
             percolation::Span::Line { direction, .. } => {
                 let dirs: Vec<String> = p

@@ -72,10 +72,8 @@ pub fn screen_one(
         row.barrier_1d_ev = p.threshold(1).map(|t| t.barrier as f64);
         row.barrier_2d_ev = p.threshold(2).map(|t| t.barrier as f64);
         row.barrier_3d_ev = p.threshold(3).map(|t| t.barrier as f64);
-        row.direction = p
-            .thresholds
-            .iter()
-            .flatten()
+        row.direction = hopmap::analysis::distinct_thresholds(p)
+            .into_iter()
             .next()
             .map(|t| match &t.channel.span {
                 hopmap::percolation::Span::Line { direction, .. } => {

@@ -136,6 +136,12 @@ fn channels(p: &Percolation, unit: &str) -> Vec<Value> {
             m.insert("span".into(), span);
             m.insert("components".into(), json!(t.components));
             m.insert("accessible_fraction".into(), json!(round(t.fraction, 5)));
+            if unit == "ev" {
+                m.insert(
+                    "merged_with_higher".into(),
+                    json!(crate::analysis::merged_with_higher(p, t)),
+                );
+            }
             Value::Object(m)
         })
         .collect()
