@@ -28,5 +28,6 @@ pub mod screen;
 pub mod spacegroup;
 pub mod structure;
 pub mod substitute;
+pub mod symmetry;
 pub mod transport;
 pub mod write_cif;

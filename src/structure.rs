@@ -100,6 +100,25 @@ pub struct SymmetryInfo {
     pub ops: Vec<SymOp>,
     /// Where the operations came from, in words ("operator list in the file", "Hall symbol", ...).
     pub source: String,
+    /// For symmetry found in a P 1 input ([`crate::symmetry`]): the input cell and its
+    /// relation to the conventional cell. None when the file gave its own symmetry.
+    pub transformation: Option<CellTransformation>,
+}
+
+/// How a P 1 input cell relates to the conventional cell of the symmetry found in it:
+/// `A_conv = A_input linear` (lattice vectors as columns) and
+/// `x_conv = linear^-1 (x_input - origin_shift)`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CellTransformation {
+    pub linear: nalgebra::Matrix3<f64>,
+    pub origin_shift: nalgebra::Vector3<f64>,
+    /// The cell as read.
+    pub input_cell: crate::lattice::CellParameters,
+    /// Positions in the cell as read.
+    pub input_positions: usize,
+    /// True when the structure was rewritten in the conventional cell; false when the input
+    /// cell was kept (directions then refer to the input cell).
+    pub conventional: bool,
 }
 
 #[derive(Debug, Clone, PartialEq)]

@@ -23,7 +23,11 @@ fn set_occupancy(s: &mut Structure, element: &str, occ: f64) {
         .sites
         .iter_mut()
         .flat_map(|x| x.occupants.iter_mut())
-        .chain(s.asymmetric_sites.iter_mut().flat_map(|a| a.occupants.iter_mut()))
+        .chain(
+            s.asymmetric_sites
+                .iter_mut()
+                .flat_map(|a| a.occupants.iter_mut()),
+        )
     {
         if o.species.element == e {
             o.occupancy = occ;
