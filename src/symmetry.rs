@@ -20,7 +20,8 @@
 //!
 //! Either way [`crate::structure::SymmetryInfo::source`] says where the symmetry came from and
 //! [`crate::structure::SymmetryInfo::transformation`] records the input cell and (P, p).
-//! When moyo finds nothing beyond P 1, or fails, the structure stays P 1 and the source says so.
+//! When moyo finds nothing beyond P 1, or fails, or the cell holds more than
+//! [`MAX_SEARCH_POSITIONS`] positions, the structure stays P 1 and the source says so.
 
 use crate::lattice::{CellParameters, Frac, Lattice};
 use crate::spacegroup::SymOp;
@@ -36,10 +37,25 @@ use std::collections::HashMap;
 /// practice; spglib's and pymatgen's documented examples use 0.01 A).
 pub const SYMPREC_A: f64 = 0.01;
 
+/// P 1 cells with more positions than this are left as they are: the search time grows
+/// faster than the square of the number of atoms on nearly periodic cells (0.7 s at 4000
+/// positions, 30 s at 10 000 on one core), and cells that large are supercells or snapshots
+/// whose symmetry is rarely wanted. The source says the search was skipped.
+pub const MAX_SEARCH_POSITIONS: usize = 5000;
+
 /// Fills in the symmetry of a structure read as P 1 (see the module docs); structures with more
 /// than the identity are returned unchanged.
 pub fn complete_symmetry(s: Structure, keep_cell: bool) -> Structure {
     if s.symmetry.ops.len() > 1 || s.sites.is_empty() {
+        return s;
+    }
+    if s.sites.len() > MAX_SEARCH_POSITIONS {
+        let mut s = s;
+        s.symmetry.source = format!(
+            "{}; no symmetry search for a P 1 cell of {} positions (above {MAX_SEARCH_POSITIONS})",
+            s.symmetry.source,
+            s.sites.len()
+        );
         return s;
     }
     let (cell, _) = moyo_cell(&s);

@@ -28,7 +28,14 @@ fn json(o: &Output) -> serde_json::Value {
 #[test]
 fn a_poscar_is_answered_in_the_conventional_cell_and_says_so() {
     let poscar = root("tests/data/cathodes/LiCoO2_primitive.vasp");
-    let v = json(&hopmap(&["paths", &poscar, "--spacing", "0.25", "--json", "-q"]));
+    let v = json(&hopmap(&[
+        "paths",
+        &poscar,
+        "--spacing",
+        "0.25",
+        "--json",
+        "-q",
+    ]));
     let s = &v["structure"];
     assert_eq!(s["analysed_cell"], "conventional");
     assert_eq!(s["space_group"]["number"], 166);
@@ -36,11 +43,18 @@ fn a_poscar_is_answered_in_the_conventional_cell_and_says_so() {
     assert_eq!(s["positions_in_cell"], 12);
     assert_eq!(s["formula"], "LiCoO2");
     assert_eq!(s["z"], 3.0);
-    assert!(v["answer"].as_str().unwrap().contains("(001)"), "{}", v["answer"]);
+    assert!(
+        v["answer"].as_str().unwrap().contains("(001)"),
+        "{}",
+        v["answer"]
+    );
     // the terminal summary names the cell too
     let t = hopmap(&["inspect", &poscar]);
     let text = String::from_utf8_lossy(&t.stdout);
-    assert!(text.contains("which cell    the conventional cell of R -3 m"), "{text}");
+    assert!(
+        text.contains("which cell    the conventional cell of R -3 m"),
+        "{text}"
+    );
     // and --keep-cell keeps the 4-atom cell
     let k = json(&hopmap(&["inspect", &poscar, "--keep-cell", "--json"]));
     assert_eq!(k["analysed_cell"], "input");
@@ -67,7 +81,10 @@ fn oxidation_states_from_the_command_line_replace_the_assignment() {
         .filter(|i| i["species"].as_str().unwrap().starts_with("Co"))
         .map(|i| i["formal_vu"].as_f64().unwrap())
         .collect();
-    assert!(!co.is_empty() && co.iter().all(|q| (q - 3.5).abs() < 1e-9), "{co:?}");
+    assert!(
+        !co.is_empty() && co.iter().all(|q| (q - 3.5).abs() < 1e-9),
+        "{co:?}"
+    );
 }
 
 #[test]
