@@ -175,10 +175,12 @@ fn to_symop(op: &moyo::base::Operation) -> SymOp {
     }
 }
 
-/// Orbits (moyo's representative index per site) to asymmetric sites; labels are kept when
-/// every member of an orbit carries the same ones and no other orbit does, else made from the
-/// element and a running number.
-fn group_orbits(s: &mut Structure, orbits: &[usize], wyckoffs: &[char]) {
+/// Orbits (moyo's representative index per site) to asymmetric sites. With `relabel`, labels
+/// are kept when every member of an orbit carries the same ones and no other orbit does, else
+/// made from the element and a running number; without it every atom keeps its own labels and
+/// an asymmetric site takes its representative's (the input cell kept: the file's labels stay
+/// valid for --oxidation and --exclude).
+fn group_orbits(s: &mut Structure, orbits: &[usize], wyckoffs: &[char], relabel: bool) {
     let mut reps: Vec<usize> = orbits.to_vec();
     reps.sort();
     reps.dedup();
@@ -210,7 +212,7 @@ fn group_orbits(s: &mut Structure, orbits: &[usize], wyckoffs: &[char]) {
     let mut index_of: HashMap<usize, usize> = HashMap::new();
     for &r in &reps {
         let first = labels_of(&s.sites[r]);
-        let keep = uniform[&r] && owner.get(&first) == Some(&Some(r));
+        let keep = !relabel || (uniform[&r] && owner.get(&first) == Some(&Some(r)));
         let new_labels: Vec<String> = if keep {
             first
         } else {
@@ -230,9 +232,11 @@ fn group_orbits(s: &mut Structure, orbits: &[usize], wyckoffs: &[char]) {
             o.label = l.clone();
         }
         let ids: Vec<usize> = members(r).collect();
-        for &i in &ids {
-            for (o, l) in s.sites[i].occupants.iter_mut().zip(&new_labels) {
-                o.label = l.clone();
+        if relabel {
+            for &i in &ids {
+                for (o, l) in s.sites[i].occupants.iter_mut().zip(&new_labels) {
+                    o.label = l.clone();
+                }
             }
         }
         index_of.insert(r, asym.len());
@@ -270,7 +274,7 @@ fn fill_symmetry(s: &mut Structure, ds: &MoyoDataset) {
 fn in_input_cell(mut s: Structure, ds: &MoyoDataset, t: CellTransformation) -> Structure {
     let input_source = s.symmetry.source.clone();
     fill_symmetry(&mut s, ds);
-    group_orbits(&mut s, &ds.orbits, &ds.wyckoffs);
+    group_orbits(&mut s, &ds.orbits, &ds.wyckoffs, false);
     s.symmetry.source = format!(
         "a search by moyo at {SYMPREC_A} A in the P 1 input ({input_source}); the input cell \
          is kept, so directions refer to it, not to the conventional cell of {}",
@@ -371,7 +375,7 @@ fn conventional(s: &Structure, ds: &MoyoDataset) -> Result<(Structure, Vector3<f
         ));
     }
     fill_symmetry(&mut out, &ds2);
-    group_orbits(&mut out, &ds2.orbits, &ds2.wyckoffs);
+    group_orbits(&mut out, &ds2.orbits, &ds2.wyckoffs, true);
     let c = canonical_shift(&out);
     if c.norm() > 0.0 {
         for site in &mut out.sites {

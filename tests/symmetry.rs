@@ -125,6 +125,10 @@ fn keeping_the_input_cell_keeps_it_and_still_groups_the_sites() {
     let mut mult: Vec<usize> = s.asymmetric_sites.iter().map(|a| a.multiplicity).collect();
     mult.sort();
     assert_eq!(mult, vec![1, 1, 2]);
+    // every atom keeps the label the file gave it (POSCAR: element and running number)
+    let mut labels: Vec<&str> = s.sites.iter().map(|x| x.label()).collect();
+    labels.sort();
+    assert_eq!(labels, vec!["Co1", "Li1", "O1", "O2"]);
     let t = s.symmetry.transformation.as_ref().unwrap();
     assert!(!t.conventional);
     assert!(s.symmetry.source.contains("input cell is kept"));
