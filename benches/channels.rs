@@ -158,12 +158,26 @@ fn run(lattice: &Lattice, n: usize, rugged: bool) {
         let (basins, basin_hops) = stage(&mut stages, "basins + basin hops", || {
             network::hops::basins(&grid, ceiling)
         });
+        let merging = stage(
+            &mut stages,
+            "merge (persistence, percolation check)",
+            || {
+                let reference =
+                    network::graph::percolate_basins(&grid, &basins, &basin_hops, ceiling);
+                let options = network::merge::MergeOptions {
+                    depth: network::MERGE_DEPTH_EV,
+                    symmetry_tolerance: SiteOptions::default().symmetry_tolerance,
+                    try_straddling: true,
+                };
+                network::merge::merge(&grid, &basins, &basin_hops, &ops, &options, &reference)
+            },
+        );
         let (sites, orbits, assignment) =
-            stage(&mut stages, "sites (merge, orbits, coordination)", || {
+            stage(&mut stages, "sites (orbits, coordination)", || {
                 network::sites::find_sites(
                     &grid,
                     &basins,
-                    &basin_hops,
+                    &merging,
                     &ops,
                     &framework,
                     &[],
@@ -180,9 +194,10 @@ fn run(lattice: &Lattice, n: usize, rugged: bool) {
         assert_eq!(perc.energy(1), graph_p.energy(1), "graph and grid disagree");
         assert_eq!(perc.energy(3), graph_p.energy(3), "graph and grid disagree");
         summary = format!(
-            "basins {}, sites {}, orbits {}, hops {}, dimension {} (graph {}), E_1D {:?}, E_3D {:?} (grid units)",
+            "basins {}, sites {} (merge depth {}), orbits {}, hops {}, dimension {} (graph {}), E_1D {:?}, E_3D {:?} (grid units)",
             basins.minima.len(),
             sites.len(),
+            network::MERGE_DEPTH_EV,
             orbits.len(),
             hops.len(),
             perc.dimension,

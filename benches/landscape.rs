@@ -104,6 +104,7 @@ fn olivine_framework() -> LandscapeModel {
         anions,
         cations,
         atoms,
+        mobile: None,
         coulomb_cutoff: 8.0,
         energy_cap: 10.0,
         mismatch_cap: 10.0,

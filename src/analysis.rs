@@ -27,6 +27,25 @@ pub fn default_spacing_a(volume_a3: f64) -> f64 {
     s.clamp(0.1, 0.25)
 }
 
+/// Radius (A) around an occupied site of the mobile ion within which its well is read off the
+/// grid: the lowest point this close to the site is where the ion sits in the landscape.
+pub const OCCUPIED_WELL_RADIUS_A: f64 = 0.5;
+
+/// An empty pocket deeper than the occupied sites by more than this (eV) is reported apart.
+pub const DEEPER_VOID_EV: f64 = 0.05;
+
+/// Uncertainty of a barrier from the model (eV): its mean absolute error against published
+/// barriers of the reference set, scored leave-one-family-out (`cargo bench --bench
+/// model_evidence`; the table is in the science notes). Every number derived from a barrier
+/// (D, conductivity, diffusion length, largest particle) is given with the band this makes: at
+/// room temperature 0.1 eV is a factor of about 50 in D.
+pub const BARRIER_UNCERTAINTY_EV: f64 = 0.15;
+
+/// Below this diffusion coefficient (m^2/s) there is no bulk transport worth the name at the
+/// temperature: an ion covers less than 0.1 um in a day (`sqrt(6 D t)` with t = 86400 s gives
+/// 0.07 um). Renderers then say "no bulk transport" instead of printing the number.
+pub const NO_BULK_TRANSPORT_M2_S: f64 = 1e-20;
+
 /// Minima shallower than this (eV, the lowest barrier out of the site) are listed apart in
 /// summaries: they are points in flat valleys or grid artefacts rather than sites an ion rests on.
 pub const SHALLOW_SITE_EV: f64 = 0.05;
@@ -99,9 +118,10 @@ impl AnalysisOptions {
 pub struct ChannelTransport {
     pub dimension: u8,
     pub barrier_ev: f64,
-    /// Hop length of the hopping model (A): the channel's repeat over the rate-limiting passes
-    /// along its profile (see `hop_length_from_profile`), or the mean length of the open hops
-    /// when there is no profile.
+    /// Hop length of the hopping model (A): the length that makes the hopping model with the
+    /// channel's barrier reproduce the exact diffusion of the chain of sites and saddles along
+    /// the channel's profile ([`chain_diffusion_per_attempt`]), or the mean length of the open
+    /// hops when there is no profile.
     pub hop_length_a: f64,
     /// Diffusion coefficient at the chosen temperature (m^2/s).
     pub diffusion_m2_s: f64,
@@ -116,6 +136,17 @@ pub struct ChannelTransport {
     /// Nernst-Einstein conductivity at the temperature, S/cm (Haven ratio 1).
     pub conductivity_s_cm: Option<f64>,
     pub temperature_k: f64,
+    /// The model's barrier uncertainty (eV) behind the bands below; None for a measured D.
+    pub barrier_uncertainty_ev: Option<f64>,
+    /// D at the barrier plus and minus the uncertainty (low, high; m^2/s).
+    pub diffusion_band_m2_s: Option<(f64, f64)>,
+    /// Conductivity at the same two barriers (low, high; S/cm).
+    pub conductivity_band_s_cm: Option<(f64, f64)>,
+    /// Largest particle diameter at each C-rate of `rates` for the low and high D (um).
+    pub particle_band_um: Vec<(f64, f64)>,
+    /// False when D is below [`NO_BULK_TRANSPORT_M2_S`]: the numbers then mean nothing
+    /// for a battery and renderers say so in words.
+    pub bulk_transport: bool,
 }
 
 /// Everything the main job found.
@@ -219,6 +250,38 @@ pub fn mobile_sites(s: &Structure, ion: Element) -> Vec<MobileSite> {
         .collect()
 }
 
+/// The grid point where each occupied site of the mobile ion sits in the landscape: the lowest
+/// point within [`OCCUPIED_WELL_RADIUS_A`] of the site. Barriers are measured from these points
+/// (see [`percolation::percolate_marked`]).
+pub fn occupied_wells(grid: &Grid, sites: &[MobileSite]) -> Vec<usize> {
+    let mut v: Vec<usize> = sites
+        .iter()
+        .map(|s| grid.lowest_within(s.frac, OCCUPIED_WELL_RADIUS_A))
+        .collect();
+    v.sort_unstable();
+    v.dedup();
+    v
+}
+
+/// Says so when a network's lowest point is an empty pocket clearly deeper than the sites the
+/// ion occupies (the barrier is then measured from the occupied sites).
+fn deeper_void_warning(p: &Percolation, grid: &Grid, warnings: &mut Vec<String>) {
+    let Some(t) = p.thresholds.iter().flatten().next() else {
+        return;
+    };
+    let Some(occupied) = t.marked_lowest else {
+        return;
+    };
+    let depth = occupied - t.channel.lowest;
+    if depth as f64 > DEEPER_VOID_EV {
+        let f = grid.frac(grid.ijk(t.channel.lowest_point)).wrapped();
+        warnings.push(format!(
+            "the landscape's lowest point, an empty pocket at ({:.3}, {:.3}, {:.3}), lies {:.2} eV below the sites the ion occupies; barriers are measured from the occupied sites",
+            f.0.x, f.0.y, f.0.z, depth
+        ));
+    }
+}
+
 /// Model and grids only: the first half of [`analyse`], shared with `hopmap grid` and the
 /// calibration.
 pub fn model_and_landscape(
@@ -295,7 +358,10 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
 
     let t = Instant::now();
     let ceiling = model.energy_cap as f32;
-    let percolation = percolation::percolate(&land.energy, ceiling);
+    let mobile = mobile_sites(&s, opts.ion);
+    let marks = occupied_wells(&land.energy, &mobile);
+    let percolation = percolation::percolate_marked(&land.energy, ceiling, &marks);
+    deeper_void_warning(&percolation, &land.energy, &mut warnings);
     let mismatch_percolation = percolation::percolate(&land.mismatch, model.mismatch_cap as f32);
     timings.push(("percolation", t.elapsed().as_secs_f64()));
 
@@ -395,44 +461,115 @@ fn timings_push(a: &mut Analysis, name: &'static str, t: Instant) {
     a.timings.push((name, t.elapsed().as_secs_f64()));
 }
 
-/// Hop length (A) of the hopping model from a channel profile: the repeat length of the
-/// channel divided by the number of rate-limiting passes along one repeat, i.e. of the times
-/// the path climbs to within [`SHALLOW_SITE_EV`] of its highest point after having been at
-/// least twice that far below it.
+/// Diffusion along a periodic chain of sites, exactly: sites `i` with energies `E_i` (eV) and the
+/// saddle `S_i` (eV) between site `i` and the next, one period of length `L` (A). With per-
+/// direction hop rates `w_i = nu exp(-(S_i - E_i) / kT) / 2` and equilibrium occupations
+/// `pi_i ~ exp(-E_i / kT)` over one period, a steady flux through the chain gives (the resistances
+/// of its bonds add in series; detailed balance)
 ///
-/// Random-walk arithmetic: along a periodic chain of period L crossed over n equal barriers,
-/// a walker makes hops of L/n at the rate over one barrier, so `D = (L/n)^2 Gamma / 2`; when one
-/// barrier per period dominates and the others are lower, the period is crossed at about the
-/// rate over that one, so `D ~ L^2 Gamma / 2` and the intermediate minima (a tunnel's cavity and
-/// window sites, say) do not shorten the hop. Counting the passes near the top covers both.
-fn hop_length_from_profile(p: &Profile, lattice: &crate::lattice::Lattice) -> Option<f64> {
+/// `D = L^2 / sum_i 1 / (pi_i w_i)`
+///
+/// which for N equal sites is the random walk `D = (L/N)^2 w`. Returns `D / nu` (A^2, per unit
+/// attempt frequency).
+pub fn chain_diffusion_per_attempt(
+    sites_ev: &[f64],
+    saddles_ev: &[f64],
+    period_a: f64,
+    kt_ev: f64,
+) -> Option<f64> {
+    if sites_ev.is_empty() || sites_ev.len() != saddles_ev.len() || !(period_a > 0.0 && kt_ev > 0.0)
+    {
+        return None;
+    }
+    let e0 = sites_ev.iter().copied().fold(f64::INFINITY, f64::min);
+    let z: f64 = sites_ev.iter().map(|e| (-(e - e0) / kt_ev).exp()).sum();
+    let resistance: f64 = sites_ev
+        .iter()
+        .zip(saddles_ev)
+        .map(|(e, s)| {
+            let pi = (-(e - e0) / kt_ev).exp() / z;
+            let w = 0.5 * (-(s - e) / kt_ev).exp();
+            1.0 / (pi * w)
+        })
+        .sum();
+    (resistance.is_finite() && resistance > 0.0).then(|| period_a * period_a / resistance)
+}
+
+/// Removes from a periodic chain (site `i` is followed by saddle `i`, then site `i + 1`) every
+/// well shallower than `depth` (eV) below the lower of its two saddles, shallowest first, keeping
+/// the higher of those two saddles: a walker does not rest in a dip shallower than a few kT, so
+/// such a dip neither adds a hop nor splits a barrier in two. At least one site is kept.
+fn merge_shallow_wells(sites: &mut Vec<f64>, saddles: &mut Vec<f64>, depth: f64) {
+    while sites.len() > 1 {
+        let n = sites.len();
+        let (k, d) = (0..n)
+            .map(|k| {
+                let left = saddles[(k + n - 1) % n];
+                (k, left.min(saddles[k]) - sites[k])
+            })
+            .min_by(|a, b| a.1.total_cmp(&b.1))
+            .expect("non-empty");
+        if d >= depth {
+            break;
+        }
+        let left = (k + n - 1) % n;
+        let high = saddles[left].max(saddles[k]);
+        saddles[left] = high;
+        sites.remove(k);
+        saddles.remove(k);
+    }
+}
+
+/// Hop length (A) of the hopping model from a channel profile: the length `a` for which the
+/// hopping model with the channel's barrier `Ea` gives the diffusion coefficient of the periodic
+/// chain of minima and saddles along the profile ([`chain_diffusion_per_attempt`]) at the
+/// temperature: `a^2 nu exp(-Ea/kT) / 2 = D_chain`. For N equal sites per repeat it is the
+/// repeat over N (olivine: b/2); a shallow intermediate minimum hardly shortens it, a deep one
+/// (the tetrahedral site between two octahedral sites of a layered oxide) brings it from the
+/// repeat towards the repeat over sqrt(2). Never longer than the repeat.
+fn hop_length_from_profile(
+    p: &Profile,
+    lattice: &crate::lattice::Lattice,
+    barrier_ev: f64,
+    temperature_k: f64,
+) -> Option<f64> {
     let t = nalgebra::Vector3::new(
         p.translation[0] as f64,
         p.translation[1] as f64,
         p.translation[2] as f64,
     );
     let repeat = lattice.frac_delta_length(t);
-    let band = SHALLOW_SITE_EV as f32;
-    let top = p
-        .points
-        .iter()
-        .map(|q| q.energy)
-        .fold(f32::NEG_INFINITY, f32::max);
-    let mut passes = 0usize;
-    let mut armed = true;
-    for q in &p.points {
-        if armed && q.energy >= top - band {
-            passes += 1;
-            armed = false;
-        } else if !armed && q.energy <= top - 2.0 * band {
-            armed = true;
-        }
+    // minima along one period (the last point is the image of the first) and the highest point
+    // between each minimum and the next
+    let e: Vec<f64> = p.points.iter().map(|q| q.energy as f64).collect();
+    if e.len() < 3 {
+        return None;
     }
-    let passes = passes.max(1);
-    (repeat > 0.0).then(|| repeat / passes as f64)
+    let n = e.len() - 1;
+    let at = |i: usize| e[i % n];
+    let minima: Vec<usize> = (0..n)
+        .filter(|&i| at(i + n - 1) > at(i) && at(i + 1) >= at(i))
+        .collect();
+    if minima.is_empty() {
+        return None;
+    }
+    let mut sites: Vec<f64> = minima.iter().map(|&i| at(i)).collect();
+    let mut saddles: Vec<f64> = minima
+        .iter()
+        .enumerate()
+        .map(|(k, &i)| {
+            let next = minima.get(k + 1).copied().unwrap_or(minima[0] + n);
+            (i..=next).map(at).fold(f64::NEG_INFINITY, f64::max)
+        })
+        .collect();
+    merge_shallow_wells(&mut sites, &mut saddles, SHALLOW_SITE_EV);
+    let kt = transport::BOLTZMANN_EV_PER_K * temperature_k;
+    let d = chain_diffusion_per_attempt(&sites, &saddles, repeat, kt)?;
+    let a = (d / (0.5 * (-barrier_ev / kt).exp())).sqrt();
+    (a.is_finite() && a > 0.0).then_some(a.min(repeat))
 }
 
-/// Mean length (A) of the hops open at `level`, in the network reached at that level.
+/// Mean length (A) of the open hops at `level`, in the network reached at that level.
 fn mean_hop_length(net: &Network, level: f32) -> Option<f64> {
     let open: Vec<f64> = net
         .hops
@@ -500,7 +637,7 @@ fn channel_transport(
         let Some(hop) = profiles
             .iter()
             .find(|p| p.dimension == t.dimension)
-            .and_then(|p| hop_length_from_profile(p, lattice))
+            .and_then(|p| hop_length_from_profile(p, lattice, t.barrier as f64, r.temperature_k))
             .or_else(|| mean_hop_length(net, t.energy))
         else {
             continue;
@@ -541,10 +678,44 @@ fn channel_transport(
             .measured_diffusion
             .map(|(_, tk)| tk)
             .unwrap_or(r.temperature_k);
-        let conductivity_s_cm = carriers
-            .and_then(|n| transport::nernst_einstein(n, charge, diffusion, temperature_k).ok())
-            .map(|c| c.siemens_per_cm());
+        let sigma = |d: f64| {
+            carriers
+                .and_then(|n| transport::nernst_einstein(n, charge, d, temperature_k).ok())
+                .map(|c| c.siemens_per_cm())
+        };
+        let conductivity_s_cm = sigma(diffusion);
+        // the band of the model's barrier uncertainty (not for a measured D)
+        let band = model.as_ref().map(|m| {
+            let at = |ea: f64| {
+                HoppingModel {
+                    barrier_ev: ea.max(0.0),
+                    ..m.clone()
+                }
+                .diffusion_coefficient(temperature_k)
+            };
+            (
+                at(barrier + BARRIER_UNCERTAINTY_EV),
+                at(barrier - BARRIER_UNCERTAINTY_EV),
+            )
+        });
+        let particle_band_um = match band {
+            Some((lo, hi)) => {
+                let table =
+                    |d: f64| transport::rate_table(d, t.dimension, &r.c_rates).unwrap_or_default();
+                table(lo)
+                    .iter()
+                    .zip(table(hi).iter())
+                    .map(|(a, b)| (a.max_particle_diameter_um, b.max_particle_diameter_um))
+                    .collect()
+            }
+            None => vec![],
+        };
         out.push(ChannelTransport {
+            barrier_uncertainty_ev: model.as_ref().map(|_| BARRIER_UNCERTAINTY_EV),
+            diffusion_band_m2_s: band,
+            conductivity_band_s_cm: band.and_then(|(lo, hi)| Some((sigma(lo)?, sigma(hi)?))),
+            particle_band_um,
+            bulk_transport: diffusion >= NO_BULK_TRANSPORT_M2_S,
             dimension: t.dimension,
             barrier_ev: barrier,
             hop_length_a: hop,
@@ -648,7 +819,10 @@ pub fn headline(a: &Analysis) -> String {
             percolation::Span::Closed => continue,
         };
         if parts.is_empty() {
-            parts.push(format!("{what}, barrier {:.2} eV", t.barrier));
+            parts.push(format!(
+                "{what}, barrier {:.2} ± {:.2} eV",
+                t.barrier, BARRIER_UNCERTAINTY_EV
+            ));
         } else {
             parts.push(format!(
                 "{} at {:.2} eV",

@@ -276,6 +276,7 @@ pub fn morse_part(s: &Structure, opts: &AnalysisOptions) -> Result<Grid, Analysi
     model
         .atoms
         .retain(|a| matches!(a.kind, FrameworkKind::Anion(_)));
+    model.mobile = None;
     Ok(landscape::compute(&model, dims_for(s, opts), Progress::Silent).energy)
 }
 
@@ -288,7 +289,7 @@ pub fn coulomb_part(s: &Structure, opts: &AnalysisOptions) -> Result<Grid, Analy
     model
         .atoms
         .retain(|a| matches!(a.kind, FrameworkKind::Cation(_)));
-    if model.atoms.is_empty() {
+    if model.atoms.is_empty() && model.mobile.is_none() {
         return Ok(Grid::new(model.lattice.clone(), dims, 0.0));
     }
     Ok(landscape::compute(&model, dims, Progress::Silent).energy)
@@ -350,6 +351,7 @@ fn tabulate(
     opts.progress = Progress::Silent;
     let (s, _) = analysis::with_oxidation_states(&r.structure, &opts.table)?;
     let morse = morse_part(&s, &opts)?;
+    let mobile = analysis::mobile_sites(&s, r.ion);
     let cap = opts.knobs.energy_cap_ev;
     let mut outcomes = Vec::with_capacity(grid.screening_factor.len());
     for &sf in &grid.screening_factor {
@@ -360,7 +362,8 @@ fn tabulate(
             .par_iter()
             .map(|&d0| {
                 let e = combine(&morse, &coulomb, d0, cap);
-                Outcome::of(&percolation::percolate(&e, cap as f32))
+                let marks = analysis::occupied_wells(&e, &mobile);
+                Outcome::of(&percolation::percolate_marked(&e, cap as f32, &marks))
             })
             .collect();
         outcomes.push(row);

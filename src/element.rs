@@ -70,6 +70,18 @@ impl Element {
         v.extend(self.row().5.iter().copied().filter(|q| !common.contains(q)));
         v
     }
+    /// Period (row) of the periodic table, 1-7: the principal quantum number of the valence shell.
+    pub fn period(&self) -> u8 {
+        match self.0 {
+            0..=2 => 1,
+            3..=10 => 2,
+            11..=18 => 3,
+            19..=36 => 4,
+            37..=54 => 5,
+            55..=86 => 6,
+            _ => 7,
+        }
+    }
     /// Pauling electronegativity (NaN for the noble gases without one).
     pub fn electronegativity(&self) -> f64 {
         self.row().4

@@ -91,6 +91,40 @@ impl Grid {
         [0, 1, 2].map(|a| ((w.0[a] * self.dims[a] as f64).round() as usize) % self.dims[a])
     }
 
+    /// Index of the lowest value among the grid points within `radius_a` (A) of a fractional
+    /// position, periodic; the nearest point when none is that close.
+    pub fn lowest_within(&self, f: Frac, radius_a: f64) -> usize {
+        let centre = self.nearest_point(f);
+        let mut best = self.index(centre[0], centre[1], centre[2]);
+        let widths = self.lattice.perpendicular_widths();
+        let reach: [i64; 3] =
+            [0, 1, 2].map(|a| (radius_a / widths[a] * self.dims[a] as f64).ceil() as i64);
+        let w = f.wrapped().0;
+        let start = [0, 1, 2].map(|a| (w[a] * self.dims[a] as f64).round() as i64);
+        for di in -reach[0]..=reach[0] {
+            for dj in -reach[1]..=reach[1] {
+                for dk in -reach[2]..=reach[2] {
+                    let ijk = [start[0] + di, start[1] + dj, start[2] + dk];
+                    let d = nalgebra::Vector3::new(
+                        ijk[0] as f64 / self.dims[0] as f64 - w[0],
+                        ijk[1] as f64 / self.dims[1] as f64 - w[1],
+                        ijk[2] as f64 / self.dims[2] as f64 - w[2],
+                    );
+                    if self.lattice.frac_delta_length(d) > radius_a {
+                        continue;
+                    }
+                    let [i, j, k] =
+                        [0, 1, 2].map(|a| ijk[a].rem_euclid(self.dims[a] as i64) as usize);
+                    let idx = self.index(i, j, k);
+                    if self.values[idx] < self.values[best] {
+                        best = idx;
+                    }
+                }
+            }
+        }
+        best
+    }
+
     pub fn min_max(&self) -> (f32, f32) {
         self.values
             .iter()

@@ -252,7 +252,11 @@ pub struct Channel {
     pub onset: f32,
     /// Lowest value inside the region at that moment.
     pub lowest: f32,
-    /// `onset - lowest`: the barrier of this channel.
+    /// Lowest value among the marked points of the region (see [`percolate_marked`]: the
+    /// occupied sites of the mobile ion), when it holds any.
+    pub marked_lowest: Option<f32>,
+    /// The barrier of this channel: `onset - marked_lowest` when the region holds marked
+    /// points, else `onset - lowest`.
     pub barrier: f32,
     /// Where the lowest value sits: a grid index for a grid percolation, a site index for the
     /// site graph.
@@ -270,8 +274,11 @@ pub struct Threshold {
     /// `E_d` (grid units).
     pub energy: f32,
     /// `E_d` minus the lowest value of the deepest region percolating at `E_d` (the largest
-    /// barrier among the regions that open together; they are usually symmetry copies).
+    /// barrier among the regions that open together; they are usually symmetry copies), or,
+    /// when the percolating regions hold marked points, `E_d` minus the lowest of those.
     pub barrier: f32,
+    /// Lowest value among the marked points of the regions percolating at `E_d`.
+    pub marked_lowest: Option<f32>,
     /// That deepest region.
     pub channel: Channel,
     /// Number of distinct regions percolating in at least `dimension` dimensions at `E_d`
@@ -291,6 +298,8 @@ pub struct ChannelFamily {
     pub onset: f32,
     /// Barrier of the first member.
     pub barrier: f32,
+    /// Lowest marked point of the first member.
+    pub marked_lowest: Option<f32>,
     /// How many regions opened independently with this dimension and direction.
     pub components: usize,
 }
@@ -583,6 +592,8 @@ pub(crate) struct Sweep<'a, O: Offset> {
     dirty: Vec<u32>,
     openings: Vec<Channel>,
     thresholds: [Option<Threshold>; 3],
+    /// Marked points (sorted, distinct).
+    marks: Vec<u32>,
 }
 
 impl<'a, O: Offset> Sweep<'a, O> {
@@ -605,7 +616,42 @@ impl<'a, O: Offset> Sweep<'a, O> {
             dirty: Vec::new(),
             openings: Vec::new(),
             thresholds: [None, None, None],
+            marks: Vec::new(),
         }
+    }
+
+    /// Marks points whose lowest value inside each region is recorded with the region's
+    /// openings (`marked_lowest`), and from which barriers are then measured.
+    pub(crate) fn set_marks(&mut self, marks: &[usize]) {
+        let mut m: Vec<u32> = marks
+            .iter()
+            .filter(|&&x| x < self.values.len())
+            .map(|&x| x as u32)
+            .collect();
+        m.sort_unstable();
+        m.dedup();
+        self.marks = m;
+    }
+
+    /// Root of `x` without path compression.
+    fn root_of(&self, mut x: usize) -> usize {
+        loop {
+            let p = self.parent[x] as usize;
+            if p == x {
+                return x;
+            }
+            x = p;
+        }
+    }
+
+    /// Lowest value of the marked points already added whose root is in `roots`.
+    fn marked_lowest_in(&self, roots: &[usize]) -> Option<f32> {
+        self.marks
+            .iter()
+            .map(|&m| m as usize)
+            .filter(|&m| self.is_added(m) && roots.contains(&self.root_of(m)))
+            .map(|m| self.values[m])
+            .min_by(|a, b| a.total_cmp(b))
     }
 
     /// Hints the processor to load the entries of `x` (no effect off x86-64 or out of range).
@@ -759,12 +805,14 @@ impl<'a, O: Offset> Sweep<'a, O> {
         let w = &self.windings[&(root as u32)];
         let low = self.low[root] as usize;
         let lowest = self.values[low];
+        let marked_lowest = self.marked_lowest_in(&[root]);
         Channel {
             dimension: w.rows.len() as u8,
             span: Span::from_rows(&w.rows, self.lattice),
             onset: energy,
             lowest,
-            barrier: energy - lowest,
+            marked_lowest,
+            barrier: energy - marked_lowest.unwrap_or(lowest),
             lowest_point: low,
             size: self.size[root] as usize,
             fraction: self.size[root] as f64 / self.values.len() as f64,
@@ -807,10 +855,12 @@ impl<'a, O: Offset> Sweep<'a, O> {
             });
             let deepest = self.channel(members[0], energy);
             let voxels: usize = members.iter().map(|&r| self.size[r] as usize).sum();
+            let marked_lowest = self.marked_lowest_in(&members);
             self.thresholds[d - 1] = Some(Threshold {
                 dimension: d as u8,
                 energy,
-                barrier: deepest.barrier,
+                barrier: energy - marked_lowest.unwrap_or(deepest.lowest),
+                marked_lowest,
                 channel: deepest,
                 components: members.len(),
                 fraction: voxels as f64 / self.values.len() as f64,
@@ -848,6 +898,7 @@ impl<'a, O: Offset> Sweep<'a, O> {
                     span: ch.span.clone(),
                     onset: ch.onset,
                     barrier: ch.barrier,
+                    marked_lowest: ch.marked_lowest,
                     components: 1,
                 }),
             }
@@ -919,9 +970,22 @@ pub fn percolate_levels(grid: &Grid, ceiling: f32, levels: &[f32]) -> Percolatio
 /// that callers measuring the stages, or reusing the order, do not sort twice).
 pub fn percolate_in_order(grid: &Grid, ceiling: f32, order: &[u64], levels: &[f32]) -> Percolation {
     if offsets_fit_i16(grid.dims) {
-        sweep_grid::<i16>(grid, ceiling, order, levels).finish_with(ceiling)
+        sweep_grid::<i16>(grid, ceiling, order, levels, &[]).finish_with(ceiling)
     } else {
-        sweep_grid::<i32>(grid, ceiling, order, levels).finish_with(ceiling)
+        sweep_grid::<i32>(grid, ceiling, order, levels, &[]).finish_with(ceiling)
+    }
+}
+
+/// As [`percolate`], with marked points: the occupied sites of the mobile ion, say. Every
+/// region records the lowest of its marked points, and barriers are measured from it when the
+/// region holds any (from the region's lowest point otherwise): the ion starts from where it
+/// sits, not from a deeper empty pocket of the landscape.
+pub fn percolate_marked(grid: &Grid, ceiling: f32, marks: &[usize]) -> Percolation {
+    let order = visit_order(&grid.values, ceiling);
+    if offsets_fit_i16(grid.dims) {
+        sweep_grid::<i16>(grid, ceiling, &order, &[], marks).finish_with(ceiling)
+    } else {
+        sweep_grid::<i32>(grid, ceiling, &order, &[], marks).finish_with(ceiling)
     }
 }
 
@@ -941,8 +1005,10 @@ fn sweep_grid<'a, O: Offset>(
     _ceiling: f32,
     order: &[u64],
     levels: &[f32],
+    marks: &[usize],
 ) -> GridSweep<'a, O> {
     let mut sweep = Sweep::<O>::new(&grid.values, &grid.lattice);
+    sweep.set_marks(marks);
     let mut lv: Vec<f32> = levels.iter().copied().filter(|l| !l.is_nan()).collect();
     lv.sort_by(|a, b| a.total_cmp(b));
     let mut stats = Vec::with_capacity(lv.len());
@@ -1018,14 +1084,14 @@ pub fn regions_at(grid: &Grid, level: f32) -> RegionMap {
         regions_from(
             grid,
             level,
-            sweep_grid::<i16>(grid, ceiling, &order, &[]).sweep,
+            sweep_grid::<i16>(grid, ceiling, &order, &[], &[]).sweep,
             &order,
         )
     } else {
         regions_from(
             grid,
             level,
-            sweep_grid::<i32>(grid, ceiling, &order, &[]).sweep,
+            sweep_grid::<i32>(grid, ceiling, &order, &[], &[]).sweep,
             &order,
         )
     }

@@ -94,6 +94,16 @@ fn network_matches_grid(
         mobile_radius: 0.76,
     };
     let net = network::build(grid, &input, &options);
+    assert!(
+        !net.merging.fell_back,
+        "the merged site graph failed its own check"
+    );
+    let grid_p = graph_matches_grid(grid, grid_p, &net);
+    (net, grid_p)
+}
+
+/// Checks that the percolation of `net`'s site graph equals `grid_p`, the grid's.
+fn graph_matches_grid(grid: &Grid, grid_p: Percolation, net: &network::Network) -> Percolation {
     let graph_p = net.percolate(grid);
     assert_eq!(graph_p.dimension, grid_p.dimension, "dimension");
     for d in 1..=3u8 {
@@ -128,7 +138,7 @@ fn network_matches_grid(
             .collect::<Vec<_>>()
     };
     assert_eq!(fam(&grid_p), fam(&graph_p), "channel families");
-    (net, grid_p)
+    grid_p
 }
 
 /// -1.0 cos 2 pi x - 0.6 cos 2 pi y - 0.3 cos 2 pi z on a 6 x 5 x 4 A orthorhombic cell.
@@ -431,8 +441,9 @@ fn sites_of_a_separable_landscape_fall_into_mmm_orbits() {
     let g = four_minima_per_axis();
     let ops = mmm_ops();
     let (basins, bh) = network::hops::basins(&g, f32::INFINITY);
+    let merging = network::merge::unmerged(&g, &basins, &bh);
     let (sites, orbits, _) =
-        network::sites::find_sites(&g, &basins, &bh, &ops, &[], &[], &Default::default());
+        network::sites::find_sites(&g, &basins, &merging, &ops, &[], &[], &Default::default());
     assert_eq!(sites.len(), 64);
     assert_eq!(orbits.len(), 27);
     let mut hist = std::collections::BTreeMap::new();
@@ -451,7 +462,7 @@ fn sites_of_a_separable_landscape_fall_into_mmm_orbits() {
     );
     // P1: every site is its own orbit
     let (_, p1, _) =
-        network::sites::find_sites(&g, &basins, &bh, &[], &[], &[], &Default::default());
+        network::sites::find_sites(&g, &basins, &merging, &[], &[], &[], &Default::default());
     assert_eq!(p1.len(), 64);
     network_matches_grid(&g, f32::INFINITY, &NetworkOptions::default());
 }
@@ -662,10 +673,13 @@ fn the_profile_of_a_straight_channel_runs_one_repeat_and_peaks_at_the_threshold(
 }
 
 #[test]
-fn close_minima_merge_only_when_that_keeps_the_network_exact() {
-    // (1) A well -cos 2 pi x - cos 2 pi y - cos 2 pi z (10 A cube, 0.25 A voxels) with a small
-    // bump at (1, 0, 0) leaves a second minimum at (2, 0, 0), 0.5 A from the first and joined
-    // to it low down: merged into one site of two minima.
+fn a_shallow_minimum_merges_into_the_well_it_drains_to_and_deep_ones_stay_apart() {
+    // (1) A well -cos 2 pi x - cos 2 pi y - cos 2 pi z (10 A cube, 0.25 A voxels) with a bump
+    // at grid point (1, 0, 0) set to -2.9 leaves a second minimum at (2, 0, 0), value
+    // -cos(2 pi / 20) - 2 = -2.9511. Its lowest exit towards the well is the step to (2, 1, 0),
+    // value -cos(2 pi / 20) - cos(2 pi / 40) - 1 = -2.9388, a voxel that drains to the well
+    // through (1, 1, 0): persistence 0.0123, below the default depth of 0.05, so one site of
+    // two minima whose internal saddle is -2.9388.
     let n = 40;
     let c = cos_table(n);
     let mut g = grid_from(
@@ -675,23 +689,30 @@ fn close_minima_merge_only_when_that_keeps_the_network_exact() {
     );
     let x = g.index(1, 0, 0);
     g.values[x] = -2.9;
-    let options = NetworkOptions {
-        sites: network::SiteOptions {
-            merge_distance: 0.6,
-            ..Default::default()
-        },
-        ..Default::default()
-    };
-    let (net, _) = network_matches_grid(&g, f32::INFINITY, &options);
+    let (net, _) = network_matches_grid(&g, f32::INFINITY, &NetworkOptions::default());
     assert_eq!(net.basins.minima.len(), 2);
+    let shallow = net.basins.minima.iter().position(|&v| v != 0).unwrap();
+    let expected = -c[2] - c[1] - 1.0 - (-c[2] - 2.0);
+    assert!(
+        close(net.merging.persistence[shallow], expected, 1e-5),
+        "{:?}",
+        net.merging.persistence
+    );
     assert_eq!(net.sites.len(), 1);
     assert_eq!(net.sites[0].minima, 2);
+    assert_eq!(net.sites[0].voxel, 0, "the site keeps the lower minimum");
     let internal = net.sites[0].internal_saddle.unwrap();
-    assert!(internal < -2.9 && internal > -2.96, "{internal}");
+    assert!(close(internal, -c[2] - c[1] - 1.0, 1e-6), "{internal}");
+    // with a depth below its persistence it stays a site of its own
+    let strict = NetworkOptions {
+        merge_depth: 0.01,
+        ..Default::default()
+    };
+    let (net, _) = network_matches_grid(&g, f32::INFINITY, &strict);
+    assert_eq!(net.sites.len(), 2);
 
-    // (2) Two tunnels along c, 0.5 A apart, separated by a wall that is higher than the
-    // crossing of either tunnel: merging them would join two channels that the grid keeps
-    // apart, so they stay two sites and two channels.
+    // (2) Two tunnels along c, 0.5 A apart, separated by a wall: the floors lie 1.5 below the
+    // wall at k = 0, far more than the depth, so they stay two sites and two channels.
     let cz = cos_table(n);
     let g = grid_from(
         cell(10.0, 10.0, 10.0, 90.0, 90.0, 90.0),
@@ -705,12 +726,90 @@ fn close_minima_merge_only_when_that_keeps_the_network_exact() {
             floor - 0.5 * cz[k]
         },
     );
-    let (net, p) = network_matches_grid(&g, f32::INFINITY, &options);
+    let (net, p) = network_matches_grid(&g, f32::INFINITY, &NetworkOptions::default());
     assert!(close(p.energy(1).unwrap(), -1.5, 1e-6));
     assert_eq!(p.threshold(1).unwrap().components, 2);
     let tunnels: Vec<_> = net.sites.iter().filter(|s| s.energy < -2.0).collect();
     assert_eq!(tunnels.len(), 2);
     assert!(tunnels.iter().all(|s| s.minima == 1));
+}
+
+#[test]
+fn a_double_well_chain_with_a_split_well_has_two_sites_and_two_hops_per_repeat() {
+    // Along a (8 A, 40 points): f(x) = -cos 4 pi x, two wells per repeat at x = 0 and 1/2 and
+    // saddles of +1 at x = 1/4 and 3/4, except that the grid point x = 1/2 is raised from -1
+    // to -0.94: the second well splits into two tied minima at x = 19/40 and 21/40, both
+    // f = -cos(2 pi 2/40) = -0.95106, joined over that bump. Across b and c (4 A, 8 points)
+    // -2 cos 2 pi y - 2 cos 2 pi z keeps the chain 1D up to E_1D = 1 - 4 = -3 along [100].
+    // Persistence of the split minimum: -0.94 + 0.95106 = 0.011 eV, below the 0.05 default:
+    // it merges into its twin, and the merged site sits midway, on x = 1/2. The pair then
+    // drains to the well at x = 0 over +1: persistence 1.95, a site. So per repeat: before,
+    // three sites and three hops up to E_1D, one of them a fraction of an angstrom between the
+    // twins; after, two sites and two hops of a/2 = 4 A, over the saddles at x = 1/4 and 3/4.
+    let n = 40;
+    let (c, cz) = (cos_table(n), cos_table(8));
+    let f = |i: usize| if i == n / 2 { -0.94 } else { -c[(2 * i) % n] };
+    let g = grid_from(
+        cell(8.0, 4.0, 4.0, 90.0, 90.0, 90.0),
+        [n, 8, 8],
+        |i, j, k| f(i) - 2.0 * cz[j] - 2.0 * cz[k],
+    );
+    let e1 = -3.0;
+    let up_to_e1 = |net: &network::Network| -> Vec<f64> {
+        let mut v: Vec<f64> = net
+            .hops
+            .iter()
+            .filter(|h| h.saddle_energy <= e1 as f32)
+            .map(|h| h.length)
+            .collect();
+        v.sort_by(f64::total_cmp);
+        v
+    };
+
+    let unmerged = NetworkOptions {
+        merge_depth: 0.0,
+        ..Default::default()
+    };
+    let (before, p) = network_matches_grid(&g, f32::INFINITY, &unmerged);
+    assert!(close(p.energy(1).unwrap(), e1, 1e-6));
+    assert_eq!(direction(&p, 1), [1, 0, 0]);
+    assert_eq!(before.sites.len(), 3);
+    let lengths = up_to_e1(&before);
+    assert_eq!(lengths.len(), 3, "{lengths:?}");
+    assert!(lengths[0] < 0.5, "the hop between the twins: {lengths:?}");
+
+    let (after, _) = network_matches_grid(&g, f32::INFINITY, &NetworkOptions::default());
+    let twin = after
+        .basins
+        .minima
+        .iter()
+        .position(|&v| v == g.index(n / 2 + 1, 0, 0))
+        .unwrap();
+    assert!(close(after.merging.persistence[twin], -0.94 + c[2], 1e-5));
+    assert_eq!(after.sites.len(), 2);
+    let pair = &after.sites[1];
+    assert_eq!(pair.minima, 2);
+    assert!(close(pair.internal_saddle.unwrap(), -0.94 - 4.0, 1e-5));
+    assert!(
+        (pair.frac.0 - nalgebra::Vector3::new(0.5, 0.0, 0.0)).norm() < 1e-9,
+        "midway between the tied twins: {:?}",
+        pair.frac
+    );
+    let lengths = up_to_e1(&after);
+    assert_eq!(lengths.len(), 2, "{lengths:?}");
+    assert!(
+        lengths.iter().all(|l| (l - 4.0).abs() < 1e-9),
+        "{lengths:?}"
+    );
+    for h in after.hops.iter().filter(|h| h.saddle_energy <= e1 as f32) {
+        assert!(close(h.saddle_energy, e1, 1e-6));
+        let (deep, split) = if h.from == 0 {
+            (h.barrier_forward, h.barrier_backward)
+        } else {
+            (h.barrier_backward, h.barrier_forward)
+        };
+        assert!(close(deep, 2.0, 1e-5) && close(split, 2.0 - (1.0 - c[2]), 1e-5));
+    }
 }
 
 /// A small deterministic random source (xorshift64), uniform in [0, 1).
@@ -743,31 +842,29 @@ fn random_grid(
 
 #[test]
 fn the_site_graph_reproduces_the_grid_on_random_landscapes() {
-    // No function to reason about here: random values (some quantised to force ties), odd and
-    // tiny grids (1 or 2 points on an axis), a skewed cell, walls below a ceiling, and a merge
-    // distance large enough that many minima are grouped and some groups must be split again.
-    // Whatever the landscape, the site graph must give the grid's percolation exactly.
+    // No function to reason about here: random values in [0, 1) (some quantised to force
+    // ties), odd and tiny grids (1 or 2 points on an axis), a skewed cell, walls below a
+    // ceiling, and merge depths from none to half the range of values, so that most minima
+    // merge and many merges straddle a percolation level. Whatever the landscape, the site
+    // graph must give the grid's percolation exactly, without falling back to unmerged minima.
     let mut next = xorshift(0x9e37_79b9_7f4a_7c15);
     let lattice = cell(3.1, 3.7, 4.3, 83.0, 97.0, 112.0);
-    let cases: [([usize; 3], Option<f64>, f64); 8] = [
-        ([6, 5, 4], None, 0.5),
-        ([7, 6, 5], Some(8.0), 1.5),
-        ([1, 6, 6], None, 0.5),
-        ([2, 2, 9], Some(4.0), 1.0),
-        ([9, 8, 7], None, 2.0),
-        ([10, 9, 8], Some(16.0), 1.2),
+    let cases: [([usize; 3], Option<f64>, f32); 8] = [
+        ([6, 5, 4], None, 0.05),
+        ([7, 6, 5], Some(8.0), 0.2),
+        ([1, 6, 6], None, 0.05),
+        ([2, 2, 9], Some(4.0), 0.3),
+        ([9, 8, 7], None, 0.5),
+        ([10, 9, 8], Some(16.0), 0.1),
         ([3, 3, 3], Some(2.0), 0.0),
-        ([12, 11, 10], None, 0.8),
+        ([12, 11, 10], None, 0.15),
     ];
     let (mut merged, mut dims_seen) = (0, [0usize; 4]);
-    for (dims, quantum, merge) in cases {
+    for (dims, quantum, depth) in cases {
         for ceiling in [0.2, 0.3, 0.35, 0.5, f32::INFINITY] {
             let g = random_grid(&lattice, dims, quantum, &mut next);
             let options = NetworkOptions {
-                sites: network::SiteOptions {
-                    merge_distance: merge,
-                    ..Default::default()
-                },
+                merge_depth: depth,
                 ..Default::default()
             };
             let (net, p) = network_matches_grid(&g, ceiling, &options);
@@ -778,6 +875,67 @@ fn the_site_graph_reproduces_the_grid_on_random_landscapes() {
     // the cases did exercise merged sites and every outcome from closed to 3D
     assert!(merged > 0);
     assert!(dims_seen.iter().all(|&n| n > 0), "{dims_seen:?}");
+}
+
+#[test]
+fn keeping_apart_the_merges_that_straddle_a_level_is_exact_by_itself() {
+    // The argument in network::merge: merging every shallow minimum except those whose range
+    // [E(min), E(merge saddle)] contains a level at which the grid's percolation reports
+    // something leaves the site graph's percolation exactly the grid's. Checked here without
+    // the first attempt (merge everything, keep it if the percolation is unchanged), on random
+    // landscapes with merge depths up to half the range of values, where many merges straddle
+    // a level.
+    let mut next = xorshift(0x51_7cc1_b727_220a);
+    let lattice = cell(3.1, 3.7, 4.3, 83.0, 97.0, 112.0);
+    let (mut merged, mut straddling) = (0, 0);
+    for dims in [[6, 5, 4], [7, 6, 5], [1, 6, 6], [9, 8, 7], [12, 11, 10]] {
+        for quantum in [None, Some(8.0)] {
+            for depth in [0.05f32, 0.2, 0.5] {
+                for ceiling in [0.3, 0.5, f32::INFINITY] {
+                    let g = random_grid(&lattice, dims, quantum, &mut next);
+                    let grid_p = percolation::percolate(&g, ceiling);
+                    let (basins, basin_hops) = network::hops::basins(&g, ceiling);
+                    let reference =
+                        network::graph::percolate_basins(&g, &basins, &basin_hops, ceiling);
+                    let options = network::merge::MergeOptions {
+                        depth,
+                        symmetry_tolerance: 0.3,
+                        try_straddling: false,
+                    };
+                    let merging =
+                        network::merge::merge(&g, &basins, &basin_hops, &[], &options, &reference);
+                    straddling += merging.kept_for_percolation;
+                    let (sites, orbits, assignment) = network::sites::find_sites(
+                        &g,
+                        &basins,
+                        &merging,
+                        &[],
+                        &[],
+                        &[],
+                        &Default::default(),
+                    );
+                    merged += sites.iter().filter(|s| s.minima > 1).count();
+                    let hops =
+                        network::hops::site_hops(&g, &basin_hops, &assignment, &sites, &[], 0.76);
+                    let graph = network::SiteGraph::new(&sites, &hops);
+                    let net = network::Network {
+                        ceiling,
+                        basins,
+                        basin_hops,
+                        merging,
+                        sites,
+                        orbits,
+                        assignment,
+                        hops,
+                        graph,
+                    };
+                    graph_matches_grid(&g, grid_p, &net);
+                }
+            }
+        }
+    }
+    assert!(merged > 0 && straddling > 0, "{merged} {straddling}");
+    println!("{merged} merged sites, {straddling} minima kept apart for a straddled level");
 }
 
 /// What every profile of `pr` must be, whatever the landscape: a chain of face steps from its

@@ -95,6 +95,7 @@ fn model(
         anions,
         cations,
         atoms,
+        mobile: None,
         coulomb_cutoff: 8.0,
         energy_cap: 10.0,
         mismatch_cap: 10.0,

@@ -46,10 +46,19 @@ use super::radii::RadiusValue;
 use super::valence::valence_check;
 use crate::element::Element;
 use crate::landscape::{
-    AnionKind, CationKind, FrameworkAtom, FrameworkKind, LandscapeModel, ProbeIon,
+    AnionKind, CationKind, FrameworkAtom, FrameworkKind, LandscapeModel, MobileRepulsion, ProbeIon,
 };
 use crate::structure::{Species, Structure};
 use std::collections::BTreeMap;
+
+/// Bond length (A) at which the length rule of the well depth leaves `d0_ev` unchanged: the
+/// Morse minimum of Li-O at N_A = 5 with the softness-sensitive parameters (1.1745 + 0.514 ln 5
+/// = 2.0 A).
+pub const D0_REFERENCE_RMIN_A: f64 = 2.0;
+
+/// Partly occupied positions closer than this (A) are one site split over several positions when
+/// the vacant share of a site is counted.
+pub const SPLIT_SITE_A: f64 = 0.8;
 
 /// The calibration knobs of the landscape model. Plain numbers; [`Default`] gives the
 /// documented starting values (see the module docs).
@@ -63,6 +72,29 @@ pub struct ModelKnobs {
     pub screening_factor: f64,
     /// Cation charges and the probe charge are the formal valences times this.
     pub charge_scale: f64,
+    /// Charges of the repulsion are `V / n^p` with n the period of the element (the principal
+    /// quantum number of its valence shell) and p this exponent; 0 keeps formal valences.
+    pub charge_shell_exponent: f64,
+    /// `D0 = d0_ev x V_A x (D0_REFERENCE_RMIN_A / Rmin)^p` per probe-anion pair, p this
+    /// exponent: 0 gives one depth for every pair; p > 0 makes longer (softer, larger-ion) bonds
+    /// shallower, as the electrostatic energy of a bond scales with 1/R.
+    pub d0_length_exponent: f64,
+    /// Charge scale of the other mobile ions of the structure, left at their sites as a mean
+    /// field that repels the probe (0: not modelled, the probe sees the bare framework).
+    pub mobile_charge_scale: f64,
+    /// Sites of the mobile ion nearest the probe that take no part in that repulsion: 2 for a
+    /// vacancy hop (the site the probe left and the vacancy it moves into).
+    pub mobile_excluded_nearest: usize,
+    /// Framework cations on sites that stand empty at least this share of the time (one minus
+    /// the framework occupancy of the site, split positions within [`SPLIT_SITE_A`] counted as
+    /// one site) are left out of the landscape: the ion moves through the vacant share of those
+    /// sites (A-site-deficient perovskites). Above 1: never.
+    pub vacancy_share_threshold: f64,
+    /// For a probe without a softness-sensitive (long-cutoff) parameter set for an anion (Ag+,
+    /// Cu+, Mg2+, ...), borrow the softness `b` and the cutoff of the alkali ion nearest in size
+    /// and move R0 so that the bond valence at the ideal bond length is unchanged (see
+    /// [`soften_pair`]).
+    pub softness_transfer: bool,
     /// Cutoff of the Morse and bond-valence terms (A); `None`: each pair's own cutoff.
     pub morse_cutoff_a: Option<f64>,
     /// Cutoff of the screened repulsion (A); `None`: `max(8, 4 x largest rho)`.
@@ -82,10 +114,16 @@ pub struct ModelKnobs {
 impl Default for ModelKnobs {
     fn default() -> Self {
         ModelKnobs {
-            d0_ev: 0.3,
+            d0_ev: 0.21,
             d0_scales_with_valence: true,
-            screening_factor: 0.75,
+            screening_factor: 1.4,
             charge_scale: 1.0,
+            charge_shell_exponent: 0.75,
+            d0_length_exponent: 3.0,
+            mobile_charge_scale: 0.0,
+            mobile_excluded_nearest: 2,
+            vacancy_share_threshold: 0.3,
+            softness_transfer: true,
             morse_cutoff_a: None,
             coulomb_cutoff_a: None,
             energy_cap_ev: 10.0,
@@ -246,6 +284,31 @@ pub fn build_model(
             });
         }
     }
+    // framework cations on sites that stand partly empty: the ion uses the vacant share
+    let vacated = vacancy_bearing(structure, ion, knobs.vacancy_share_threshold);
+    if !vacated.is_empty() {
+        let mut labels: Vec<&str> = vacated
+            .iter()
+            .map(|&i| framework_label(structure, i))
+            .collect();
+        labels.sort_unstable();
+        labels.dedup();
+        notes.push(format!(
+            "framework cations on sites that stand empty at least {:.0}% of the time ({}) are left \
+             out: the ion moves through the vacant share of those sites",
+            100.0 * knobs.vacancy_share_threshold,
+            labels.join(", ")
+        ));
+        framework.retain(|o| {
+            !vacated.iter().any(|&i| {
+                structure.sites[i].frac == o.frac
+                    && structure.sites[i]
+                        .occupants
+                        .iter()
+                        .any(|x| x.label == o.label)
+            })
+        });
+    }
     if structure
         .sites
         .iter()
@@ -324,12 +387,15 @@ pub fn build_model(
     }
     let s_eq = valence / coordination;
     let probe_radius = table.radii.lookup(ion, valence, coordination)?;
-    // D0
+    // D0: the depth per bond before the length rule
     let d0 = if knobs.d0_scales_with_valence {
         knobs.d0_ev * valence
     } else {
         knobs.d0_ev
     };
+    let pair_d0 = |rmin: f64| d0 * (D0_REFERENCE_RMIN_A / rmin).powf(knobs.d0_length_exponent);
+    let shell = |e: Element| (e.period() as f64).powf(-knobs.charge_shell_exponent);
+    let probe_charge = valence * knobs.charge_scale * shell(ion);
     // coordination numbers of the framework species in the full structure
     let counted = coordination_numbers(structure, table, &mut notes);
     // anion kinds
@@ -339,7 +405,13 @@ pub fn build_model(
     let mut coordination_used = Vec::new();
     for sp in &anion_species {
         let q = sp.oxidation.unwrap_or(0.0);
-        let p = table.resolve(ion, valence, sp.element, q, PairRole::Mobile)?;
+        let mut p = table.resolve(ion, valence, sp.element, q, PairRole::Mobile)?;
+        if knobs.softness_transfer
+            && p.convention == super::CutoffConvention::FirstShell
+            && let Some(soft) = soften_pair(&p, table, probe_radius.radius, s_eq)
+        {
+            p = soft;
+        }
         let rmin = p.r0 - p.b * (valence / coordination).ln();
         let cutoff = knobs.morse_cutoff_a.unwrap_or(p.cutoff_a);
         let (cn, cu) = coordination_for(sp, &counted);
@@ -354,7 +426,7 @@ pub fn build_model(
             r0: p.r0,
             b: p.b,
             rmin,
-            d0,
+            d0: pair_d0(rmin),
             cutoff,
             radius: radius.radius,
             source,
@@ -371,13 +443,51 @@ pub fn build_model(
         let radius = table.radii.lookup(sp.element, q, cn)?;
         cations.push(CationKind {
             species: sp.clone(),
-            charge: q * knobs.charge_scale,
+            charge: q * knobs.charge_scale * shell(sp.element),
             rho: knobs.screening_factor * (probe_radius.radius + radius.radius),
             radius: radius.radius,
         });
         radii.push(radius);
     }
-    let max_rho = cations.iter().map(|c| c.rho).fold(0.0, f64::max);
+    // the other ions of the mobile species, left at their sites as a repelling mean field
+    let mobile = if knobs.mobile_charge_scale > 0.0 && removed_mobile > 0.0 {
+        let sites: Vec<(crate::lattice::Frac, f64)> = structure
+            .sites
+            .iter()
+            .filter_map(|site| {
+                let occ: f64 = site
+                    .occupants
+                    .iter()
+                    .filter(|o| o.species.element == ion)
+                    .map(|o| o.occupancy)
+                    .sum();
+                (occ > 0.0).then_some((site.frac, occ))
+            })
+            .collect();
+        notes.push(format!(
+            "the {ion} ions of the structure repel the probe from their sites (mean field, charge \
+             scale {}; the {} sites nearest the probe take no part: the site it left and the \
+             vacancy it moves into)",
+            knobs.mobile_charge_scale, knobs.mobile_excluded_nearest
+        ));
+        Some(MobileRepulsion {
+            kind: CationKind {
+                species: Species::new(ion, Some(valence)),
+                charge: valence * knobs.mobile_charge_scale * shell(ion),
+                rho: knobs.screening_factor * 2.0 * probe_radius.radius,
+                radius: probe_radius.radius,
+            },
+            sites,
+            excluded_nearest: knobs.mobile_excluded_nearest.min(4),
+        })
+    } else {
+        None
+    };
+    let max_rho = cations
+        .iter()
+        .chain(mobile.as_ref().map(|m| &m.kind))
+        .map(|c| c.rho)
+        .fold(0.0, f64::max);
     let coulomb_cutoff = knobs.coulomb_cutoff_a.unwrap_or((4.0 * max_rho).max(8.0));
     if coulomb_cutoff < 3.0 * max_rho {
         notes.push(format!(
@@ -417,13 +527,14 @@ pub fn build_model(
         probe: ProbeIon {
             element: ion,
             valence,
-            charge: valence * knobs.charge_scale,
+            charge: probe_charge,
             coordination,
             radius: probe_radius.radius,
         },
         anions,
         cations,
         atoms,
+        mobile,
         coulomb_cutoff,
         energy_cap: knobs.energy_cap_ev,
         mismatch_cap: knobs.mismatch_cap,
@@ -547,6 +658,105 @@ pub fn build_model(
         notes,
     };
     Ok((model, provenance))
+}
+
+/// The alkali ions, whose softness-sensitive parameter sets (ref c of the IUCr table, Adams
+/// 2001) cover every common anion.
+const ALKALI: [&str; 5] = ["Li", "Na", "K", "Rb", "Cs"];
+
+/// A softness-sensitive version of a first-shell probe-anion pair: `b` and the cutoff of the
+/// alkali ion whose Shannon radius (six-fold, +1) is nearest the probe's, and
+/// `R0' = R_eq + b' ln(s_eq)` with `R_eq = R0 - b ln(s_eq)`, so that a bond of the ideal valence
+/// `s_eq = V_A / N_A` keeps its length. None when no alkali twin has a stated-cutoff row.
+pub fn soften_pair(
+    p: &BondParams,
+    table: &ParameterTable,
+    probe_radius: f64,
+    s_eq: f64,
+) -> Option<BondParams> {
+    let twin = ALKALI
+        .iter()
+        .filter_map(|sym| {
+            let e = crate::element::Element::from_symbol(sym)?;
+            let r = table.radii.lookup(e, 1.0, 6.0).ok()?.radius;
+            Some((e, (r - probe_radius).abs()))
+        })
+        .min_by(|a, b| a.1.total_cmp(&b.1))?
+        .0;
+    let t = table
+        .resolve(twin, 1.0, p.anion, p.anion_valence, PairRole::Mobile)
+        .ok()?;
+    if t.convention != super::CutoffConvention::Stated {
+        return None;
+    }
+    let r_eq = p.r0 - p.b * s_eq.ln();
+    let mut out = p.clone();
+    out.r0 = r_eq + t.b * s_eq.ln();
+    out.b = t.b;
+    out.cutoff_a = t.cutoff_a;
+    out.convention = super::CutoffConvention::Stated;
+    out.ref_id = format!("{}+softness of {}", p.ref_id, t.ref_id);
+    out.citation = format!(
+        "{}; softness b and cutoff borrowed from {}-{} ({}), R0 moved to keep the ideal bond length",
+        p.citation, twin, p.anion, t.citation
+    );
+    out.r0_origin = ValueOrigin::Rule;
+    out.b_origin = ValueOrigin::Rule;
+    out.cutoff_origin = ValueOrigin::Rule;
+    out.notes.push(format!(
+        "softness transferred from {twin}-{}: b {:.3} -> {:.3} A, R0 {:.3} -> {:.3} A",
+        p.anion, p.b, t.b, p.r0, out.r0
+    ));
+    Some(out)
+}
+
+fn framework_label(s: &Structure, site: usize) -> &str {
+    s.sites[site]
+        .occupants
+        .iter()
+        .find(|o| o.species.oxidation.unwrap_or(0.0) > 0.0)
+        .map(|o| o.label.as_str())
+        .unwrap_or("")
+}
+
+/// Sites (indices into `s.sites`) holding framework cations that stand empty at least
+/// `threshold` of the time: one minus the framework-cation occupancy summed over the positions
+/// within [`SPLIT_SITE_A`] (split sites count once; the mobile ion's own occupancy counts as
+/// vacant, since the ion can take that share).
+fn vacancy_bearing(s: &Structure, ion: crate::element::Element, threshold: f64) -> Vec<usize> {
+    if !(threshold <= 1.0) {
+        return vec![];
+    }
+    let cation_occ = |i: usize| -> f64 {
+        s.sites[i]
+            .occupants
+            .iter()
+            .filter(|o| o.species.element != ion && o.species.oxidation.unwrap_or(0.0) > 0.0)
+            .map(|o| o.occupancy)
+            .sum()
+    };
+    let partial: Vec<usize> = (0..s.sites.len())
+        .filter(|&i| {
+            let c = cation_occ(i);
+            c > 0.0 && c < 1.0 - 1e-6
+        })
+        .collect();
+    partial
+        .iter()
+        .copied()
+        .filter(|&i| {
+            let total: f64 = partial
+                .iter()
+                .filter(|&&j| {
+                    s.lattice
+                        .periodic_distance(s.sites[i].frac, s.sites[j].frac)
+                        < SPLIT_SITE_A
+                })
+                .map(|&j| cation_occ(j))
+                .sum();
+            1.0 - total >= threshold
+        })
+        .collect()
 }
 
 fn same_species(a: &Species, b: &Species) -> bool {

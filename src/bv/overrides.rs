@@ -63,8 +63,14 @@ struct FileDoc {
 struct ModelSection {
     d0_ev: Option<Spanned<f64>>,
     d0_scales_with_valence: Option<Spanned<bool>>,
+    softness_transfer: Option<Spanned<bool>>,
     screening_factor: Option<Spanned<f64>>,
     charge_scale: Option<Spanned<f64>>,
+    charge_shell_exponent: Option<Spanned<f64>>,
+    d0_length_exponent: Option<Spanned<f64>>,
+    mobile_charge_scale: Option<Spanned<f64>>,
+    mobile_excluded_nearest: Option<Spanned<f64>>,
+    vacancy_share_threshold: Option<Spanned<f64>>,
     morse_cutoff_a: Option<Spanned<f64>>,
     coulomb_cutoff_a: Option<Spanned<f64>>,
     energy_cap_ev: Option<Spanned<f64>>,
@@ -216,6 +222,23 @@ impl Overrides {
             number("d0_ev", &m.d0_ev, Some(-1e-300))?;
             number("screening_factor", &m.screening_factor, Some(0.0))?;
             number("charge_scale", &m.charge_scale, Some(-1e-300))?;
+            number(
+                "charge_shell_exponent",
+                &m.charge_shell_exponent,
+                Some(-1e-300),
+            )?;
+            number("d0_length_exponent", &m.d0_length_exponent, None)?;
+            number("mobile_charge_scale", &m.mobile_charge_scale, Some(-1e-300))?;
+            number(
+                "mobile_excluded_nearest",
+                &m.mobile_excluded_nearest,
+                Some(-1e-300),
+            )?;
+            number(
+                "vacancy_share_threshold",
+                &m.vacancy_share_threshold,
+                Some(0.0),
+            )?;
             number("morse_cutoff_a", &m.morse_cutoff_a, Some(0.0))?;
             number("coulomb_cutoff_a", &m.coulomb_cutoff_a, Some(0.0))?;
             number("energy_cap_ev", &m.energy_cap_ev, Some(0.0))?;
@@ -225,16 +248,19 @@ impl Overrides {
             number("probe_valence", &p.valence, Some(0.0))?;
             number("probe_coordination", &p.coordination, Some(0.0))?;
         }
-        if let Some(f) = doc
-            .model
-            .as_ref()
-            .and_then(|m| m.d0_scales_with_valence.as_ref())
-        {
-            out.knobs.push(KnobSetting::Flag {
-                name: "d0_scales_with_valence".into(),
-                value: *f.get_ref(),
-                line: line_col(text, f.span().start).0,
-            });
+        if let Some(m) = &doc.model {
+            for (name, flag) in [
+                ("d0_scales_with_valence", &m.d0_scales_with_valence),
+                ("softness_transfer", &m.softness_transfer),
+            ] {
+                if let Some(f) = flag {
+                    out.knobs.push(KnobSetting::Flag {
+                        name: name.into(),
+                        value: *f.get_ref(),
+                        line: line_col(text, f.span().start).0,
+                    });
+                }
+            }
         }
         for entry in &doc.pair {
             let e = entry.get_ref();
@@ -358,6 +384,13 @@ impl Overrides {
                         "d0_ev" => knobs.d0_ev = v,
                         "screening_factor" => knobs.screening_factor = v,
                         "charge_scale" => knobs.charge_scale = v,
+                        "charge_shell_exponent" => knobs.charge_shell_exponent = v,
+                        "d0_length_exponent" => knobs.d0_length_exponent = v,
+                        "mobile_charge_scale" => knobs.mobile_charge_scale = v,
+                        "mobile_excluded_nearest" => {
+                            knobs.mobile_excluded_nearest = v.round().clamp(0.0, 4.0) as usize
+                        }
+                        "vacancy_share_threshold" => knobs.vacancy_share_threshold = v,
                         "morse_cutoff_a" => knobs.morse_cutoff_a = Some(v),
                         "coulomb_cutoff_a" => knobs.coulomb_cutoff_a = Some(v),
                         "energy_cap_ev" => knobs.energy_cap_ev = v,
@@ -369,8 +402,10 @@ impl Overrides {
                     (name, *line)
                 }
                 KnobSetting::Flag { name, value, line } => {
-                    if name == "d0_scales_with_valence" {
-                        knobs.d0_scales_with_valence = *value;
+                    match name.as_str() {
+                        "d0_scales_with_valence" => knobs.d0_scales_with_valence = *value,
+                        "softness_transfer" => knobs.softness_transfer = *value,
+                        _ => {}
                     }
                     (name, *line)
                 }

@@ -146,6 +146,9 @@ struct CationTerms {
     strength: f64,
     reach: f64,
     screened: ScreenedTable,
+    /// The nearest images of this kind that take no part (the mobile-ion kind: the origin and
+    /// the target of a vacancy hop); 0 for framework cations.
+    exclude_nearest: usize,
 }
 
 /// Table intervals per screening length.
@@ -211,6 +214,41 @@ impl ScreenedTable {
     }
 }
 
+/// The `k` smallest distances seen so far and the weighted terms that go with them (k <= 4).
+#[derive(Debug, Clone, Copy)]
+struct Nearest {
+    k: usize,
+    r: [f64; 4],
+    term: [f64; 4],
+}
+
+impl Nearest {
+    fn new(k: usize) -> Self {
+        Nearest {
+            k: k.min(4),
+            r: [f64::INFINITY; 4],
+            term: [0.0; 4],
+        }
+    }
+    #[inline(always)]
+    fn offer(&mut self, r: f64, term: f64) {
+        if self.k == 0 || r >= self.r[self.k - 1] {
+            return;
+        }
+        let mut i = self.k - 1;
+        while i > 0 && self.r[i - 1] > r {
+            self.r[i] = self.r[i - 1];
+            self.term[i] = self.term[i - 1];
+            i -= 1;
+        }
+        self.r[i] = r;
+        self.term[i] = term;
+    }
+    fn excluded(&self) -> f64 {
+        self.term[..self.k].iter().sum()
+    }
+}
+
 /// Morse bond term `(x - 1)^2 - 1 = x^2 - 2x` with `x = exp((Rmin - R)/b)`.
 #[inline(always)]
 fn morse_x(x: f64) -> f64 {
@@ -235,17 +273,45 @@ fn anion_terms(model: &LandscapeModel) -> Vec<AnionTerms> {
         .collect()
 }
 
-fn cation_terms(model: &LandscapeModel) -> Vec<CationTerms> {
+/// The cation kinds of the model, then the mobile-ion kind when there is one (its index is
+/// `model.cations.len()`).
+fn repelling_kinds(model: &LandscapeModel) -> impl Iterator<Item = &super::model::CationKind> {
     model
         .cations
         .iter()
-        .map(|k| {
+        .chain(model.mobile.as_ref().map(|m| &m.kind))
+}
+
+/// Every repelling charge of the cell as (kind index, fractional position, occupancy), in the
+/// kind order of [`repelling_kinds`].
+fn repelling_charges(model: &LandscapeModel) -> Vec<(usize, Frac, f64)> {
+    let mut out: Vec<(usize, Frac, f64)> = model
+        .atoms
+        .iter()
+        .filter_map(|a| match a.kind {
+            FrameworkKind::Cation(i) => Some((i, a.frac, a.occupancy)),
+            FrameworkKind::Anion(_) => None,
+        })
+        .collect();
+    if let Some(m) = &model.mobile {
+        out.extend(m.sites.iter().map(|&(f, o)| (model.cations.len(), f, o)));
+    }
+    out
+}
+
+fn cation_terms(model: &LandscapeModel) -> Vec<CationTerms> {
+    let mobile_index = model.mobile.as_ref().map(|_| model.cations.len());
+    let excluded = model.mobile.as_ref().map_or(0, |m| m.excluded_nearest);
+    repelling_kinds(model)
+        .enumerate()
+        .map(|(i, k)| {
             let reach = model.coulomb_cutoff.min(ERFC_NEGLIGIBLE * k.rho).max(0.0);
             CationTerms {
                 reach2: reach * reach,
                 strength: COULOMB_EV_A * model.probe.charge * k.charge,
                 reach,
                 screened: ScreenedTable::new(k.rho, reach),
+                exclude_nearest: if Some(i) == mobile_index { excluded } else { 0 },
             }
         })
         .collect()
@@ -317,8 +383,9 @@ impl Images {
     }
 }
 
-/// All images of the framework atoms of each kind that can lie within `reach[kind] + margin` of a
-/// point of the cell.
+/// All images of the framework anions (`anion`), or of the repelling charges (framework cations,
+/// then the mobile ions), of each kind that can lie within `reach[kind] + margin` of a point of
+/// the cell.
 fn cell_images(model: &LandscapeModel, anion: bool, reach: &[f64], margin: f64) -> Images {
     let m = model.lattice.matrix();
     let centre = m * Vector3::new(0.5, 0.5, 0.5);
@@ -326,27 +393,35 @@ fn cell_images(model: &LandscapeModel, anion: bool, reach: &[f64], margin: f64) 
         .iter()
         .map(|c| (m * c - centre).norm())
         .fold(0.0, f64::max);
+    let charges: Vec<(usize, Frac, f64)> = if anion {
+        model
+            .atoms
+            .iter()
+            .filter_map(|a| match a.kind {
+                FrameworkKind::Anion(i) => Some((i, a.frac, a.occupancy)),
+                FrameworkKind::Cation(_) => None,
+            })
+            .collect()
+    } else {
+        repelling_charges(model)
+    };
     let mut out = Images::default();
     for (k, &r) in reach.iter().enumerate() {
         out.start.push(out.len());
         let reach_k = r + margin;
         let n = translation_range(&model.lattice, reach_k);
         let keep2 = (reach_k + circum) * (reach_k + circum);
-        for atom in &model.atoms {
-            let kind = match (atom.kind, anion) {
-                (FrameworkKind::Anion(i), true) | (FrameworkKind::Cation(i), false) => i,
-                _ => continue,
-            };
+        for &(kind, frac, occupancy) in &charges {
             if kind != k {
                 continue;
             }
-            let f = atom.frac.wrapped().0;
+            let f = frac.wrapped().0;
             for ta in -n[0]..=n[0] {
                 for tb in -n[1]..=n[1] {
                     for tc in -n[2]..=n[2] {
                         let c = m * (f + Vector3::new(ta as f64, tb as f64, tc as f64));
                         if (c - centre).norm_squared() <= keep2 {
-                            out.push([c.x, c.y, c.z], atom.occupancy);
+                            out.push([c.x, c.y, c.z], occupancy);
                         }
                     }
                 }
@@ -416,14 +491,30 @@ fn point_sums(
         let (lo, hi) = (ca.start[k], ca.start[k + 1]);
         let (xs, ys, zs, os) = (&ca.x[lo..hi], &ca.y[lo..hi], &ca.z[lo..hi], &ca.occ[lo..hi]);
         let mut e = 0.0;
-        for j in 0..xs.len() {
-            let (dx, dy, dz) = (p[0] - xs[j], p[1] - ys[j], p[2] - zs[j]);
-            let d2 = dx * dx + dy * dy + dz * dz;
-            if d2 < t.reach2 {
-                let r = d2.max(g2).sqrt();
-                e += os[j] * t.screened.eval(r);
-                count += 1;
+        if t.exclude_nearest == 0 {
+            for j in 0..xs.len() {
+                let (dx, dy, dz) = (p[0] - xs[j], p[1] - ys[j], p[2] - zs[j]);
+                let d2 = dx * dx + dy * dy + dz * dz;
+                if d2 < t.reach2 {
+                    let r = d2.max(g2).sqrt();
+                    e += os[j] * t.screened.eval(r);
+                    count += 1;
+                }
             }
+        } else {
+            let mut near = Nearest::new(t.exclude_nearest);
+            for j in 0..xs.len() {
+                let (dx, dy, dz) = (p[0] - xs[j], p[1] - ys[j], p[2] - zs[j]);
+                let d2 = dx * dx + dy * dy + dz * dz;
+                if d2 < t.reach2 {
+                    let r = d2.max(g2).sqrt();
+                    let term = os[j] * t.screened.eval(r);
+                    e += term;
+                    near.offer(r, term);
+                    count += 1;
+                }
+            }
+            e -= near.excluded();
         }
         energy += t.strength * e;
     }
@@ -698,13 +789,23 @@ pub fn evaluate_point(model: &LandscapeModel, frac: Frac) -> (f64, f64) {
     let p = m * frac.wrapped().0;
     let mut bvs = 0.0;
     let mut energy = 0.0;
-    for atom in &model.atoms {
-        let cutoff = match atom.kind {
-            FrameworkKind::Anion(i) => model.anions[i].cutoff,
-            FrameworkKind::Cation(_) => model.coulomb_cutoff,
+    let kinds: Vec<_> = repelling_kinds(model).collect();
+    let mut near = Nearest::new(model.mobile.as_ref().map_or(0, |m| m.excluded_nearest));
+    let anions = model.atoms.iter().filter_map(|a| match a.kind {
+        FrameworkKind::Anion(i) => Some((true, i, a.frac, a.occupancy)),
+        FrameworkKind::Cation(_) => None,
+    });
+    let charges = repelling_charges(model)
+        .into_iter()
+        .map(|(i, f, o)| (false, i, f, o));
+    for (is_anion, i, frac, occupancy) in anions.chain(charges) {
+        let cutoff = if is_anion {
+            model.anions[i].cutoff
+        } else {
+            model.coulomb_cutoff
         };
         let n = translation_range(&model.lattice, cutoff.max(0.0));
-        let f = atom.frac.wrapped().0;
+        let f = frac.wrapped().0;
         for ta in -n[0]..=n[0] {
             for tb in -n[1]..=n[1] {
                 for tc in -n[2]..=n[2] {
@@ -714,24 +815,29 @@ pub fn evaluate_point(model: &LandscapeModel, frac: Frac) -> (f64, f64) {
                         continue;
                     }
                     let r = r.max(R_GUARD);
-                    match atom.kind {
-                        FrameworkKind::Anion(i) => {
-                            let k = &model.anions[i];
-                            bvs += atom.occupancy * ((k.r0 - r) / k.b).exp();
-                            let morse = |r: f64| (((k.rmin - r) / k.b).exp() - 1.0).powi(2) - 1.0;
-                            energy += atom.occupancy * k.d0 * (morse(r) - morse(k.cutoff));
-                        }
-                        FrameworkKind::Cation(i) => {
-                            let k = &model.cations[i];
-                            energy += atom.occupancy * COULOMB_EV_A * model.probe.charge * k.charge
-                                / r
-                                * libm::erfc(r / k.rho);
+                    if is_anion {
+                        let k = &model.anions[i];
+                        bvs += occupancy * ((k.r0 - r) / k.b).exp();
+                        let morse = |r: f64| (((k.rmin - r) / k.b).exp() - 1.0).powi(2) - 1.0;
+                        energy += occupancy * k.d0 * (morse(r) - morse(k.cutoff));
+                    } else {
+                        let k = kinds[i];
+                        let term = occupancy
+                            * COULOMB_EV_A
+                            * model.probe.charge
+                            * k.charge
+                            * libm::erfc(r / k.rho)
+                            / r;
+                        energy += term;
+                        if i == model.cations.len() {
+                            near.offer(r, term);
                         }
                     }
                 }
             }
         }
     }
+    energy -= near.excluded();
     (
         capped((bvs - model.probe.valence).abs(), model.mismatch_cap),
         capped(energy, model.energy_cap),
@@ -795,6 +901,7 @@ mod tests {
                 atom([0.6, 0.15, 0.8], FrameworkKind::Anion(0), 0.5),
                 atom([0.45, 0.4, 0.05], FrameworkKind::Cation(0), 1.0),
             ],
+            mobile: None,
             coulomb_cutoff: 8.0,
             energy_cap: 10.0,
             mismatch_cap: 10.0,

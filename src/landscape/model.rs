@@ -40,7 +40,8 @@ pub struct AnionKind {
     pub source: String,
 }
 
-/// A framework cation species and its screened Coulomb repulsion with the probe.
+/// A cation species and its screened Coulomb repulsion with the probe: a framework cation, or
+/// the other ions of the mobile species at their sites ([`MobileRepulsion`]).
 #[derive(Debug, Clone, PartialEq)]
 pub struct CationKind {
     pub species: Species,
@@ -69,6 +70,19 @@ pub struct FrameworkAtom {
     pub label: String,
 }
 
+/// The ions of the mobile species left in place as a mean field, in the picture of a vacancy
+/// hop: every site of the structure that holds the ion repels the probe with its occupancy,
+/// except the `excluded_nearest` sites nearest the probe, which stand for the site the probe
+/// has left and the vacancy it moves into.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MobileRepulsion {
+    pub kind: CationKind,
+    /// Fractional position and occupancy of every site of the ion in the cell.
+    pub sites: Vec<(Frac, f64)>,
+    /// How many of the nearest sites take no part (2: the origin and the target of the hop).
+    pub excluded_nearest: usize,
+}
+
 /// Everything needed to evaluate the two landscapes at any point.
 #[derive(Debug, Clone, PartialEq)]
 pub struct LandscapeModel {
@@ -77,6 +91,9 @@ pub struct LandscapeModel {
     pub anions: Vec<AnionKind>,
     pub cations: Vec<CationKind>,
     pub atoms: Vec<FrameworkAtom>,
+    /// The other ions of the mobile species at their sites in the structure, repelling the probe
+    /// (None: not modelled, the probe sees the bare framework).
+    pub mobile: Option<MobileRepulsion>,
     /// Cutoff of the cation repulsion (A); must reach well past every rho.
     pub coulomb_cutoff: f64,
     /// Values above this are stored as the cap (eV), near atom cores.

@@ -1,19 +1,16 @@
 //! Sites: where the mobile ion rests (science notes, section 5).
 //!
 //! A site is a local minimum of the landscape (the minimum of a basin, see
-//! [`crate::network::hops`]), or a few minima closer than a merge distance taken as one. Minima
-//! are merged greedily in increasing energy: each joins the lowest site already found within
-//! the merge distance of that site's minimum, or starts a new site. A merge is kept only when
-//! it cannot change what the network conducts: the merged minima must be connected among
-//! themselves (through hops inside the site) below every hop leading out of the site, in the
-//! `(value, index)` order. Otherwise the group is split back into single minima. This keeps the
-//! site graph exactly equivalent to the grid percolation.
+//! [`crate::network::hops`]), together with the shallower minima merged into it by persistence
+//! (see [`crate::network::merge`]). Its position is its lowest minimum's (midway between its two
+//! lowest when exactly two are tied).
 //!
 //! Each site gets a refined position (a parabola through the minimum and its two face
 //! neighbours on each axis), its orbit under the space-group operations, its coordination by
 //! framework anions, and the label of the original site of the mobile ion when one lies close.
 
-use super::hops::{BasinHop, Basins};
+use super::hops::Basins;
+use super::merge::{self, Group, Merging};
 use super::{FrameworkIon, MobileSite};
 use crate::grid::Grid;
 use crate::lattice::{Frac, Lattice};
@@ -22,11 +19,9 @@ use crate::spacegroup::SymOp;
 use nalgebra::Vector3;
 use std::fmt;
 
-/// Distances that decide merging, symmetry matching, labels and coordination shells.
+/// Distances that decide symmetry matching, labels and coordination shells.
 #[derive(Debug, Clone, PartialEq)]
 pub struct SiteOptions {
-    /// Minima closer than this (A) are candidates for merging into one site. 0 disables merging.
-    pub merge_distance: f64,
     /// A symmetry image of a site matches a site within this distance (A).
     pub symmetry_tolerance: f64,
     /// An original site of the mobile ion names a site within this distance (A).
@@ -40,7 +35,6 @@ pub struct SiteOptions {
 impl Default for SiteOptions {
     fn default() -> Self {
         SiteOptions {
-            merge_distance: 0.5,
             symmetry_tolerance: 0.3,
             label_distance: 0.5,
             shell_width: 0.6,
@@ -58,9 +52,10 @@ pub struct Site {
     pub voxel: usize,
     /// Value at that voxel (grid units). Sites are numbered by increasing energy.
     pub energy: f32,
-    /// Number of grid minima merged into this site.
+    /// Number of grid minima merged into this site (1 for a single minimum).
     pub minima: usize,
-    /// For a merged site, the level at which its minima are connected among themselves.
+    /// For a merged site, its highest merge saddle: the level from which its minima are
+    /// connected among themselves (grid units).
     pub internal_saddle: Option<f32>,
     /// True when the site's voxel is also lower than all 26 voxels around it. Basins follow
     /// face neighbours (see [`crate::network::hops`]), so a grid point on the floor of a valley
@@ -163,27 +158,26 @@ impl fmt::Display for Coordination {
     }
 }
 
-/// Sites, their orbits and the basin-to-site map. `ops` may be just the identity (P1); an empty
-/// list is taken as P1.
+/// Sites, their orbits and the basin-to-site map, one site per group of `merging`. `ops` may be
+/// just the identity (P1); an empty list is taken as P1.
 pub fn find_sites(
     grid: &Grid,
     basins: &Basins,
-    basin_hops: &[BasinHop],
+    merging: &Merging,
     ops: &[SymOp],
     framework: &[FrameworkIon],
     mobile: &[MobileSite],
     options: &SiteOptions,
 ) -> (Vec<Site>, Vec<Orbit>, SiteAssignment) {
-    let groups = merged_groups(grid, basins, basin_hops, options.merge_distance);
     let nb = basins.minima.len();
     let mut assignment = SiteAssignment {
         site_of_basin: vec![u32::MAX; nb],
         cell_of_basin: vec![[0; 3]; nb],
     };
-    let mut sites = Vec::with_capacity(groups.len());
-    for (id, g) in groups.iter().enumerate() {
+    let mut sites = Vec::with_capacity(merging.groups.len());
+    for (id, g) in merging.groups.iter().enumerate() {
         let voxel = basins.minima[g.members[0].0];
-        let (frac, shift) = refined_position(grid, voxel);
+        let (frac, shift) = site_position(grid, basins, g);
         for &(b, cell) in &g.members {
             assignment.site_of_basin[b] = id as u32;
             assignment.cell_of_basin[b] =
@@ -206,137 +200,24 @@ pub fn find_sites(
             label_distance,
         });
     }
-    let orbits = orbits(&grid.lattice, &mut sites, ops, options.symmetry_tolerance);
-    (sites, orbits, assignment)
-}
-
-struct Group {
-    /// (basin, cell of its minimum relative to the first member's), first = lowest
-    members: Vec<(usize, [i32; 3])>,
-    internal_saddle: Option<f32>,
-}
-
-fn merged_groups(
-    grid: &Grid,
-    basins: &Basins,
-    hops: &[BasinHop],
-    merge_distance: f64,
-) -> Vec<Group> {
-    let lattice = &grid.lattice;
-    let nb = basins.minima.len();
-    let key = |b: usize| total_key(grid.values[basins.minima[b]], basins.minima[b]);
-    let mut order: Vec<usize> = (0..nb).collect();
-    order.sort_by_key(|&b| key(b));
-    let pos = |b: usize| grid.frac(grid.ijk(basins.minima[b]));
-
-    // greedy clustering around the lowest minimum of each group
-    let mut groups: Vec<Vec<(usize, [i32; 3])>> = Vec::new();
-    if merge_distance > 0.0 {
-        let mut index = PointIndex::new(lattice, merge_distance);
-        for &b in &order {
-            let p = pos(b);
-            let near = index.within(p);
-            match near.iter().map(|&(g, _)| g).min() {
-                Some(g) => {
-                    let rep = pos(groups[g][0].0);
-                    let cell = nearest_image(lattice, rep, p);
-                    groups[g].push((b, cell));
-                }
-                None => {
-                    index.insert(groups.len(), p);
-                    groups.push(vec![(b, [0, 0, 0])]);
-                }
-            }
-        }
-    } else {
-        groups = order.iter().map(|&b| vec![(b, [0, 0, 0])]).collect();
-    }
-
-    // keep a merge only when the members connect inside the group below every hop out of it
-    let mut group_of = vec![0usize; nb];
-    let mut cell_of = vec![[0i32; 3]; nb];
-    for (g, members) in groups.iter().enumerate() {
-        for &(b, c) in members {
-            group_of[b] = g;
-            cell_of[b] = c;
-        }
-    }
-    let mut internal: Vec<Vec<&BasinHop>> = vec![Vec::new(); groups.len()];
-    let mut lowest_out = vec![u64::MAX; groups.len()];
-    for h in hops {
-        let (ga, gb) = (group_of[h.a as usize], group_of[h.b as usize]);
-        let (ca, cb) = (cell_of[h.a as usize], cell_of[h.b as usize]);
-        let t = [
-            ca[0] + h.image[0] - cb[0],
-            ca[1] + h.image[1] - cb[1],
-            ca[2] + h.image[2] - cb[2],
-        ];
-        if ga == gb && t == [0, 0, 0] {
-            internal[ga].push(h);
-        } else {
-            lowest_out[ga] = lowest_out[ga].min(h.key());
-            lowest_out[gb] = lowest_out[gb].min(h.key());
-        }
-    }
-    let mut out: Vec<Group> = Vec::new();
-    for (g, members) in groups.into_iter().enumerate() {
-        if members.len() == 1 {
-            out.push(Group {
-                members,
-                internal_saddle: None,
-            });
-            continue;
-        }
-        let connected = connection_level(&members, &internal[g]);
-        match connected {
-            Some((k, e)) if k < lowest_out[g] => out.push(Group {
-                members,
-                internal_saddle: Some(e),
-            }),
-            _ => {
-                for (b, _) in members {
-                    out.push(Group {
-                        members: vec![(b, [0, 0, 0])],
-                        internal_saddle: None,
-                    });
-                }
-            }
-        }
-    }
-    out.sort_by_key(|g| key(g.members[0].0));
-    out
-}
-
-/// The `(key, energy)` of the internal hop that connects all members, None if they never do.
-fn connection_level(members: &[(usize, [i32; 3])], internal: &[&BasinHop]) -> Option<(u64, f32)> {
-    let local: FastMap<usize, usize> = members
-        .iter()
-        .enumerate()
-        .map(|(i, &(b, _))| (b, i))
+    let minima: Vec<(Frac, usize)> = (0..nb)
+        .filter(|&b| assignment.site_of_basin[b] != u32::MAX)
+        .map(|b| {
+            (
+                grid.frac(grid.ijk(basins.minima[b])),
+                assignment.site_of_basin[b] as usize,
+            )
+        })
         .collect();
-    let mut parent: Vec<usize> = (0..members.len()).collect();
-    fn find(p: &mut [usize], mut x: usize) -> usize {
-        while p[x] != x {
-            p[x] = p[p[x]];
-            x = p[x];
-        }
-        x
-    }
-    let mut hops: Vec<&&BasinHop> = internal.iter().collect();
-    hops.sort_by_key(|h| h.key());
-    let mut parts = members.len();
-    for h in hops {
-        let (a, b) = (local[&(h.a as usize)], local[&(h.b as usize)]);
-        let (ra, rb) = (find(&mut parent, a), find(&mut parent, b));
-        if ra != rb {
-            parent[ra] = rb;
-            parts -= 1;
-            if parts == 1 {
-                return Some((h.key(), h.saddle_energy));
-            }
-        }
-    }
-    None
+    let orbits = orbits(
+        &grid.lattice,
+        &mut sites,
+        ops,
+        options.symmetry_tolerance,
+        &minima,
+        merging.depth,
+    );
+    (sites, orbits, assignment)
 }
 
 fn is_minimum_26(grid: &Grid, voxel: usize) -> bool {
@@ -354,6 +235,35 @@ fn is_minimum_26(grid: &Grid, voxel: usize) -> bool {
         }
     }
     true
+}
+
+/// Position of a site: the refined position of its lowest minimum, or the midpoint of its two
+/// lowest when they are tied (see [`crate::network::merge::TIE`]): a site that the landscape
+/// splits into two equal minima across a mirror or a twofold axis sits on it. Returns the
+/// position wrapped into [0, 1) and the cell the first member's voxel sits in, relative to
+/// that position.
+fn site_position(grid: &Grid, basins: &Basins, group: &Group) -> (Frac, [i32; 3]) {
+    let mut sum = Vector3::zeros();
+    let mut n = 0.0;
+    for &(b, c) in merge::position_members(grid, basins, group) {
+        let (p, shift) = refined_position(grid, basins.minima[b]);
+        let cell = [c[0] - shift[0], c[1] - shift[1], c[2] - shift[2]];
+        sum += p.0 + Vector3::new(cell[0] as f64, cell[1] as f64, cell[2] as f64);
+        n += 1.0;
+    }
+    let mean = sum / n;
+    let fl = mean.map(|x| x.floor());
+    let mut w = mean - fl;
+    let mut shift = [0i32; 3];
+    for a in 0..3 {
+        let mut f = fl[a];
+        if w[a] >= 1.0 - 1e-12 {
+            w[a] = 0.0;
+            f += 1.0;
+        }
+        shift[a] = -(f as i32);
+    }
+    (Frac(w), shift)
 }
 
 /// Sub-voxel position of a minimum: on each axis the vertex of the parabola through the
@@ -390,74 +300,81 @@ fn refined_position(grid: &Grid, voxel: usize) -> (Frac, [i32; 3]) {
     (Frac::new(p[0], p[1], p[2]), shift)
 }
 
-/// The lattice translation `k` that brings `q + k` closest to `p`.
-pub(crate) fn nearest_image(lattice: &Lattice, p: Frac, q: Frac) -> [i32; 3] {
-    let d0 = p.min_image_delta(q);
-    let m = (p.0 - q.0 - d0).map(|x| x.round());
-    let mut best = (f64::INFINITY, [0i32; 3]);
-    for i in -1..=1 {
-        for j in -1..=1 {
-            for k in -1..=1 {
-                let e = Vector3::new(i as f64, j as f64, k as f64);
-                let d = lattice.frac_delta_length(e - d0);
-                if d < best.0 - 1e-12 {
-                    best = (d, [m[0] as i32 + i, m[1] as i32 + j, m[2] as i32 + k]);
-                }
-            }
-        }
-    }
-    best.1
-}
-
 /// A bin grid over the cell for finding points within a radius (periodic), with bins at least
 /// one radius wide across.
 pub(crate) struct PointIndex<'a> {
     lattice: &'a Lattice,
     radius: f64,
     bins: [usize; 3],
-    cells: FastMap<[usize; 3], Vec<(usize, Frac)>>,
+    /// Points by bin, `(i * bins[1] + j) * bins[2] + k`.
+    cells: Vec<Vec<(usize, Frac)>>,
 }
 
 impl<'a> PointIndex<'a> {
+    /// At most this many bins per axis: wider bins still find every point within the radius,
+    /// and the bins stay a small dense table.
+    const MAX_BINS: usize = 32;
+
     pub(crate) fn new(lattice: &'a Lattice, radius: f64) -> Self {
         let w = lattice.perpendicular_widths();
-        let bins = w.map(|w| ((w / radius.max(1e-6)).floor() as usize).clamp(1, 256));
+        let bins = w.map(|w| {
+            let n = (w / radius.max(1e-6)).floor();
+            if n.is_finite() {
+                (n as usize).clamp(1, Self::MAX_BINS)
+            } else {
+                1
+            }
+        });
         PointIndex {
             lattice,
             radius,
             bins,
-            cells: FastMap::default(),
+            cells: vec![Vec::new(); bins[0] * bins[1] * bins[2]],
         }
     }
     fn bin(&self, p: Frac) -> [usize; 3] {
         let w = p.wrapped();
         [0, 1, 2].map(|a| ((w.0[a] * self.bins[a] as f64) as usize).min(self.bins[a] - 1))
     }
+    fn cell(&self, b: [usize; 3]) -> usize {
+        (b[0] * self.bins[1] + b[1]) * self.bins[2] + b[2]
+    }
     pub(crate) fn insert(&mut self, id: usize, p: Frac) {
-        let b = self.bin(p);
-        self.cells.entry(b).or_default().push((id, p));
+        let c = self.cell(self.bin(p));
+        self.cells[c].push((id, p));
     }
     /// Points closer than the radius to `p`, with their distances (A).
     pub(crate) fn within(&self, p: Frac) -> Vec<(usize, f64)> {
         let b = self.bin(p);
-        let range = |a: usize| -> Vec<usize> {
+        // the bin and its two neighbours on each axis (fewer when the axis has fewer bins)
+        let range = |a: usize| -> ([usize; 3], usize) {
             let n = self.bins[a];
             if n < 3 {
-                (0..n).collect()
+                ([0, 1 % n, 0], n)
             } else {
-                vec![(b[a] + n - 1) % n, b[a], (b[a] + 1) % n]
+                ([(b[a] + n - 1) % n, b[a], (b[a] + 1) % n], 3)
             }
         };
+        let (ri, ni) = range(0);
+        let (rj, nj) = range(1);
+        let (rk, nk) = range(2);
+        // With three bins or more on every axis the cell is at least three radii wide across
+        // each pair of faces, so a point within the radius differs from `p` by less than 1/3
+        // in every fractional coordinate: the nearest image is the one of the smallest
+        // fractional difference, and no other image needs a look.
+        let wide = self.bins.iter().all(|&n| n >= 3);
         let mut out = Vec::new();
-        for i in range(0) {
-            for j in range(1) {
-                for k in range(2) {
-                    if let Some(list) = self.cells.get(&[i, j, k]) {
-                        for &(id, q) in list {
-                            let d = self.lattice.periodic_distance(p, q);
-                            if d < self.radius {
-                                out.push((id, d));
-                            }
+        for &i in &ri[..ni] {
+            for &j in &rj[..nj] {
+                for &k in &rk[..nk] {
+                    for &(id, q) in &self.cells[self.cell([i, j, k])] {
+                        let d = if wide {
+                            self.lattice.frac_delta_length(p.min_image_delta(q))
+                        } else {
+                            self.lattice.periodic_distance(p, q)
+                        };
+                        if d < self.radius {
+                            out.push((id, d));
                         }
                     }
                 }
@@ -467,13 +384,29 @@ impl<'a> PointIndex<'a> {
     }
 }
 
-fn orbits(lattice: &Lattice, sites: &mut [Site], ops: &[SymOp], tol: f64) -> Vec<Orbit> {
+/// Orbits of the sites: site `i` and site `j` are equivalent when an operation maps `i` within
+/// `tol` (A) of `j`; failing that, within `tol` of one of `j`'s merged minima (`minima`: the
+/// grid position of each minimum and its site), provided the two energies agree within
+/// `energy_tol` (a site whose lowest minimum the grid picked among equivalent ones, such as a
+/// ring of equivalent minima merged into one site).
+fn orbits(
+    lattice: &Lattice,
+    sites: &mut [Site],
+    ops: &[SymOp],
+    tol: f64,
+    minima: &[(Frac, usize)],
+    energy_tol: f32,
+) -> Vec<Orbit> {
     let n = sites.len();
     let identity = [SymOp::identity()];
     let ops = if ops.is_empty() { &identity[..] } else { ops };
     let mut index = PointIndex::new(lattice, tol);
     for (i, s) in sites.iter().enumerate() {
         index.insert(i, s.frac);
+    }
+    let mut member_index = PointIndex::new(lattice, tol);
+    for (k, &(p, _)) in minima.iter().enumerate() {
+        member_index.insert(k, p);
     }
     let mut parent: Vec<usize> = (0..n).collect();
     fn find(p: &mut [usize], mut x: usize) -> usize {
@@ -483,16 +416,21 @@ fn orbits(lattice: &Lattice, sites: &mut [Site], ops: &[SymOp], tol: f64) -> Vec
         }
         x
     }
+    let nearest = |v: Vec<(usize, f64)>| {
+        v.into_iter()
+            .min_by(|a, b| a.1.total_cmp(&b.1).then(a.0.cmp(&b.0)))
+    };
     let mut unmatched = vec![false; n];
     for i in 0..n {
         for op in ops {
             let q = op.apply(sites[i].frac).wrapped();
-            let hit = index
-                .within(q)
-                .into_iter()
-                .min_by(|a, b| a.1.total_cmp(&b.1));
+            let hit = nearest(index.within(q)).map(|(j, _)| j).or_else(|| {
+                nearest(member_index.within(q))
+                    .map(|(k, _)| minima[k].1)
+                    .filter(|&j| (sites[j].energy - sites[i].energy).abs() <= energy_tol)
+            });
             match hit {
-                Some((j, _)) => {
+                Some(j) => {
                     let (ri, rj) = (find(&mut parent, i), find(&mut parent, j));
                     if ri != rj {
                         parent[ri.max(rj)] = ri.min(rj);
@@ -626,28 +564,6 @@ fn nearest_label(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::lattice::CellParameters;
-
-    #[test]
-    fn nearest_image_finds_the_translate_across_the_boundary() {
-        let l = Lattice::from_parameters(CellParameters {
-            a: 5.0,
-            b: 5.0,
-            c: 5.0,
-            alpha: 90.0,
-            beta: 90.0,
-            gamma: 90.0,
-        })
-        .unwrap();
-        assert_eq!(
-            nearest_image(&l, Frac::new(0.02, 0.5, 0.5), Frac::new(0.97, 0.5, 0.5)),
-            [-1, 0, 0]
-        );
-        assert_eq!(
-            nearest_image(&l, Frac::new(0.5, 0.5, 0.5), Frac::new(0.4, 0.5, 0.5)),
-            [0, 0, 0]
-        );
-    }
 
     #[test]
     fn shells_are_classified_by_angles() {

@@ -501,11 +501,15 @@ fn sites_section(a: &Analysis, o: &mut String) {
     let lowest = net.sites.first().map(|s| s.energy).unwrap_or(0.0);
     let _ = writeln!(
         o,
-        "<h2 id=\"sites\">Sites</h2>\n<p class=\"note\">Local minima of the site energy ({} in \
-         the cell), grouped into {} orbits by the space-group operations. Position of the first \
-         member in fractional coordinates; depth = lowest barrier out of the site; label = the \
-         nearest site of the mobile ion in the input structure, when within reach.</p>",
+        "<h2 id=\"sites\">Sites</h2>\n<p class=\"note\">Minima of the site energy ({} in \
+         the cell, from {} grid minima: a minimum whose lowest exit towards a lower one is less \
+         than {:.2} eV above it is merged into the site it drains to), grouped into {} orbits by \
+         the space-group operations. Position of the first member in fractional coordinates; \
+         depth = lowest barrier out of the site; label = the nearest site of the mobile ion in \
+         the input structure, when within reach.</p>",
         net.sites.len(),
+        net.basins.minima.len(),
+        net.merging.depth,
         net.orbits.len()
     );
     o.push_str("<table>\n");
@@ -744,7 +748,19 @@ fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut Stri
             td(&format!("{}D", t.dimension)),
             tn(format!("{:.3}", t.barrier_ev)),
             tn(format!("{:.2}", t.hop_length_a)),
-            tn(format!("<b>{}</b>", sci(t.diffusion_m2_s, 2))),
+            tn(if t.bulk_transport {
+                match t.diffusion_band_m2_s {
+                    Some((lo, hi)) => format!(
+                        "<b>{}</b><br><small>{} to {}</small>",
+                        sci(t.diffusion_m2_s, 2),
+                        sci(lo, 1),
+                        sci(hi, 1)
+                    ),
+                    None => format!("<b>{}</b>", sci(t.diffusion_m2_s, 2)),
+                }
+            } else {
+                "no bulk transport".to_string()
+            }),
             td(&esc(&t.basis)),
             tn(m.map(|m| sci(m.attempt_frequency_hz, 1))
                 .unwrap_or("–".into())),
@@ -764,7 +780,10 @@ fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut Stri
         o,
         "<p class=\"note\">Assumptions: attempt frequency of optical-phonon scale (common \
          practice; real values range over about 10<sup>12</sup> to 10<sup>14</sup> Hz); a single \
-         barrier per network. {}</p>",
+         barrier per network. The range under each D is the barrier moved by its uncertainty, \
+         ±{:.2} eV (the model's error against published barriers, scored leave-one-family-out). \
+         {}</p>",
+        crate::analysis::BARRIER_UNCERTAINTY_EV,
         if dilute {
             esc(crate::transport::DILUTE_LIMIT_NOTE)
         } else {
@@ -810,6 +829,18 @@ fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut Stri
         if t.rates.is_empty() {
             continue;
         }
+        if !t.bulk_transport {
+            let _ = writeln!(
+                o,
+                "<p><b>{}D network</b> (E<sub>a</sub> = {:.3} eV): no bulk transport at {} K \
+                 (D below {} m²/s: less than 0.1 µm in a day).</p>",
+                t.dimension,
+                t.barrier_ev,
+                t.temperature_k,
+                sci(crate::analysis::NO_BULK_TRANSPORT_M2_S, 0)
+            );
+            continue;
+        }
         if let Some(x) = figures::negligible_at_1c(t) {
             let _ = writeln!(
                 o,
@@ -838,14 +869,19 @@ fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut Stri
             "charge time (min)",
             "diffusion length (µm)",
             "largest particle diameter (µm)",
+            "range for the barrier uncertainty (µm)",
         ]));
-        for r in &t.rates {
+        for (i, r) in t.rates.iter().enumerate() {
             o.push_str(&row(&[
                 td(&format!("{}C", r.c_rate)),
                 tn(format!("{:.0}", r.charge_time_s)),
                 tn(format!("{:.1}", r.charge_time_s / 60.0)),
                 tn(um(r.diffusion_length_um)),
                 tn(um(r.max_particle_diameter_um)),
+                tn(t.particle_band_um
+                    .get(i)
+                    .map(|(lo, hi)| format!("{} to {}", um(*lo), um(*hi)))
+                    .unwrap_or("–".into())),
             ]));
         }
         o.push_str("</table>\n");

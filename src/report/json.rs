@@ -153,6 +153,10 @@ fn channels(p: &Percolation, unit: &str) -> Vec<Value> {
                 format!("lowest_{unit}"),
                 json!(round(t.channel.lowest as f64, 4)),
             );
+            m.insert(
+                format!("occupied_level_{unit}"),
+                json!(t.marked_lowest.map(|x| round(x as f64, 4))),
+            );
             m.insert("directions".into(), json!(dirs));
             m.insert("span".into(), span);
             m.insert("components".into(), json!(t.components));
@@ -195,6 +199,10 @@ fn transport_json(t: &ChannelTransport) -> Value {
         "hop_length_a": round(t.hop_length_a, 4),
         "temperature_k": t.temperature_k,
         "diffusion_m2_s": t.diffusion_m2_s,
+        "barrier_uncertainty_ev": t.barrier_uncertainty_ev,
+        "diffusion_band_m2_s": t.diffusion_band_m2_s.map(|(lo, hi)| [lo, hi]),
+        "conductivity_band_s_cm": t.conductivity_band_s_cm.map(|(lo, hi)| [lo, hi]),
+        "bulk_transport": t.bulk_transport,
         "basis": t.basis,
         "carriers_per_m3": t.carriers_per_m3,
         "conductivity_s_cm": t.conductivity_s_cm,
@@ -202,12 +210,13 @@ fn transport_json(t: &ChannelTransport) -> Value {
         "correlation_factor": t.model.as_ref().map(|m| m.correlation_factor),
         "site_filling": t.model.as_ref().map(|m| m.site_filling),
         "arrhenius": t.arrhenius.iter().map(|(tk, d)| json!({"temperature_k": tk, "diffusion_m2_s": d})).collect::<Vec<_>>(),
-        "rates": t.rates.iter().map(|r| json!({
+        "rates": if t.bulk_transport { t.rates.iter().enumerate().map(|(i, r)| json!({
             "c_rate": r.c_rate,
             "charge_time_s": round(r.charge_time_s, 3),
             "diffusion_length_um": r.diffusion_length_um,
             "max_particle_diameter_um": r.max_particle_diameter_um,
-        })).collect::<Vec<_>>(),
+            "max_particle_diameter_band_um": t.particle_band_um.get(i).map(|(lo, hi)| [*lo, *hi]),
+        })).collect::<Vec<_>>() } else { vec![] },
     })
 }
 
@@ -232,6 +241,7 @@ pub fn paths(a: &Analysis, file: &str) -> Value {
                         "label_distance_a": s.label_distance.map(|d| round(d, 3)),
                         "depth_ev": if s.depth.is_finite() { Some(round(s.depth as f64, 4)) } else { None },
                         "shallow": (s.depth as f64) < crate::analysis::SHALLOW_SITE_EV,
+                        "merged_minima": s.minima,
                     })
                 })
                 .collect()

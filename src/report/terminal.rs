@@ -88,7 +88,7 @@ pub fn structure(s: &Structure, file: &str) -> String {
     o
 }
 
-use crate::analysis::Analysis;
+use crate::analysis::{Analysis, ChannelTransport};
 use crate::bv::ValenceReport;
 use crate::percolation::{Percolation, Span, format_indices};
 
@@ -200,9 +200,11 @@ pub fn paths(a: &Analysis, file: &str) -> String {
     if let Some(net) = &a.network {
         let _ = writeln!(
             o,
-            "\n  sites ({} in the cell, {} orbits):",
+            "\n  sites ({} in the cell, {} orbits; from {} grid minima, those less than {:.2} eV deep merged into the site they drain to):",
             net.sites.len(),
-            net.orbits.len()
+            net.orbits.len(),
+            net.basins.minima.len(),
+            net.merging.depth
         );
         let _ = writeln!(
             o,
@@ -232,7 +234,7 @@ pub fn paths(a: &Analysis, file: &str) -> String {
         if shallow > 0 {
             let _ = writeln!(
                 o,
-                "    ({shallow} more orbits are shallow minima, less than {:.2} eV deep: flat valleys or grid artefacts; see --json)",
+                "    ({shallow} more orbits are shallow minima, less than {:.2} eV deep; see --json)",
                 crate::analysis::SHALLOW_SITE_EV
             );
         }
@@ -318,35 +320,83 @@ pub fn paths(a: &Analysis, file: &str) -> String {
     o
 }
 
+/// A length in um with as many digits as a reader needs.
+fn um_text(x: f64) -> String {
+    if x >= 100.0 {
+        format!("{x:.0}")
+    } else if x >= 1.0 {
+        format!("{x:.1}")
+    } else if x >= 0.01 {
+        format!("{x:.3}")
+    } else {
+        format!("{x:.1e}")
+    }
+}
+
+/// "2.1e-12 m^2/s (5.9e-14 to 7.6e-11 for +/-0.15 eV)" or the bare value for a measured D.
+fn with_band(value: f64, band: Option<(f64, f64)>, unit: &str, t: &ChannelTransport) -> String {
+    match (band, t.barrier_uncertainty_ev) {
+        (Some((lo, hi)), Some(u)) => {
+            format!("{value:.1e} {unit} ({lo:.0e} to {hi:.0e} for a barrier +/-{u:.2} eV)")
+        }
+        _ => format!("{value:.2e} {unit}"),
+    }
+}
+
 fn rate_section(o: &mut String, a: &Analysis, particle_um: Option<f64>) {
     if let Some(t) = a.transport.first() {
         let _ = writeln!(
             o,
-            "\n  transport in the {}D network ({}): barrier {:.3} eV, hop {:.2} A, D({} K) = {:.2e} m^2/s{}",
-            t.dimension,
-            t.basis,
-            t.barrier_ev,
-            t.hop_length_a,
-            t.temperature_k,
-            t.diffusion_m2_s,
-            t.conductivity_s_cm
-                .map(|c| format!(", sigma = {c:.2e} S/cm (Nernst-Einstein, Haven ratio 1)"))
-                .unwrap_or_default()
+            "\n  transport in the {}D network ({}): barrier {:.3} eV, hop {:.2} A",
+            t.dimension, t.basis, t.barrier_ev, t.hop_length_a,
         );
-        let _ = writeln!(
-            o,
-            "    {:>6} {:>14} {:>22} {:>24}",
-            "C-rate", "charge time", "diffusion length (um)", "largest particle (um)"
-        );
-        for r in &t.rates {
+        if !t.bulk_transport {
             let _ = writeln!(
                 o,
-                "    {:>6} {:>12.0} s {:>22.3} {:>24.3}",
-                format!("{}C", r.c_rate),
-                r.charge_time_s,
-                r.diffusion_length_um,
-                r.max_particle_diameter_um
+                "    no bulk transport at {} K: D = {:.0e} m^2/s, below {:.0e} m^2/s (less than 0.1 um in a day)",
+                t.temperature_k,
+                t.diffusion_m2_s,
+                crate::analysis::NO_BULK_TRANSPORT_M2_S
             );
+        } else {
+            let _ = writeln!(
+                o,
+                "    D({} K) = {}",
+                t.temperature_k,
+                with_band(t.diffusion_m2_s, t.diffusion_band_m2_s, "m^2/s", t)
+            );
+            if let Some(c) = t.conductivity_s_cm {
+                let _ = writeln!(
+                    o,
+                    "    sigma = {} (Nernst-Einstein, Haven ratio 1)",
+                    with_band(c, t.conductivity_band_s_cm, "S/cm", t)
+                );
+            }
+            let _ = writeln!(
+                o,
+                "    {:>6} {:>14} {:>22} {:>24} {:>22}",
+                "C-rate",
+                "charge time",
+                "diffusion length (um)",
+                "largest particle (um)",
+                "band (um)"
+            );
+            for (i, r) in t.rates.iter().enumerate() {
+                let band = t
+                    .particle_band_um
+                    .get(i)
+                    .map(|(lo, hi)| format!("{} to {}", um_text(*lo), um_text(*hi)))
+                    .unwrap_or_default();
+                let _ = writeln!(
+                    o,
+                    "    {:>6} {:>12.0} s {:>22.3} {:>24.3} {:>22}",
+                    format!("{}C", r.c_rate),
+                    r.charge_time_s,
+                    r.diffusion_length_um,
+                    r.max_particle_diameter_um,
+                    band
+                );
+            }
         }
         if let Some(um) = particle_um {
             if let Ok(c) = crate::transport::max_c_rate_for_particle(

@@ -241,23 +241,21 @@ fn strip_quotes(s: &str) -> &str {
 /// Two slips seen in files are repaired: a missing space after the lattice symbol (`-I2yc` for
 /// `-I 2yc`) and a space before the `"` of a two-fold axis (`-R 3 2 "`).
 pub fn normalise_hall(hall: &str) -> String {
-    let mut s = strip_quotes(hall)
+    let s = crate::text::ascii_minus(strip_quotes(hall))
         .split_whitespace()
         .collect::<Vec<_>>()
         .join(" ")
         .to_lowercase()
         .replace(" \"", "\"");
-    let lattice_end = if s.starts_with('-') { 2 } else { 1 };
-    if s.len() > lattice_end
-        && s[..lattice_end]
-            .chars()
-            .last()
-            .is_some_and(|c| "pabcirstf".contains(c))
-        && !s[lattice_end..].starts_with(' ')
+    let mut chars: Vec<char> = s.chars().collect();
+    let lattice_end = if chars.first() == Some(&'-') { 2 } else { 1 };
+    if chars.len() > lattice_end
+        && "pabcirstf".contains(chars[lattice_end - 1])
+        && chars[lattice_end] != ' '
     {
-        s.insert(lattice_end, ' ');
+        chars.insert(lattice_end, ' ');
     }
-    s
+    chars.into_iter().collect()
 }
 
 /// Looks up a setting by Hall symbol (case and spacing insensitive).
@@ -521,6 +519,19 @@ mod tests {
         // short symbols that end in a digit or glide letter are left alone
         assert_eq!(normalise_hm("Pnma").unwrap().suffix, None);
         assert_eq!(normalise_hm("R3").unwrap().body, "r3");
+    }
+
+    #[test]
+    fn hall_symbols_with_typographic_minus_and_any_first_character_read_without_panic() {
+        // A Unicode minus pasted from a PDF is the minus of the Hall symbol (International
+        // Tables, vol. B, Hall notation): '−P 4n 2n' is -P 4n 2n, group 136 (P 42/m n m, the
+        // rutile group; spglib's table of Hall settings).
+        let g = from_hall("\u{2212}P 4n 2n").expect("read as -P 4n 2n");
+        assert_eq!(g.number, 136);
+        for odd in ["\u{00e9}P 2", "\u{2212}", "\u{1F600}x", "--", "\u{00b5}"] {
+            let _ = normalise_hall(odd);
+            assert!(from_hall(odd).is_none() || odd == "\u{2212}");
+        }
     }
 
     #[test]
