@@ -2,7 +2,7 @@
 //! screening_factor on a small knob grid, print the table and the parameter file.
 //!
 //! Run: `cargo run --release --example calibrate_references [-- LIST.csv]`
-//! (default list: the bundled structures/reference/calibration.csv, on a coarse 0.2 A grid so that
+//! (default list: the bundled structures/reference/references.csv, on a coarse 0.2 A grid so that
 //! it finishes in seconds; use the default spacing for a fit you mean to keep).
 
 use hopmap::analysis::AnalysisOptions;
@@ -15,7 +15,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         .nth(1)
         .map(PathBuf::from)
         .unwrap_or_else(|| {
-            PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("structures/reference/calibration.csv")
+            PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("structures/reference/references.csv")
         });
     let li = Element::from_symbol("Li").ok_or("no Li")?;
     let references = calibrate::read_references(&list, Some(li))?;

@@ -48,7 +48,9 @@ pub const NO_BULK_TRANSPORT_M2_S: f64 = 1e-20;
 
 /// Minima shallower than this (eV, the lowest barrier out of the site) are listed apart in
 /// summaries: they are points in flat valleys or grid artefacts rather than sites an ion rests on.
-pub const SHALLOW_SITE_EV: f64 = 0.05;
+/// The same depth merges minima into sites ([`network::MERGE_DEPTH_EV`]) and wells along a
+/// channel profile for the hop length.
+pub const SHALLOW_SITE_EV: f64 = network::MERGE_DEPTH_EV as f64;
 
 /// Options of the transport and capacity estimates.
 #[derive(Debug, Clone, PartialEq)]
@@ -197,9 +199,10 @@ pub fn with_oxidation_states(
     Ok((out, (!a.nothing_assigned).then_some(a.note)))
 }
 
-/// Grid points per axis for a spacing (A).
+/// Grid points per axis for a spacing (A), compatible with the structure's symmetry
+/// ([`Grid::dims_for_symmetry`]).
 pub fn grid_dims(structure: &Structure, spacing_a: f64) -> [usize; 3] {
-    Grid::dims_for_spacing(&structure.lattice, spacing_a)
+    Grid::dims_for_symmetry(&structure.lattice, spacing_a, &structure.symmetry.ops)
 }
 
 /// The plain framework ions of a model, for the network's coordination and bottlenecks.

@@ -687,8 +687,20 @@ pub fn parse_reference_list(
             .at_line(hline)
         })
     };
-    let (c_file, c_ion, c_barrier) = (need("file")?, need("ion")?, need("barrier_ev")?);
-    let (c_dim, c_source) = (col("dimension"), col("source"));
+    // a list with one barrier per row, or the reference-set layout with a published range
+    // (its mid-point is fitted; rows without a range are skipped)
+    let range_cols = (col("barrier_low_ev"), col("barrier_high_ev"));
+    let (c_file, c_ion) = (need("file")?, need("ion")?);
+    let c_barrier = match (col("barrier_ev"), range_cols) {
+        (Some(c), _) => c,
+        (None, (Some(c), Some(_))) => c,
+        (None, _) => need("barrier_ev")?,
+    };
+    let c_high = col("barrier_ev").is_none().then_some(range_cols.1).flatten();
+    let (c_dim, c_source) = (
+        col("dimension"),
+        col("source").or(col("barrier_sources")),
+    );
     let mut out = Vec::new();
     for (ln, l) in lines {
         let f = split_csv_record(l)
@@ -715,6 +727,38 @@ pub fn parse_reference_list(
             })?
         };
         let bt = get(c_barrier);
+        if c_high.is_some() && bt.is_empty() {
+            continue;
+        }
+        let number = |c: usize, t: &str| {
+            t.parse::<f64>()
+                .ok()
+                .filter(|b| b.is_finite() && *b >= 0.0)
+                .ok_or_else(|| {
+                    err(
+                        c,
+                        format!("'{t}' is not a barrier in eV (a number, 0 or more)"),
+                    )
+                })
+        };
+        if let Some(ch) = c_high {
+            let (lo, hi) = (number(c_barrier, bt)?, number(ch, get(ch))?);
+            let path = Path::new(get(c_file));
+            out.push(ReferenceRow {
+                file: if path.is_absolute() {
+                    path.to_path_buf()
+                } else {
+                    folder.join(path)
+                },
+                name: get(c_file).to_string(),
+                line: ln,
+                ion,
+                barrier_ev: 0.5 * (lo + hi),
+                dimension: c_dim.and_then(|c| get(c).parse::<u8>().ok()).filter(|d| (1..=3).contains(d)),
+                source: c_source.map(get).unwrap_or("").to_string(),
+            });
+            continue;
+        }
         let barrier_ev = bt
             .parse::<f64>()
             .ok()

@@ -35,6 +35,55 @@ impl Grid {
         [p.a, p.b, p.c].map(|l| ((l / spacing).ceil() as usize).max(1))
     }
 
+    /// Points per axis for a spacing (A) that the symmetry operations map onto themselves: axes
+    /// mixed by a rotation get the same count (a and b of a hexagonal or tetragonal cell, all
+    /// three of a cubic one), and each count is a multiple of the denominators of the
+    /// translations along its axis (4 for the d-glides of Fd-3m), so that equivalent points of
+    /// the structure are grid points with equal values. Never fewer points than
+    /// [`Grid::dims_for_spacing`].
+    pub fn dims_for_symmetry(
+        lattice: &Lattice,
+        spacing: f64,
+        ops: &[crate::spacegroup::SymOp],
+    ) -> [usize; 3] {
+        let mut n = Grid::dims_for_spacing(lattice, spacing);
+        // axes tied by rotations (union of 3 elements)
+        let mut group = [0usize, 1, 2];
+        let mut step = [1usize; 3];
+        for op in ops {
+            for i in 0..3 {
+                for j in 0..3 {
+                    if i != j && op.rot[(i, j)] != 0 {
+                        let (gi, gj) = (group[i], group[j]);
+                        for g in group.iter_mut() {
+                            if *g == gj {
+                                *g = gi;
+                            }
+                        }
+                    }
+                }
+                let t = op.trans[i].rem_euclid(1.0);
+                let d = (1..=24usize)
+                    .find(|&d| ((t * d as f64) - (t * d as f64).round()).abs() < 1e-6)
+                    .unwrap_or(1);
+                step[i] = lcm(step[i], d);
+            }
+        }
+        for g in 0..3 {
+            let axes: Vec<usize> = (0..3).filter(|&i| group[i] == g).collect();
+            if axes.is_empty() {
+                continue;
+            }
+            let m = axes.iter().fold(1, |acc, &i| lcm(acc, step[i]));
+            let want = axes.iter().map(|&i| n[i]).max().unwrap_or(1);
+            let count = want.div_ceil(m) * m;
+            for &i in &axes {
+                n[i] = count;
+            }
+        }
+        n
+    }
+
     pub fn len(&self) -> usize {
         self.values.len()
     }
@@ -132,4 +181,12 @@ impl Grid {
                 (lo.min(v), hi.max(v))
             })
     }
+}
+
+fn gcd(a: usize, b: usize) -> usize {
+    if b == 0 { a } else { gcd(b, a % b) }
+}
+
+fn lcm(a: usize, b: usize) -> usize {
+    a / gcd(a, b) * b
 }

@@ -433,3 +433,28 @@ fn rate_table_and_its_inverses_agree() {
     assert!(rate_table(d, 0, &DEFAULT_C_RATES).is_err());
     assert!(rate_table(d, 3, &[0.0]).is_err());
 }
+
+/// Exact results for hopping on a periodic 1D chain (the series-resistance formula of
+/// analysis::chain_diffusion_per_attempt): N equal sites per period L with barrier Ea give the
+/// simple random walk D = (L/N)^2 w, w = nu exp(-Ea/kT)/2 per direction; two sites per period at
+/// energies 0 and e with both saddles at Ea give D = L^2 w / (2 (1 + exp(-e/kT))) (detailed
+/// balance: every bond carries the same resistance exp(Ea/kT)(1 + exp(-e/kT))/ (1/2)).
+#[test]
+fn periodic_chain_diffusion_matches_the_random_walk_and_the_two_site_chain() {
+    use hopmap::analysis::chain_diffusion_per_attempt;
+    let kt = hopmap::transport::BOLTZMANN_EV_PER_K * 298.15;
+    let (ea, l) = (0.3_f64, 6.0_f64);
+    let w = 0.5 * (-ea / kt).exp();
+    for n in 1..=4usize {
+        let d = chain_diffusion_per_attempt(&vec![0.0; n], &vec![ea; n], l, kt).unwrap();
+        let walk = (l / n as f64).powi(2) * w;
+        assert!((d / walk - 1.0).abs() < 1e-12, "N = {n}: {d} vs {walk}");
+    }
+    for e in [0.02, 0.1, 0.25] {
+        let d = chain_diffusion_per_attempt(&[0.0, e], &[ea, ea], l, kt).unwrap();
+        let exact = l * l * w / (2.0 * (1.0 + (-e / kt).exp()));
+        assert!((d / exact - 1.0).abs() < 1e-12, "e = {e}: {d} vs {exact}");
+    }
+    // nothing to hop between
+    assert!(chain_diffusion_per_attempt(&[], &[], l, kt).is_none());
+}

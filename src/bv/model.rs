@@ -8,26 +8,34 @@
 //! states are those of the whole structure, mobile ions included.
 //!
 //! - A framework occupant with a negative state is an anion: it binds the probe through the
-//!   probe-anion pair of the selection rule (the softness-sensitive set where there is one),
+//!   probe-anion pair of the selection rule (the softness-sensitive set where there is one;
+//!   otherwise, with `softness_transfer`, the first-shell pair made soft by [`soften_pair`]),
 //!   with `Rmin = R0 - b ln(V_A / N_A)`, well depth D0 and the pair's cutoff.
 //! - An occupant with a positive state is a cation: it repels the probe with charge
-//!   `formal valence x charge scale` and screening length
-//!   `rho = screening factor x (r_probe + r_cation)`, the Shannon radii of the probe at its usual
-//!   coordination and of the cation at its coordination in this structure.
+//!   `V / n^q x charge scale` (n the period of the element, q `charge_shell_exponent`) and
+//!   screening length `rho = screening factor x (r_probe + r_cation)`, the Shannon radii of the
+//!   probe at its usual coordination and of the cation at its coordination in this structure.
+//! - Framework cations on sites that stand empty at least `vacancy_share_threshold` of the time
+//!   are left out: the ion moves through that vacant share (A-site-deficient perovskites).
 //! - Occupants with state zero take no part (noted).
+//! - With `mobile_charge_scale > 0`, the other ions of the mobile species repel the probe from
+//!   their sites (mean field), except the two nearest, the site it left and the vacancy it
+//!   moves into. Off by default: on the reference set it does not lower the barrier error.
 //!
-//! # Default knobs ([`ModelKnobs::default`])
-//! - `d0_ev = 0.3` eV per bond for a monovalent probe. For a probe of valence V_A the depth is
-//!   `D0 = d0_ev x V_A` (`d0_scales_with_valence = true`): a bond of a divalent ion carries about
-//!   twice the bond valence at the same coordination and is taken to be twice as deep. This is a
-//!   documented starting rule, checked by calibration: fitted to the ten published barriers of
-//!   `structures/reference/calibration.csv` (`hopmap calibrate`, result in
-//!   `data/calibrated.toml`) the knobs move to d0_ev = 0.237 eV, screening_factor = 0.70, which
-//!   lowers the mean absolute error only from 0.170 to 0.153 eV, with a leave-one-out error of
-//!   0.174 eV: no clear gain, so the defaults stay. The residuals are systematic (both Na
-//!   references too high, the spinels and the argyrodite too low), not a matter of scale.
-//! - `screening_factor = 0.75`, `charge_scale = 1.0`. Barriers hardly change below a factor of
-//!   about 0.7 (the repulsion no longer reaches the probe); the data do not pin it down further.
+//! # Default knobs ([`ModelKnobs::default`]) and the evidence for them
+//! Chosen on the reference set (`structures/reference/references.csv`: 59 host/ion rows, 45 with
+//! published barriers) by `cargo bench --bench model_evidence`, scored leave-one-family-out; the
+//! table and the rejected alternatives are in `docs/model.md`.
+//! - `d0_ev = 0.21` eV per bond for a monovalent probe, `D0 = d0_ev x V_A x (2 A / Rmin)^3`
+//!   (`d0_scales_with_valence`, `d0_length_exponent = 3`): longer bonds (larger ions, softer
+//!   anions) make shallower wells, as the electrostatic energy of a bond falls with its length.
+//! - `screening_factor = 1.4`, `charge_shell_exponent = 0.75`, `charge_scale = 1.0`: a screened
+//!   repulsion long enough to tell an octahedral site sharing edges with framework cations from
+//!   a tetrahedral one sharing corners (spinel 16c against 8a), with charges softened towards
+//!   the effective charges of heavier cations.
+//! - `softness_transfer = true`: Ag+, Cu+, Mg2+ and the other probes without a softness-sensitive
+//!   set borrow the softness of the nearest alkali; without it their barriers come out several
+//!   eV high (AgCl 7.9 eV against 0.3).
 //! - `morse_cutoff_a = None`: each probe-anion pair uses its parameter set's own cutoff: the
 //!   stated cutoff of a softness-sensitive row (6 A for Li-O, Na-O of ref c), or
 //!   `R0 + b ln 100` for first-shell sets (bond valences below 0.01 v.u. dropped).
