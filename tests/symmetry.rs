@@ -47,6 +47,15 @@ fn p1_copies_of_the_reference_structures_find_their_published_space_group() {
         write_cif_p1(&p1, &s).unwrap();
         let back = read_structure(&p1, None).unwrap();
         let name = f.file_name().unwrap().to_string_lossy().to_string();
+        if s.symmetry.ops.len() == 1 {
+            // a reference given in P 1 (a relaxed cell): its copy finds nothing more either
+            assert_eq!(back.symmetry.ops.len(), 1, "{name}");
+            assert!(
+                back.symmetry.source.contains("no symmetry beyond P 1"),
+                "{name}"
+            );
+            continue;
+        }
         assert_eq!(back.symmetry.number, s.symmetry.number, "{name}");
         assert_eq!(back.symmetry.ops.len(), s.symmetry.ops.len(), "{name}");
         assert!(back.symmetry.source.contains("moyo"), "{name}");
