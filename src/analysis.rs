@@ -187,20 +187,16 @@ pub enum AnalysisError {
     Structure { structure: String, message: String },
 }
 
-/// Gives every occupant an oxidation state, assigning them when the file has none.
+/// Gives every occupant an oxidation state: the user's settings, then the file's, then assigned
+/// ones; warnings of the assignment (a residual charge) join the structure's warnings.
 pub fn with_oxidation_states(
     s: &Structure,
     table: &ParameterTable,
 ) -> Result<(Structure, Option<String>), AnalysisError> {
-    let complete = s
-        .sites
-        .iter()
-        .all(|site| site.occupants.iter().all(|o| o.species.oxidation.is_some()));
-    if complete {
-        return Ok((s.clone(), None));
-    }
     let a = assign_oxidation_states(s, table)?;
-    Ok((a.structure, Some(a.note)))
+    let mut out = a.structure;
+    out.warnings.extend(a.warnings);
+    Ok((out, (!a.nothing_assigned).then_some(a.note)))
 }
 
 /// Grid points per axis for a spacing (A), compatible with the structure's symmetry
@@ -326,15 +322,33 @@ pub fn model_and_landscape(
 /// Runs the whole job on one structure.
 pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis, AnalysisError> {
     let mut timings = Vec::new();
-    let mut warnings: Vec<String> = structure.warnings.clone();
     let t0 = Instant::now();
     let (s, oxidation_note, model, provenance, land) = model_and_landscape(structure, opts)?;
+    let mut warnings: Vec<String> = s.warnings.clone();
     timings.push(("model and grids", t0.elapsed().as_secs_f64()));
     if provenance.uses_fallback {
         warnings.push(
             "a probe-anion pair uses the O'Keeffe-Brese estimate of R0 (no tabulated parameters): treat barriers with extra caution"
                 .to_string(),
         );
+    }
+    if provenance.removed_mobile == 0.0 {
+        warnings.push(format!(
+            "the structure has no {0}: its framework is analysed as an empty host for {0}",
+            opts.ion
+        ));
+    }
+    for r in provenance
+        .radii
+        .iter()
+        .chain(std::iter::once(&provenance.probe.radius))
+        .filter(|r| r.origin == crate::bv::ValueOrigin::Fallback)
+    {
+        let why = r.notes.last().cloned().unwrap_or_default();
+        let w = format!("radius of {} is a fallback: {why}", r.species_name());
+        if !warnings.contains(&w) {
+            warnings.push(w);
+        }
     }
     let valence = match valence_check_with(&s, &opts.table, Some(opts.ion)) {
         Ok(v) => Some(v),
@@ -573,19 +587,30 @@ fn mean_hop_length(net: &Network, level: f32) -> Option<f64> {
     }
 }
 
-/// The thresholds worth reporting on their own: a dimension reached at the same energy as a
-/// higher one (a spinel's 1D, 2D and 3D networks all open at once) is left to the higher one.
-pub fn distinct_thresholds(p: &Percolation) -> Vec<&percolation::Threshold> {
-    let reached: Vec<_> = p.thresholds.iter().flatten().collect();
-    reached
+/// Networks whose thresholds lie closer than this (eV) are one network of the higher
+/// dimension: less than kT at room temperature (25.7 meV), so an ion that crosses the lower
+/// bottleneck crosses the other as readily, and of the order of the scatter of a threshold
+/// between grids placed differently in the cell (primitive and conventional cells, a shifted
+/// origin, spacings of 0.1-0.2 A). A layered LiCoO2 read from a primitive cell opens 1D
+/// channels 2 meV below its 2D layers: that is reported as 2D layers.
+pub const CHANNEL_MERGE_EV: f32 = 0.02;
+
+/// True when a higher-dimensional network opens within [`CHANNEL_MERGE_EV`] of `t`.
+pub fn merged_with_higher(p: &Percolation, t: &percolation::Threshold) -> bool {
+    p.thresholds
         .iter()
-        .enumerate()
-        .filter(|(i, t)| {
-            !reached[i + 1..]
-                .iter()
-                .any(|u| (u.energy - t.energy).abs() < 1e-6)
-        })
-        .map(|(_, t)| *t)
+        .flatten()
+        .any(|u| u.dimension > t.dimension && u.energy - t.energy < CHANNEL_MERGE_EV)
+}
+
+/// The thresholds worth reporting on their own: a dimension reached at the same energy as a
+/// higher one, or within [`CHANNEL_MERGE_EV`] below it (a spinel's 1D, 2D and 3D networks all
+/// open at once), is left to the higher one.
+pub fn distinct_thresholds(p: &Percolation) -> Vec<&percolation::Threshold> {
+    p.thresholds
+        .iter()
+        .flatten()
+        .filter(|t| !merged_with_higher(p, t))
         .collect()
 }
 
@@ -771,15 +796,9 @@ pub fn headline(a: &Analysis) -> String {
         );
     }
     let mut parts = Vec::new();
-    let reached: Vec<_> = p.thresholds.iter().flatten().collect();
-    for (i, t) in reached.iter().enumerate() {
-        // a dimension reached at the same energy as a higher one is reported as the higher one
-        if reached[i + 1..]
-            .iter()
-            .any(|u| (u.energy - t.energy).abs() < 1e-6)
-        {
-            continue;
-        }
+    for t in distinct_thresholds(p) {
+        // a dimension reached at (nearly) the same energy as a higher one is reported as the
+        // higher one
         let what = match &t.channel.span {
             percolation::Span::Line { direction, .. } => {
                 let dirs: Vec<String> = p

@@ -696,11 +696,11 @@ pub fn parse_reference_list(
         (None, (Some(c), Some(_))) => c,
         (None, _) => need("barrier_ev")?,
     };
-    let c_high = col("barrier_ev").is_none().then_some(range_cols.1).flatten();
-    let (c_dim, c_source) = (
-        col("dimension"),
-        col("source").or(col("barrier_sources")),
-    );
+    let c_high = col("barrier_ev")
+        .is_none()
+        .then_some(range_cols.1)
+        .flatten();
+    let (c_dim, c_source) = (col("dimension"), col("source").or(col("barrier_sources")));
     let mut out = Vec::new();
     for (ln, l) in lines {
         let f = split_csv_record(l)
@@ -754,7 +754,9 @@ pub fn parse_reference_list(
                 line: ln,
                 ion,
                 barrier_ev: 0.5 * (lo + hi),
-                dimension: c_dim.and_then(|c| get(c).parse::<u8>().ok()).filter(|d| (1..=3).contains(d)),
+                dimension: c_dim
+                    .and_then(|c| get(c).parse::<u8>().ok())
+                    .filter(|d| (1..=3).contains(d)),
                 source: c_source.map(get).unwrap_or("").to_string(),
             });
             continue;

@@ -44,7 +44,7 @@ impl Element {
         }
     }
 
-    fn row(&self) -> &'static (&'static str, u8, f64, &'static [i8], f64) {
+    fn row(&self) -> &'static (&'static str, u8, f64, &'static [i8], f64, &'static [i8]) {
         &ELEMENTS[self.0 as usize - 1]
     }
     pub fn symbol(&self) -> &'static str {
@@ -60,6 +60,15 @@ impl Element {
     /// Common oxidation states, most common first as listed by the source table.
     pub fn common_oxidation_states(&self) -> &'static [i8] {
         self.row().3
+    }
+    /// Every oxidation state worth trying for this element: the common ones (most common first),
+    /// then the further states observed in the Inorganic Crystal Structure Database in
+    /// increasing order (pymatgen's `icsd_oxidation_states`: Ni3+, Ni4+, Co4+, Ti3+, ...).
+    pub fn known_oxidation_states(&self) -> Vec<i8> {
+        let common = self.row().3;
+        let mut v = common.to_vec();
+        v.extend(self.row().5.iter().copied().filter(|q| !common.contains(q)));
+        v
     }
     /// Period (row) of the periodic table, 1-7: the principal quantum number of the valence shell.
     pub fn period(&self) -> u8 {

@@ -29,6 +29,7 @@ pub mod screen;
 pub mod spacegroup;
 pub mod structure;
 pub mod substitute;
+pub mod symmetry;
 pub mod text;
 pub mod transport;
 pub mod write_cif;

@@ -100,6 +100,27 @@ pub struct SymmetryInfo {
     pub ops: Vec<SymOp>,
     /// Where the operations came from, in words ("operator list in the file", "Hall symbol", ...).
     pub source: String,
+    /// For symmetry found in a P 1 input ([`crate::symmetry`]): the input cell and its
+    /// relation to the conventional cell. None when the file gave its own symmetry.
+    pub transformation: Option<CellTransformation>,
+}
+
+/// How a P 1 input cell relates to the conventional cell of the symmetry found in it:
+/// `A_conv = A_input linear` (lattice vectors as columns; the conventional cell is then set in
+/// the standard orientation, a rotation of the Cartesian frame) and
+/// `x_conv = linear^-1 (x_input - origin_shift)` (before the atoms are moved onto their exact
+/// symmetric positions, by at most the search tolerance).
+#[derive(Debug, Clone, PartialEq)]
+pub struct CellTransformation {
+    pub linear: nalgebra::Matrix3<f64>,
+    pub origin_shift: nalgebra::Vector3<f64>,
+    /// The cell as read.
+    pub input_cell: crate::lattice::CellParameters,
+    /// Positions in the cell as read.
+    pub input_positions: usize,
+    /// True when the structure was rewritten in the conventional cell; false when the input
+    /// cell was kept (directions then refer to the input cell).
+    pub conventional: bool,
 }
 
 #[derive(Debug, Clone, PartialEq)]
@@ -137,24 +158,33 @@ impl Structure {
         m
     }
 
-    /// Formula units per cell (Z) and the reduced formula, e.g. (4, "LiFePO4"). With partial
-    /// occupancies Z may be fractional: the formula is the smallest one with whole amounts when
-    /// there is one within 1e-3 (Li4Ti5O12 with Z = 8/3 for the spinel cell), otherwise the
-    /// counts are divided by the common divisor of the whole-numbered elements and kept
-    /// fractional (Na0.74CoO2, Z = 2).
+    /// Formula units per cell (Z, always a whole number) and the formula as chemists write it.
+    ///
+    /// When every element's count in the cell is whole, Z is their greatest common divisor
+    /// (LiFePO4, Z = 4; Li7La3Zr2O12, Z = 8, its partly occupied Li sites adding up to 56).
+    /// Otherwise Z is the greatest common divisor of the whole counts and of the multiplicities
+    /// of the asymmetric-unit sites (the crystallographic Z), and the other amounts stay
+    /// decimals: Na0.74CoO2 (Z = 2), Na0.1WO3 (Z = 1), Li0.5CoO2 from LiCoO2 with its Li site
+    /// half filled (Z = 3), Li1.333Ti1.667O4 for the spinel Li4Ti5O12 with Li and Ti sharing
+    /// 16d (Z = 8). A formula is never scaled to a fractional Z.
     pub fn formula_and_z(&self) -> (f64, String) {
         let comp = self.cell_composition();
-        let counts: Vec<f64> = comp.values().copied().collect();
         let whole = |c: &f64| (c - c.round()).abs() < 1e-3 && c.round() >= 1.0;
-        let g = counts
-            .iter()
+        let g = comp
+            .values()
             .filter(|c| whole(c))
-            .fold(0u64, |g, c| gcd_u64(g, c.round() as u64))
-            .max(1) as f64;
-        let z = (1..=24)
-            .map(|k| g / k as f64)
-            .find(|z| counts.iter().all(|c| whole(&(c / z))))
-            .unwrap_or(if counts.iter().any(whole) { g } else { 1.0 });
+            .fold(0u64, |g, c| gcd_u64(g, c.round() as u64));
+        let z = if comp.values().all(whole) {
+            g.max(1)
+        } else {
+            let m = self
+                .asymmetric_sites
+                .iter()
+                .filter(|a| !a.occupants.is_empty())
+                .fold(0u64, |m, a| gcd_u64(m, a.multiplicity as u64))
+                .max(1);
+            if g > 0 { gcd_u64(g, m) } else { m }.max(1)
+        } as f64;
         let f = write_formula(comp.iter().map(|(e, n)| (*e, n / z)));
         (z, f)
     }
@@ -182,7 +212,8 @@ impl Structure {
     }
 }
 
-/// Z as a chemist writes it: "4", or "2.667" when fractional.
+/// Z as a chemist writes it: "4" (fractional values, which [`Structure::formula_and_z`] no
+/// longer produces, keep three decimals).
 pub fn format_z(z: f64) -> String {
     if (z - z.round()).abs() < 1e-9 {
         format!("{}", z.round() as i64)

@@ -339,6 +339,7 @@ fn mixed_site_structure() -> Structure {
             hall_symbol: Some("P 1".into()),
             ops: vec![SymOp::identity()],
             source: "built in a test".into(),
+            transformation: None,
         },
         asymmetric_sites: vec![AsymmetricSite {
             label: "M1".into(),

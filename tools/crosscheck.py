@@ -4,7 +4,8 @@
 For every CIF under structures/ (recursive) and ../shared/cif-corpus/ (when present), or under
 the directories given with --root:
 
-(a) syntax: does hopmap read the file? (`hopmap inspect --json FILE`: exit 0 = structure read,
+(a) syntax: does hopmap read the file? (`hopmap inspect --json --keep-cell FILE`: exit 0 =
+    structure read,
     1 = error with a message; anything else, a timeout or unreadable JSON is a crash) against
     gemmi (gemmi.cif.read_file) and PyCifRW (CifFile.ReadCif). With --syntax-args, a second
     hopmap command gives a document-only verdict (e.g. `--syntax-args "check --json"`).
@@ -86,7 +87,10 @@ def run_hopmap(binary, path, timeout, extra_args=None):
     """{'status': 'ok'|'error'|'crash', 'json': dict|None, 'message': str}."""
     if binary.startswith("fake:"):
         return fake_hopmap(path)
-    args = [binary] + (extra_args if extra_args is not None else ["inspect", "--json"]) + [str(path)]
+    # --keep-cell: a P 1 file stays in its own cell (by default hopmap rewrites it in the
+    # conventional cell of the symmetry it finds), so that positions and volume compare with
+    # the oracle's reading of the file as written
+    args = [binary] + (extra_args if extra_args is not None else ["inspect", "--json", "--keep-cell"]) + [str(path)]
     try:
         p = subprocess.run(args, capture_output=True, timeout=timeout)
     except subprocess.TimeoutExpired:

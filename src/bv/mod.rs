@@ -57,7 +57,9 @@ pub mod valence;
 
 pub use model::{ModelKnobs, ModelProvenance, build_model};
 pub use overrides::Overrides;
-pub use oxidation::{OxidationAssignment, assign_oxidation_states};
+pub use oxidation::{
+    OxidationAssignment, OxidationSetting, apply_oxidation_settings, assign_oxidation_states,
+};
 pub use params::{BondParams, CutoffConvention, PairRole, ParameterTable, ValueOrigin};
 pub use valence::{ValenceReport, Verdict, valence_check};
 

@@ -30,9 +30,14 @@
 //! species = "Ti4+"
 //! coordination = 6         # optional: any coordination when left out
 //! radius_a = 0.605         # A
+//!
+//! [oxidation]              # states by element symbol or site label (see bv::oxidation)
+//! Co = 3.5
+//! Fe1 = 2
 //! ```
 
 use super::model::ModelKnobs;
+use super::oxidation::OxidationSetting;
 use super::params::{PairOverride, ParameterTable, ValueOrigin};
 use super::radii::RadiusOverride;
 use crate::element::Element;
@@ -50,6 +55,7 @@ struct FileDoc {
     pair: Vec<Spanned<PairEntry>>,
     #[serde(default)]
     radius: Vec<Spanned<RadiusEntry>>,
+    oxidation: Option<std::collections::BTreeMap<String, Spanned<f64>>>,
 }
 
 #[derive(Deserialize)]
@@ -118,6 +124,8 @@ pub struct Overrides {
     pub pairs: Vec<PairOverride>,
     pub radii: Vec<RadiusOverride>,
     pub knobs: Vec<KnobSetting>,
+    /// Oxidation states by element or site label (`[oxidation]`).
+    pub oxidation: Vec<OxidationSetting>,
 }
 
 /// Line and column (1-based) of a byte offset.
@@ -187,6 +195,7 @@ impl Overrides {
             pairs: Vec::new(),
             radii: Vec::new(),
             knobs: Vec::new(),
+            oxidation: Vec::new(),
         };
         let mut number = |name: &str, v: &Option<Spanned<f64>>, min_excl: Option<f64>| {
             if let Some(v) = v {
@@ -348,6 +357,13 @@ impl Overrides {
                 origin: origin(e.radius_a.span()),
             });
         }
+        for (key, v) in doc.oxidation.iter().flatten() {
+            let (line, _) = line_col(text, v.span().start);
+            let setting =
+                OxidationSetting::new(key, *v.get_ref(), &format!("override file {file}:{line}"))
+                    .map_err(|m| at(v.span(), m))?;
+            out.oxidation.push(setting);
+        }
         Ok(out)
     }
 
@@ -359,6 +375,7 @@ impl Overrides {
         for r in &self.radii {
             table.radii.add_override(r.clone());
         }
+        table.oxidation.extend(self.oxidation.iter().cloned());
         for k in &self.knobs {
             let (name, line) = match k {
                 KnobSetting::Number { name, value, line } => {

@@ -197,6 +197,9 @@ pub struct ParameterTable {
     estimate_only_b: Option<f64>,
     pub radii: RadiusTable,
     pub mobile: MobileIonTable,
+    /// Oxidation states set by the user (command line or parameter file), applied before any
+    /// assignment (see [`super::oxidation`]).
+    pub oxidation: Vec<super::oxidation::OxidationSetting>,
     /// Rows of the source skipped because hopmap has no element for them (e.g. ammonium "NH").
     pub skipped_rows: usize,
 }
@@ -218,6 +221,7 @@ impl ParameterTable {
             estimate_only_b: None,
             radii: RadiusTable::builtin(),
             mobile: MobileIonTable::builtin(),
+            oxidation: Vec::new(),
             skipped_rows,
         }
     }

@@ -18,6 +18,10 @@
 //!   one charge is tabulated, it is used with a note.
 //! - **Anions Shannon does not list** (H-, C4-, Si4-, P3-, As3-, Sb3-): Pauling's crystal radii,
 //!   flagged as a fallback.
+//! - **Other charges Shannon does not list** (P4+, Tc3+, S2+, O-): the radii at the nearest
+//!   tabulated charges of the same sign, interpolated in the charge when there is one on each
+//!   side (P4+ between P3+ and P5+), else the nearest (Tc3+ takes Tc4+); flagged as a fallback
+//!   with a note. Only an element with no radius of that sign at all is an error.
 
 use super::BvError;
 use super::params::ValueOrigin;
@@ -234,7 +238,7 @@ impl RadiusTable {
                     )],
                 });
             }
-            return Err(BvError::MissingRadius { species: name });
+            return self.nearest_charge(element, oxidation, coordination);
         }
         let (lo, hi) = (oxidation.floor(), oxidation.ceil());
         let w = oxidation - lo;
@@ -254,7 +258,7 @@ impl RadiusTable {
                 ));
                 (r, e, n)
             }
-            (None, None) => return Err(BvError::MissingRadius { species: name }),
+            (None, None) => return self.nearest_charge(element, oxidation, coordination),
         };
         notes.dedup();
         Ok(RadiusValue {
@@ -264,6 +268,64 @@ impl RadiusTable {
             radius,
             entries,
             origin: ValueOrigin::Table,
+            notes,
+        })
+    }
+
+    /// The flagged fallback for a charge Shannon does not list (P4+, Tc3+, O-): the radii at
+    /// the nearest tabulated charges of the same sign, interpolated linearly in the charge when
+    /// there is one on each side, else the nearest one. Error only when the element has no
+    /// radius of that sign at all.
+    fn nearest_charge(
+        &self,
+        element: Element,
+        oxidation: f64,
+        coordination: f64,
+    ) -> Result<RadiusValue, BvError> {
+        let name = Species::new(element, Some(oxidation)).name();
+        let mut charges: Vec<i8> = self
+            .rows
+            .iter()
+            .filter(|r| r.element == element && (r.charge as f64) * oxidation > 0.0)
+            .map(|r| r.charge)
+            .collect();
+        charges.sort();
+        charges.dedup();
+        let below = charges
+            .iter()
+            .rev()
+            .find(|c| (**c as f64) < oxidation)
+            .copied();
+        let above = charges.iter().find(|c| (**c as f64) > oxidation).copied();
+        let at = |c: i8| self.at_charge(element, c, coordination);
+        let (radius, entries, mut notes) = match (below.and_then(at), above.and_then(at)) {
+            (Some((ra, ea, mut na)), Some((rb, eb, nb))) => {
+                let (lo, hi) = (below.unwrap_or(0) as f64, above.unwrap_or(0) as f64);
+                let w = (oxidation - lo) / (hi - lo);
+                na.extend(nb);
+                na.push(format!(
+                    "Shannon gives no radius for {name}: interpolated linearly in charge between {lo} and {hi} (fallback)"
+                ));
+                ((1.0 - w) * ra + w * rb, format!("{ea}; {eb}"), na)
+            }
+            (Some((r, e, mut n)), None) | (None, Some((r, e, mut n))) => {
+                let c = below.or(above).unwrap_or(0);
+                n.push(format!(
+                    "Shannon gives no radius for {name}: the nearest tabulated charge, {}, is used (fallback)",
+                    Species::new(element, Some(c as f64)).name()
+                ));
+                (r, e, n)
+            }
+            (None, None) => return Err(BvError::MissingRadius { species: name }),
+        };
+        notes.dedup();
+        Ok(RadiusValue {
+            element,
+            oxidation,
+            coordination,
+            radius,
+            entries,
+            origin: ValueOrigin::Fallback,
             notes,
         })
     }
@@ -490,7 +552,30 @@ mod tests {
         let t = RadiusTable::builtin();
         let r = t.lookup(el("Mn"), 3.5, 6.0).unwrap();
         assert!((r.radius - 0.5875).abs() < 1e-12);
-        assert!(t.lookup(el("Li"), 2.0, 6.0).is_err());
+    }
+
+    #[test]
+    fn charges_shannon_does_not_list_fall_back_to_the_nearest_ones_flagged() {
+        let t = RadiusTable::builtin();
+        // P4+ (hypophosphates): between P3+ VI 0.44 and P5+ VI 0.38 A (Shannon 1976) -> 0.41 A
+        let p4 = t.lookup(el("P"), 4.0, 6.0).unwrap();
+        assert!((p4.radius - 0.41).abs() < 1e-12, "{}", p4.radius);
+        assert_eq!(p4.origin, ValueOrigin::Fallback);
+        assert!(p4.notes.iter().any(|n| n.contains("no radius for P4+")));
+        // Tc3+: only higher charges are tabulated, Tc4+ VI 0.645 A is the nearest
+        let tc3 = t.lookup(el("Tc"), 3.0, 6.0).unwrap();
+        assert_eq!(tc3.radius, 0.645);
+        assert_eq!(tc3.origin, ValueOrigin::Fallback);
+        // Li2+ takes Li+ VI 0.76 A, flagged
+        let li2 = t.lookup(el("Li"), 2.0, 6.0).unwrap();
+        assert_eq!((li2.radius, li2.origin), (0.76, ValueOrigin::Fallback));
+        // a tabulated charge is no fallback
+        assert_eq!(
+            t.lookup(el("P"), 5.0, 6.0).unwrap().origin,
+            ValueOrigin::Table
+        );
+        // no radius of that sign at all: still an error (Shannon lists no Li anion)
+        assert!(t.lookup(el("Li"), -1.0, 6.0).is_err());
     }
 
     #[test]

@@ -3,9 +3,9 @@
 use super::{CmdResult, Failure, GlobalOpts, InputArgs};
 use clap::Args;
 use hopmap::analysis::{self, Analysis, AnalysisOptions, RateOptions};
-use hopmap::bv::ParameterTable;
 use hopmap::bv::model::ModelKnobs;
 use hopmap::bv::overrides::Overrides;
+use hopmap::bv::{OxidationSetting, ParameterTable};
 use hopmap::element::Element;
 use hopmap::landscape::Progress;
 use hopmap::report;
@@ -26,6 +26,10 @@ pub struct ModelArgs {
     /// Site labels to remove from the framework besides the mobile ion (comma-separated)
     #[arg(long, value_delimiter = ',', value_name = "LABELS")]
     pub exclude: Vec<String>,
+    /// Oxidation states to use, by element or site label, e.g. 'Co=3.5,Ni=3' or 'Fe1=2'
+    /// (replace the file's and are not re-assigned)
+    #[arg(long, value_name = "KEY=STATE,...")]
+    pub oxidation: Option<String>,
 }
 
 /// Options of the transport and capacity estimates.
@@ -104,13 +108,22 @@ pub struct RateArgs {
     pub json: bool,
 }
 
-/// Reads the built-in tables and applies a parameter file when one is given.
-pub fn load_parameters(path: Option<&Path>) -> Result<(ParameterTable, ModelKnobs), Failure> {
+/// Reads the built-in tables and applies a parameter file when one is given, then the
+/// `--oxidation` settings (which win over the file's).
+pub fn load_parameters(
+    path: Option<&Path>,
+    oxidation: Option<&str>,
+) -> Result<(ParameterTable, ModelKnobs), Failure> {
     let mut table = ParameterTable::builtin();
     let mut knobs = ModelKnobs::default();
     if let Some(p) = path {
         let o = Overrides::read(p)?;
         o.apply(&mut table, &mut knobs);
+    }
+    if let Some(text) = oxidation {
+        let settings = OxidationSetting::parse_list(text, "--oxidation")
+            .map_err(|e| Failure::Usage(format!("--oxidation: {e}")))?;
+        table.oxidation.extend(settings);
     }
     Ok((table, knobs))
 }
@@ -137,7 +150,7 @@ pub fn options(
             )));
         }
     }
-    let (table, knobs) = load_parameters(m.params.as_deref())?;
+    let (table, knobs) = load_parameters(m.params.as_deref(), m.oxidation.as_deref())?;
     let mut o = AnalysisOptions::new(ion);
     o.spacing_a = m.spacing;
     o.table = table;
@@ -166,7 +179,7 @@ fn run_analysis(
     input: &InputArgs,
     opts: &AnalysisOptions,
 ) -> Result<Analysis, Failure> {
-    let s = hopmap::read::read_structure(&input.file, input.block.as_deref())?;
+    let s = input.read()?;
     let a = analysis::analyse(&s, opts)
         .map_err(|e| Failure::Analysis(format!("{}: {e}", input.file.display())))?;
     if g.verbose {

@@ -91,7 +91,7 @@ pub fn run(g: &GlobalOpts, a: CalibrateArgs) -> CmdResult {
         grid.screening_factor = parse_range("screening-range", r)?;
     }
     let refs = calibrate::read_references(&a.references, Some(ion))?;
-    let (table, knobs) = load_parameters(a.params.as_deref())?;
+    let (table, knobs) = load_parameters(a.params.as_deref(), None)?;
     let mut base = AnalysisOptions::new(ion);
     base.table = table;
     base.knobs = knobs;

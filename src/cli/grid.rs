@@ -33,7 +33,7 @@ pub struct GridArgs {
 pub fn run(g: &GlobalOpts, a: GridArgs) -> CmdResult {
     let dummy_rate = RateArgsCommon::default();
     let opts = super::analyse::options(g, &a.model, &dummy_rate)?;
-    let s = hopmap::read::read_structure(&a.input.file, a.input.block.as_deref())?;
+    let s = a.input.read()?;
     let (s, note, model, _prov, land) = hopmap::analysis::model_and_landscape(&s, &opts)
         .map_err(|e| Failure::Analysis(format!("{}: {e}", a.input.file.display())))?;
     if let (Some(n), false) = (note, g.quiet) {

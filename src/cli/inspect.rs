@@ -16,7 +16,7 @@ pub struct InspectArgs {
 
 pub fn run(g: &GlobalOpts, a: InspectArgs) -> CmdResult {
     let path = &a.input.file;
-    let s = hopmap::read::read_structure(path, a.input.block.as_deref())?;
+    let s = a.input.read()?;
     let file = path.display().to_string();
     if let Some(out) = &a.to_cif {
         hopmap::write_cif::write_cif_p1(out, &s)

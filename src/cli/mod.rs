@@ -92,6 +92,17 @@ pub struct InputArgs {
     /// CIF data block to read (default: the first block with atom sites)
     #[arg(long)]
     pub block: Option<String>,
+    /// Keep the cell of a P 1 input (POSCAR, P 1 CIF) instead of rewriting it in the
+    /// conventional cell of the symmetry found in it; directions then refer to the input cell
+    #[arg(long)]
+    pub keep_cell: bool,
+}
+
+impl InputArgs {
+    /// Reads the structure as the options ask.
+    pub fn read(&self) -> Result<hopmap::structure::Structure, hopmap::error::InputError> {
+        hopmap::read::read_structure_with(&self.file, self.block.as_deref(), self.keep_cell)
+    }
 }
 
 pub fn run() -> ExitCode {

@@ -31,6 +31,13 @@ pub struct ScreenArgs {
     /// Parameter file (TOML), e.g. from `hopmap calibrate`
     #[arg(long, value_name = "TOML")]
     pub params: Option<PathBuf>,
+    /// Oxidation states to use where they apply, by element or site label, e.g. 'Co=3.5'
+    /// (an element a structure lacks is noted in its row, not an error)
+    #[arg(long, value_name = "KEY=STATE,...")]
+    pub oxidation: Option<String>,
+    /// Keep the cell of P 1 inputs instead of rewriting them in the conventional cell
+    #[arg(long)]
+    pub keep_cell: bool,
 }
 
 #[derive(Args, Debug)]
@@ -47,6 +54,7 @@ pub struct MergeArgs {
 pub fn screen_one(
     path: &Path,
     ion: &str,
+    keep_cell: bool,
     subs: &[Substitution],
     opts_for: &dyn Fn(&str) -> Result<hopmap::analysis::AnalysisOptions, String>,
 ) -> ScreenRow {
@@ -57,7 +65,8 @@ pub fn screen_one(
         ..Default::default()
     };
     let result = (|| -> Result<(), String> {
-        let mut s = hopmap::read::read_structure(path, None).map_err(|e| e.to_string())?;
+        let mut s =
+            hopmap::read::read_structure_with(path, None, keep_cell).map_err(|e| e.to_string())?;
         for sub in subs {
             s = hopmap::substitute::apply(&s, sub)?;
         }
@@ -72,10 +81,8 @@ pub fn screen_one(
         row.barrier_1d_ev = p.threshold(1).map(|t| t.barrier as f64);
         row.barrier_2d_ev = p.threshold(2).map(|t| t.barrier as f64);
         row.barrier_3d_ev = p.threshold(3).map(|t| t.barrier as f64);
-        row.direction = p
-            .thresholds
-            .iter()
-            .flatten()
+        row.direction = hopmap::analysis::distinct_thresholds(p)
+            .into_iter()
             .next()
             .map(|t| match &t.channel.span {
                 hopmap::percolation::Span::Line { direction, .. } => {
@@ -120,12 +127,15 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
     };
     let spacing = a.spacing;
     let params = a.params.clone();
+    let oxidation = a.oxidation.clone();
+    let keep_cell = a.keep_cell;
     let opts_for = move |ion: &str| -> Result<hopmap::analysis::AnalysisOptions, String> {
         let m = ModelArgs {
             ion: ion.to_string(),
             spacing,
             params: params.clone(),
             exclude: vec![],
+            oxidation: oxidation.clone(),
         };
         super::analyse::options(&quiet, &m, &base_rate).map_err(|e| match e {
             Failure::Analysis(s) | Failure::Usage(s) => s,
@@ -147,7 +157,7 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
     let (summary, rows) = screen::run_batch(
         &jobs,
         &a.out,
-        |p, ion| screen_one(p, ion, &subs, &opts_for),
+        |p, ion| screen_one(p, ion, keep_cell, &subs, &opts_for),
         &|| bar.inc(1),
     )
     .map_err(|e| format!("cannot write {}: {e}", a.out.display()))?;

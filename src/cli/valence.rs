@@ -10,14 +10,18 @@ pub struct ValenceArgs {
     /// Parameter file (TOML) overriding bond-valence parameters or radii
     #[arg(long, value_name = "TOML")]
     pub params: Option<PathBuf>,
+    /// Oxidation states to use, by element or site label, e.g. 'Co=3.5,Ni=3' or 'Fe1=2'
+    #[arg(long, value_name = "KEY=STATE,...")]
+    pub oxidation: Option<String>,
     /// Print the report as JSON on stdout (schema in the README)
     #[arg(long)]
     pub json: bool,
 }
 
 pub fn run(_g: &GlobalOpts, a: ValenceArgs) -> CmdResult {
-    let s = hopmap::read::read_structure(&a.input.file, a.input.block.as_deref())?;
-    let (table, _knobs) = super::analyse::load_parameters(a.params.as_deref())?;
+    let s = a.input.read()?;
+    let (table, _knobs) =
+        super::analyse::load_parameters(a.params.as_deref(), a.oxidation.as_deref())?;
     let (s, note) = hopmap::analysis::with_oxidation_states(&s, &table)?;
     let v = hopmap::bv::valence_check(&s, &table)?;
     if a.json {

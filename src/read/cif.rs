@@ -407,6 +407,7 @@ fn read_symmetry(
         hall_symbol: hall.clone(),
         ops: Vec::new(),
         source: String::new(),
+        transformation: None,
     };
 
     if let Some(ops) = read_operator_list(block, file, ctx, warnings)? {

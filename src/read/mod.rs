@@ -47,7 +47,28 @@ impl Format {
 
 /// Reads one structure from a file of any supported format. `block` picks a CIF data block by
 /// name (ignored for the other formats); without it the first block with atom sites is read.
+/// A structure read as P 1 gets the symmetry found in it and is rewritten in its conventional
+/// cell ([`crate::symmetry::complete_symmetry`]); see [`read_structure_with`] to keep the cell.
 pub fn read_structure(path: &Path, block: Option<&str>) -> Result<Structure, InputError> {
+    read_structure_with(path, block, false)
+}
+
+/// As [`read_structure`]; with `keep_cell` a P 1 input keeps its own cell (the symmetry found
+/// is still filled in, in that cell's basis).
+pub fn read_structure_with(
+    path: &Path,
+    block: Option<&str>,
+    keep_cell: bool,
+) -> Result<Structure, InputError> {
+    let s = read_structure_as_written(path, block)?;
+    Ok(crate::symmetry::complete_symmetry(s, keep_cell))
+}
+
+/// The structure exactly as the file gives it, P 1 inputs left without symmetry.
+pub fn read_structure_as_written(
+    path: &Path,
+    block: Option<&str>,
+) -> Result<Structure, InputError> {
     match Format::from_path(path) {
         Format::Cif => cif::read_cif(path, block),
         Format::Poscar => poscar::read_poscar(path),

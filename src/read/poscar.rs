@@ -397,6 +397,7 @@ pub(crate) fn p1_structure(
             hall_symbol: Some("P 1".into()),
             ops: vec![SymOp::identity()],
             source,
+            transformation: None,
         },
         asymmetric_sites: asym,
         sites,

@@ -153,7 +153,8 @@ fn threshold_directions(p: &Percolation, d: u8, energy: f32, span: &Span) -> Vec
 /// The answer in plain words, e.g. "Li+ can travel through LiFePO4 along one-dimensional
 /// channels in the [010] direction, over a barrier of 0.41 eV; joining the channels into layers
 /// parallel to the (100) plane takes 0.75 eV, and into a three-dimensional network 1.40 eV."
-/// Thresholds reached at the same energy are told as one (the highest dimension).
+/// Thresholds reached at the same energy, or within [`crate::analysis::CHANNEL_MERGE_EV`], are
+/// told as one (the highest dimension).
 pub fn answer_sentence(a: &Analysis) -> String {
     let p = &a.percolation;
     let ion = ion_name(a);
@@ -165,17 +166,9 @@ pub fn answer_sentence(a: &Analysis) -> String {
             p.ceiling
         );
     }
-    // Merge thresholds at the same energy into the highest one.
+    // Merge thresholds at (nearly) the same energy into the highest one.
     let ts: Vec<_> = p.thresholds.iter().flatten().collect();
-    let mut groups: Vec<&crate::percolation::Threshold> = Vec::new();
-    for (i, t) in ts.iter().enumerate() {
-        let next_same = ts
-            .get(i + 1)
-            .is_some_and(|n| (n.energy - t.energy).abs() < 1e-5);
-        if !next_same {
-            groups.push(t);
-        }
-    }
+    let groups = crate::analysis::distinct_thresholds(p);
     let how = |t: &crate::percolation::Threshold, first: bool| -> String {
         let at_once = first && t.dimension > 1 && ts[0].dimension < t.dimension;
         match &t.channel.span {

@@ -67,6 +67,27 @@ pub fn structure(s: &Structure, file: &str) -> Value {
             "alpha": round(p.alpha, 4), "beta": round(p.beta, 4), "gamma": round(p.gamma, 4),
             "volume": round(s.volume(), 4),
         },
+        "analysed_cell": crate::symmetry::analysed_cell(s),
+        "cell_transformation": s.symmetry.transformation.as_ref().map(|t| {
+            let ip = t.input_cell;
+            let m = t.linear;
+            json!({
+                "conventional": t.conventional,
+                "linear": [
+                    [round(m[(0, 0)], 6), round(m[(0, 1)], 6), round(m[(0, 2)], 6)],
+                    [round(m[(1, 0)], 6), round(m[(1, 1)], 6), round(m[(1, 2)], 6)],
+                    [round(m[(2, 0)], 6), round(m[(2, 1)], 6), round(m[(2, 2)], 6)],
+                ],
+                "origin_shift": [
+                    round(t.origin_shift.x, 6), round(t.origin_shift.y, 6), round(t.origin_shift.z, 6)
+                ],
+                "input_cell": {
+                    "a": round(ip.a, 5), "b": round(ip.b, 5), "c": round(ip.c, 5),
+                    "alpha": round(ip.alpha, 4), "beta": round(ip.beta, 4), "gamma": round(ip.gamma, 4),
+                },
+                "input_positions": t.input_positions,
+            })
+        }),
         "density_g_cm3": round(s.density(), 4),
         "positions_in_cell": s.sites.len(),
         "composition": composition,
@@ -140,6 +161,12 @@ fn channels(p: &Percolation, unit: &str) -> Vec<Value> {
             m.insert("span".into(), span);
             m.insert("components".into(), json!(t.components));
             m.insert("accessible_fraction".into(), json!(round(t.fraction, 5)));
+            if unit == "ev" {
+                m.insert(
+                    "merged_with_higher".into(),
+                    json!(crate::analysis::merged_with_higher(p, t)),
+                );
+            }
             Value::Object(m)
         })
         .collect()

@@ -26,6 +26,9 @@ pub fn structure(s: &Structure, file: &str) -> String {
         "  cell          a = {:.4} A, b = {:.4} A, c = {:.4} A, alpha = {:.3} deg, beta = {:.3} deg, gamma = {:.3} deg",
         p.a, p.b, p.c, p.alpha, p.beta, p.gamma
     );
+    if let Some(n) = crate::symmetry::cell_note(s) {
+        let _ = writeln!(o, "  which cell    {n}");
+    }
     let _ = writeln!(
         o,
         "  volume        {:.3} A^3, density {:.4} g/cm^3, formula mass {:.3} g/mol",
@@ -153,6 +156,9 @@ pub fn paths(a: &Analysis, file: &str) -> String {
             .unwrap_or("space group not identified"),
         a.structure.volume()
     );
+    if let Some(n) = crate::symmetry::cell_note(&a.structure) {
+        let _ = writeln!(o, "  cell: {n}");
+    }
     let g = &a.landscape.energy;
     let _ = writeln!(
         o,
