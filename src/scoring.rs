@@ -4,8 +4,8 @@
 //! The predicates here are the ones every check uses, so that a test, the evidence bench and a
 //! user scoring their own list judge a result the same way:
 //!
-//! - **Dimension** of the first network to open: the highest d whose threshold equals the lowest
-//!   one within [`SAME_ENERGY_EV`] ([`first_dimension`]).
+//! - **Dimension** of the first network the analysis reports: thresholds within
+//!   [`crate::analysis::CHANNEL_MERGE_EV`] of a higher one are that one ([`first_dimension`]).
 //! - **Direction**: the directions `[uvw]` (1D) or plane normals `(hkl)` (2D) of every family of
 //!   that dimension opening at its threshold ([`directions_at`]), compared with the published one
 //!   up to the point-group operations of the structure ([`equivalent_indices`]).
@@ -182,15 +182,13 @@ fn same_energy(a: f32, b: f32) -> bool {
     (a - b).abs() <= SAME_ENERGY_EV
 }
 
-/// Dimension of the first network to open: the highest d with `E_d = E_1` (0 when none).
+/// Dimension of the first network the analysis reports: networks opening within
+/// [`crate::analysis::CHANNEL_MERGE_EV`] of a higher-dimensional one count as that one, as in
+/// the headline (0 when none opens).
 pub fn first_dimension(p: &Percolation) -> u8 {
-    let Some(e1) = p.thresholds.iter().flatten().next().map(|t| t.energy) else {
-        return 0;
-    };
-    (1..=3u8)
-        .filter(|&d| p.energy(d).is_some_and(|e| same_energy(e, e1)))
-        .max()
-        .unwrap_or(0)
+    crate::analysis::distinct_thresholds(p)
+        .first()
+        .map_or(0, |t| t.dimension)
 }
 
 /// Primitive, first nonzero component positive.
