@@ -59,7 +59,8 @@ RELAX_STEPS = 500
 SITE_WINDOW_EV = 1.0  # hopmap orbits within this of the lowest are tried by `sites`
 MAX_ORBITS = 5
 KICK_A = 0.05  # end-point ion displaced along the path, away from the saddle, before relaxing
-ON_SITE_A = 0.6  # a path point this close to an ion of the file is on that site
+ON_SITE_A = 0.6  # a hopmap site this close to an ion of the file is that ion's site
+ON_PATH_A = 0.5  # a path point this close to an ion site passes through it
 CI_FILE = "TiO2_rutile.cif"
 CI_ION = "Li"
 CI_TOL_EV = 0.02
@@ -339,9 +340,16 @@ def run_hopmap(binary, path: Path, ion: str):
     return json.loads(p.stdout)
 
 
-def ion_positions(struct, ion):
-    """Cartesian positions of every site of the file that holds the ion (any occupancy)."""
-    return np.array([s.coords for s in struct if ion in site_elements(s)]).reshape(-1, 3)
+def ion_positions(struct, ion, majority=False):
+    """Cartesian positions of every site of the file that holds the ion (any occupancy; with
+    `majority`, only sites where the ion is the main occupant, so that Li on a Ti site of
+    Li4Ti5O12 does not count)."""
+    out = []
+    for s in struct:
+        occ = site_elements(s)
+        if ion in occ and (not majority or occ[ion] >= max(occ.values()) - 1e-9):
+            out.append(s.coords)
+    return np.array(out).reshape(-1, 3)
 
 
 def min_image_dist(cart_a, cart_b, matrix):
@@ -413,41 +421,67 @@ def choose_pass(doc, struct, ion, vacancy: bool) -> Pass:
     sites.sort(key=lambda x: x["d"])
     sad = max(prof["saddles"], key=lambda s: (s["energy_ev"], -s["distance_a"]))
     ds = sad["distance_a"]
-    ion_c = ion_positions(struct, ion)
+    ion_c = ion_positions(struct, ion, majority=True)
+    inv = np.linalg.inv(m)
 
     def info(s):
-        hs, dist = nearest_site(doc, s["frac"], m)
-        on_ion = bool(len(ion_c)) and min(min_image_dist(s["frac"] @ m, c, m) for c in ion_c) < ON_SITE_A
-        return hs, on_ion
+        hs, _ = nearest_site(doc, s["frac"], m)
+        return hs
 
-    def ok(s):
-        hs, on_ion = info(s)
-        if vacancy:
-            return on_ion
-        return hs is None or not hs.get("shallow", False)
+    def ion_site_image(frac):
+        """Fractional position (the image nearest to `frac`) of the ion site within
+        ON_PATH_A of it, or None."""
+        c = np.asarray(frac) @ m
+        for x in ion_c:
+            if min_image_dist(c, x, m) < ON_PATH_A:
+                d = x @ inv - frac
+                return frac + (d - np.round(d))
+        return None
 
-    left = [s for s in sites if s["d"] < ds - 1e-6][::-1]
-    right = [s for s in sites if s["d"] > ds + 1e-6]
-    a = next((s for s in left if ok(s)), None)
-    b = next((s for s in right if ok(s)), None)
-    if a is None or b is None:
-        raise OracleError(f"{doc['file']}: no qualifying end points around the highest saddle")
-    sel = (ext_d >= a["d"] - 1e-6) & (ext_d <= b["d"] + 1e-6)
-    path = ext_f[sel]
-    ha, _ = info(a)
-    hb, _ = info(b)
-    # end points: the ion's own site (vacancy mode) or hopmap's refined minimum (interstitial)
-    def snap(s, hs):
-        c = s["frac"] @ m
-        if vacancy:
-            target = min(ion_c, key=lambda x: min_image_dist(c, x, m)) @ np.linalg.inv(m)
-        else:
-            target = np.array(hs["frac"])
-        d = target - s["frac"]
-        return s["frac"] + (d - np.round(d))
+    if vacancy:
+        # walk along the path points from the saddle to the first point on an ion site of the
+        # file on each side (two different sites): the moving ion's start and end
+        isad = int(np.argmin(np.abs(ext_d - ds)))
+        fa = fb = None
+        for j in range(isad, -1, -1):
+            fa = ion_site_image(ext_f[j])
+            if fa is not None:
+                ja = j
+                break
+        for j in range(isad, len(ext_d)):
+            f = ion_site_image(ext_f[j])
+            if f is not None and (fa is None or np.linalg.norm((f - fa) @ m) > 0.5):
+                fb, jb = f, j
+                break
+        if fa is None or fb is None:
+            raise OracleError(f"{doc['file']}: the path around the highest saddle does not "
+                              f"pass two sites of {ion}")
+        a = {"d": ext_d[ja], "e": ext_e[ja], "frac": fa}
+        b = {"d": ext_d[jb], "e": ext_e[jb], "frac": fb}
+        path = np.vstack([fa, ext_f[ja + 1:jb], fb])
+        ha, hb = info(a), info(b)
+    else:
+        def ok(s):
+            hs = info(s)
+            return hs is None or not hs.get("shallow", False)
 
-    fa, fb = snap(a, ha), snap(b, hb)
-    path = np.vstack([fa, path, fb])
+        left = [s for s in sites if s["d"] < ds - 1e-6][::-1]
+        right = [s for s in sites if s["d"] > ds + 1e-6]
+        a = next((s for s in left if ok(s)), None)
+        b = next((s for s in right if ok(s)), None)
+        if a is None or b is None:
+            raise OracleError(f"{doc['file']}: no qualifying end points around the highest "
+                              "saddle")
+        sel = (ext_d > a["d"] + 1e-6) & (ext_d < b["d"] - 1e-6)
+        ha, hb = info(a), info(b)
+
+        # end points: hopmap's refined minimum (the image nearest to the profile's point)
+        def snap(s, hs):
+            d = np.array(hs["frac"]) - s["frac"]
+            return s["frac"] + (d - np.round(d))
+
+        fa, fb = snap(a, ha), snap(b, hb)
+        path = np.vstack([fa, ext_f[sel], fb])
     inner = [s for s in sites if a["d"] < s["d"] < b["d"]]
     e_lo = min(a["e"], b["e"])
 
@@ -548,21 +582,33 @@ def build_endpoints(struct, ion, ps: Pass, vacancy, min_image):
     m = od.unit_matrix
     path_c = ps.path_frac @ m
     if vacancy:
-        # pick a copy of the pass (unit-cell translation) whose both ends hold the ion
-        best = None
-        for t in itertools.product(*(range(n) for n in od.mult)):
+        # pick a copy of the pass (a unit-cell translation inside the supercell) that starts on
+        # an ion; where ordering left some ion sites empty, prefer one that ends on an empty
+        # site (the ion moves into an existing vacancy), else one that ends on an ion, which is
+        # removed (a vacancy made for the hop)
+        found = {}
+        for rev, t in itertools.product((False, True),
+                                        itertools.product(*(range(n) for n in od.mult))):
+            pc = path_c[::-1] if rev else path_c
             sh = np.array(t) @ m
-            i0 = wrap_index(atoms, path_c[0] + sh, symbol=ion)
-            i1 = wrap_index(atoms, path_c[-1] + sh, symbol=ion)
-            if i0 is not None and i1 is not None and i0 != i1:
-                best = (sh, i0, i1)
-                break
-        if best is None:
-            raise OracleError("no copy of the pass has the ion on both end sites after ordering")
-        sh, i0, i1 = best
-        path_c = path_c + sh
+            i0 = wrap_index(atoms, pc[0] + sh, symbol=ion)
+            if i0 is None:
+                continue
+            i1 = wrap_index(atoms, pc[-1] + sh)
+            if i1 is None:
+                found.setdefault("into an empty site", (pc + sh, i0, None, rev))
+            elif atoms[i1].symbol == ion and i1 != i0:
+                found.setdefault("vacancy made at the end site", (pc + sh, i0, i1, rev))
+        if not found:
+            raise OracleError("no copy of the pass starts on an ion after ordering")
+        how = next(k for k in ("into an empty site", "vacancy made at the end site")
+                   if k in found)
+        path_c, i0, i1, rev = found[how]
+        if rev:
+            how += ", run end to start"
         base = atoms.copy()
-        del base[sorted([i0, i1], reverse=True)]
+        del base[sorted([i for i in (i0, i1) if i is not None], reverse=True)]
+        od.note = (od.note + "; " if od.note else "") + f"vacancy hop {how}"
     else:
         base = atoms.copy()
     return base, path_c, od
