@@ -57,7 +57,7 @@ NEB_FMAX = 0.1  # eV/A
 NEB_STEPS = 300
 RELAX_STEPS = 500
 SITE_WINDOW_EV = 1.0  # hopmap orbits within this of the lowest are tried by `sites`
-MAX_ORBITS = 5
+MAX_ORBITS = 3
 KICK_A = 0.05  # end-point ion displaced along the path, away from the saddle, before relaxing
 ON_SITE_A = 0.6  # a hopmap site this close to an ion of the file is that ion's site
 ON_PATH_A = 0.5  # a path point this close to an ion site passes through it
@@ -863,8 +863,8 @@ def run_relax(path: Path, log=print):
         "ordering": od.note,
         "energy_ev_per_atom": e / len(a), "max_force_ev_a": f, "converged": conv, "steps": n,
         "volume_change_pct": 100.0 * (a.get_volume() - v0) / v0,
-        "cell_before": [round(x, 4) for x in before.cell.cellpar()],
-        "cell_after": [round(x, 4) for x in a.cell.cellpar()],
+        "cell_before": [round(float(x), 4) for x in before.cell.cellpar()],
+        "cell_after": [round(float(x), 4) for x in a.cell.cellpar()],
         "max_displacement_a": float(disp.max()),
         "max_displacement_atom": f"{a[worst].symbol}{worst}",
         "mean_displacement_a": float(disp.mean()),
