@@ -483,7 +483,12 @@ def choose_pass(doc, struct, ion, vacancy: bool) -> Pass:
         fa, fb = snap(a, ha), snap(b, hb)
         path = np.vstack([fa, ext_f[sel], fb])
     inner = [s for s in sites if a["d"] < s["d"] < b["d"]]
-    e_lo = min(a["e"], b["e"])
+    seg = (ext_d >= a["d"] - 1e-6) & (ext_d <= b["d"] + 1e-6)
+    # the lowest point of the pass: its path points and the hopmap minima at its two ends
+    e_lo = float(ext_e[seg].min())
+    for hs, f in ((ha, fa), (hb, fb)):
+        if hs is not None and min_image_dist(np.asarray(hs["frac"]) @ m, f @ m, m) < ON_SITE_A:
+            e_lo = min(e_lo, hs["energy_ev"])
 
     def lab(hs):
         if hs is None:
@@ -774,7 +779,7 @@ def run_sites(path: Path, ion: str, binary=None, min_image=MIN_IMAGE_A, log=prin
     else:
         od = order_structure(struct, min_image)
         perfect = od.atoms.copy()
-        e_perf, _, _, _ = relax(perfect)
+        e_perf = None  # the perfect crystal is relaxed only when a Frenkel move needs it
         occ_atoms = [i for i, a in enumerate(od.atoms) if a.symbol == ion]
         cell = np.array(od.atoms.cell)
 
@@ -803,6 +808,8 @@ def run_sites(path: Path, ion: str, binary=None, min_image=MIN_IMAGE_A, log=prin
                             best = (d, i, vc)
                 break  # one void of the orbit is enough (they are equivalent)
             d, i, vc = best
+            if e_perf is None:
+                e_perf, _, _, _ = relax(perfect)
             a = perfect.copy()
             # place it at the image of the void nearest to the ion
             delta = (vc - a.positions[i]) @ np.linalg.inv(cell)
@@ -925,12 +932,22 @@ def row_from(res: NebResult | None, verdict, site_rows, wall, err_notes, path, i
         notes = res.notes + notes
     if verdict:
         r["lowest_site_verdict"] = verdict
-        r["site_energies"] = "; ".join(
-            f"orbit {s['orbit']}: " + ("occupied" if s.get("occupied") else
-                                       f"{s['rel_ev']:+.3f} eV")
-            for s in site_rows)
+        r["site_energies"] = "; ".join(_site_text(s) for s in site_rows)
     r["notes"] = "; ".join(notes)
     return r
+
+
+def _site_text(s):
+    t = f"orbit {s['orbit']}: "
+    if s.get("occupied"):
+        return t + "occupied"
+    t += f"{s['rel_ev']:+.3f} eV"
+    if s.get("returned"):
+        t += " (the moved ion returns to its site)"
+    elif "ends_in_orbit" in s and s["ends_in_orbit"] != s["orbit"]:
+        t += (f" (relaxes into orbit {s['ends_in_orbit']})" if s["ends_in_orbit"] is not None
+              else f" (relaxes {s['moved_a']:.2f} A away, onto no hopmap site)")
+    return t
 
 
 def refs_rows(refs: Path):
@@ -940,6 +957,26 @@ def refs_rows(refs: Path):
         if not r.get("file") or not r.get("ion"):
             raise OracleError(f"{refs}: line {i}: needs file and ion")
     return rows
+
+
+def refresh_hopmap(rows, refs, out, table, binary):
+    """Recompute the hopmap columns (pass, barriers, dimension) of the rows in `out` from the
+    current hopmap, without the model."""
+    binary = hopmap_bin(binary)
+    files = {(Path(r["file"]).name, r["ion"]): (refs.parent / r["file"]).resolve() for r in rows}
+    for r in table:
+        path = files.get((r["file"], r["ion"]))
+        if path is None or not r.get("mode"):
+            continue
+        struct = load_structure(path)
+        doc = run_hopmap(binary, path, r["ion"])
+        ps = choose_pass(doc, struct, r["ion"], r["mode"] == "vacancy")
+        r.update({"pass": ps.description, "hopmap_barrier_ev": fmt(ps.hopmap_barrier_ev),
+                  "hopmap_pass_barrier_ev": fmt(ps.hopmap_pass_barrier_ev),
+                  "hopmap_dimension": ps.dimension})
+        print(f"{r['file']} {r['ion']}: hopmap columns refreshed")
+    write_table(out, table)
+    return 0
 
 
 def cmd_run_set(args):
@@ -956,6 +993,8 @@ def cmd_run_set(args):
             else:
                 only.update(i for i, r in enumerate(rows, 1) if tok in r["file"])
     table = read_table(out)
+    if args.refresh_hopmap:
+        return refresh_hopmap(rows, refs, out, table, args.hopmap)
     done = {(r["file"], r["ion"]) for r in table}
     for i, ref in enumerate(rows, 1):
         if only is not None and i not in only:
@@ -1089,6 +1128,8 @@ def main(argv=None):
     p.add_argument("--force", action="store_true", help="rerun rows already in --out")
     p.add_argument("--images", type=int, default=5)
     p.add_argument("--no-sites", action="store_true", help="skip the site check")
+    p.add_argument("--refresh-hopmap", action="store_true",
+                   help="only recompute the hopmap columns of the rows already in --out")
     common(p)
     p.set_defaults(fn=cmd_run_set)
 
