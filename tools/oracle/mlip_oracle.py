@@ -754,7 +754,7 @@ def run_sites(path: Path, ion: str, binary=None, min_image=MIN_IMAGE_A, log=prin
             fin = a.positions[-1]
             fin_frac = fin @ np.linalg.inv(m)
             hs, dist = nearest_site(doc, fin_frac, m)
-            rows.append({"orbit": doc["sites"].index(rep) if False else rep["orbit"],
+            rows.append({"orbit": rep["orbit"],
                          "hopmap_ev": o["energy_ev"], "energy_ev": e, "converged": conv,
                          "moved_a": float(np.linalg.norm(fin - p)),
                          "ends_in_orbit": hs["orbit"] if hs and dist < 0.5 else None})
@@ -772,7 +772,12 @@ def run_sites(path: Path, ion: str, binary=None, min_image=MIN_IMAGE_A, log=prin
                        + (f" (orbit {best['orbit']} within {r0['rel_ev']:.3f} eV)"
                           if best["orbit"] != h0_orbit else ""))
         else:
-            verdict = (f"differs: lowest after relaxation is hopmap orbit {best['orbit']}; "
+            ends = best["ends_in_orbit"]
+            verdict = (f"differs: lowest after relaxation is the ion placed at hopmap orbit "
+                       f"{best['orbit']}"
+                       + (f" (it ends in orbit {ends})" if ends not in (None, best["orbit"])
+                          else " (it ends on no hopmap site)" if ends is None else "")
+                       + "; "
                        f"hopmap's lowest orbit {h0_orbit} is {r0['rel_ev']:.3f} eV above"
                        + (f" and relaxes into orbit {r0['ends_in_orbit']}"
                           if r0["ends_in_orbit"] not in (None, h0_orbit) else ""))
@@ -983,22 +988,20 @@ def cmd_run_set(args):
     refs = Path(args.refs)
     out = Path(args.out)
     rows = refs_rows(refs)
-    only = None
+    only = None  # row numbers, in the order given
     if args.only:
-        only = set()
+        only = []
         for tok in args.only.split(","):
             tok = tok.strip()
-            if tok.isdigit():
-                only.add(int(tok))
-            else:
-                only.update(i for i, r in enumerate(rows, 1) if tok in r["file"])
+            picked = ([int(tok)] if tok.isdigit()
+                      else [i for i, r in enumerate(rows, 1) if tok in r["file"]])
+            only += [i for i in picked if i not in only and 1 <= i <= len(rows)]
     table = read_table(out)
     if args.refresh_hopmap:
         return refresh_hopmap(rows, refs, out, table, args.hopmap)
     done = {(r["file"], r["ion"]) for r in table}
-    for i, ref in enumerate(rows, 1):
-        if only is not None and i not in only:
-            continue
+    for i in (only if only is not None else range(1, len(rows) + 1)):
+        ref = rows[i - 1]
         key = (Path(ref["file"]).name, ref["ion"])
         if key in done and not args.force:
             print(f"{key[0]} {key[1]}: in {out}, skipped (--force reruns)")
@@ -1124,7 +1127,7 @@ def main(argv=None):
     p.add_argument("--refs", default=str(DEFAULT_REFS))
     p.add_argument("--out", default=str(DEFAULT_RESULTS))
     p.add_argument("--only", help="row numbers (1 = first data row) or file-name parts, "
-                   "comma-separated")
+                   "comma-separated; run in that order")
     p.add_argument("--force", action="store_true", help="rerun rows already in --out")
     p.add_argument("--images", type=int, default=5)
     p.add_argument("--no-sites", action="store_true", help="skip the site check")
