@@ -59,6 +59,7 @@ RELAX_STEPS = 500
 SITE_WINDOW_EV = 1.0  # hopmap orbits within this of the lowest are tried by `sites`
 MAX_ORBITS = 3
 KICK_A = 0.05  # end-point ion displaced along the path, away from the saddle, before relaxing
+RATTLE_A = 0.02  # rattle of the perfect crystal before relaxing it (site check)
 ON_SITE_A = 0.6  # a hopmap site this close to an ion of the file is that ion's site
 ON_PATH_A = 0.5  # a path point this close to an ion site passes through it
 CI_FILE = "TiO2_rutile.cif"
@@ -645,12 +646,15 @@ def run_neb(path: Path, ion: str, binary=None, n_images=5, min_image=MIN_IMAGE_A
 
     # a small kick along the path, away from the saddle, so that an end point that is a
     # stationary point by symmetry but not a minimum of the potential can slide off it
-    def away(p, q):
+    # (plus a smaller fixed pseudo-random sideways part, so that an ion on a symmetric axis
+    # can also leave it sideways)
+    def away(p, q, seed):
         v = p - q
-        return KICK_A * v / max(np.linalg.norm(v), 1e-9)
+        v = v / max(np.linalg.norm(v), 1e-9) + 0.5 * _kick(seed) / KICK_A
+        return KICK_A * v / np.linalg.norm(v)
 
-    start = with_ion(pts[0] + away(pts[0], pts[1]))
-    end = with_ion(pts[-1] + away(pts[-1], pts[-2]))
+    start = with_ion(pts[0] + away(pts[0], pts[1], 1))
+    end = with_ion(pts[-1] + away(pts[-1], pts[-2], 2))
     e0, f0, c0, _ = relax(start)
     e1, f1, c1, _ = relax(end)
     log(f"  end points relaxed: {STATS['calls']} evaluations, {STATS['seconds']:.0f} s in the "
@@ -785,6 +789,9 @@ def run_sites(path: Path, ion: str, binary=None, min_image=MIN_IMAGE_A, log=prin
     else:
         od = order_structure(struct, min_image)
         perfect = od.atoms.copy()
+        # a small fixed rattle: a perfect crystal at a symmetric stationary point (mixed-valence
+        # Mn or Co as one element) would otherwise stay above its relaxed state
+        perfect.rattle(stdev=RATTLE_A, seed=7)
         e_perf = None  # the perfect crystal is relaxed only when a Frenkel move needs it
         occ_atoms = [i for i, a in enumerate(od.atoms) if a.symbol == ion]
         cell = np.array(od.atoms.cell)
