@@ -1081,6 +1081,19 @@ def cmd_relax(args):
     return 0
 
 
+def cmd_summary(args):
+    """results.csv as a Markdown table."""
+    rows = read_table(Path(args.results))
+    print("| file | ion | mode | atoms | oracle barrier (eV) | hopmap barrier (eV) | "
+          "converged | wall (s) | lowest site |")
+    print("|---|---|---|---|---|---|---|---|---|")
+    for r in rows:
+        verdict = r["lowest_site_verdict"].split(":")[0] if r["lowest_site_verdict"] else ""
+        print(f"| {r['file']} | {r['ion']} | {r['mode']} | {r['atoms']} | {r['barrier_ev']} | "
+              f"{r['hopmap_barrier_ev']} | {r['converged']} | {r['wall_s']} | {verdict} |")
+    return 0
+
+
 def cmd_ci(args):
     results = Path(args.results)
     stored = next((r for r in read_table(results)
@@ -1155,6 +1168,10 @@ def main(argv=None):
                    help="only recompute the hopmap columns of the rows already in --out")
     common(p)
     p.set_defaults(fn=cmd_run_set)
+
+    p = sub.add_parser("summary", help="results.csv as a Markdown table")
+    p.add_argument("--results", default=str(DEFAULT_RESULTS))
+    p.set_defaults(fn=cmd_summary)
 
     p = sub.add_parser("ci", help=f"fast check: {CI_FILE} {CI_ION} NEB against results.csv")
     p.add_argument("--results", default=str(DEFAULT_RESULTS))
