@@ -1018,7 +1018,8 @@ def cmd_run_set(args):
         t0 = time.time()
         res, verdict, srows, errs = None, "", [], []
         try:
-            res = run_neb(path, ref["ion"], args.hopmap, args.images, args.min_image)
+            res = run_neb(path, ref["ion"], args.hopmap, args.images, args.min_image,
+                          steps=args.steps)
         except Exception as e:  # one bad row never stops the set
             errs.append(f"neb skipped: {e}")
             print(f"  neb failed: {e}", file=sys.stderr)
@@ -1163,6 +1164,7 @@ def main(argv=None):
                    "comma-separated; run in that order")
     p.add_argument("--force", action="store_true", help="rerun rows already in --out")
     p.add_argument("--images", type=int, default=5)
+    p.add_argument("--steps", type=int, default=NEB_STEPS, help="NEB step cap")
     p.add_argument("--no-sites", action="store_true", help="skip the site check")
     p.add_argument("--refresh-hopmap", action="store_true",
                    help="only recompute the hopmap columns of the rows already in --out")
