@@ -947,6 +947,22 @@ def row_from(res: NebResult | None, verdict, site_rows, wall, err_notes, path, i
         r["lowest_site_verdict"] = verdict
         r["site_energies"] = "; ".join(_site_text(s) for s in site_rows)
     r["notes"] = "; ".join(notes)
+    return sanity_notes(r)
+
+
+BROKEN_BAND_EV = 3.0
+BROKEN_NOTE = "barrier above 3 eV: the band broke down, this is not a barrier"
+
+
+def sanity_notes(r):
+    """Notes that follow from the numbers of a row alone."""
+    notes = [n for n in r["notes"].split("; ") if n] if r.get("notes") else []
+    try:
+        if float(r["barrier_ev"]) > BROKEN_BAND_EV and BROKEN_NOTE not in notes:
+            notes.append(BROKEN_NOTE)
+    except (KeyError, ValueError):
+        pass
+    r["notes"] = "; ".join(notes)
     return r
 
 
@@ -987,6 +1003,7 @@ def refresh_hopmap(rows, refs, out, table, binary):
         r.update({"pass": ps.description, "hopmap_barrier_ev": fmt(ps.hopmap_barrier_ev),
                   "hopmap_pass_barrier_ev": fmt(ps.hopmap_pass_barrier_ev),
                   "hopmap_dimension": ps.dimension})
+        sanity_notes(r)
         print(f"{r['file']} {r['ion']}: hopmap columns refreshed")
     write_table(out, table)
     return 0
