@@ -234,7 +234,7 @@ def print_rows(rows):
 
 
 # ---------------------------------------------------------------------------------------------
-# the library-level sums written by tests/bond_valence.rs (optional)
+# the library-level sums written by crates/hopmap/tests/bond_valence.rs (optional)
 
 
 def build(entry):

@@ -1,12 +1,12 @@
 #!/usr/bin/env python3
 """Derives hopmap's compact bond-valence tables from their sources.
 
-1. data/bvparm2013.tsv from the IUCr accumulated table of bond-valence parameters
+1. crates/hopmap/data/bvparm2013.tsv from the IUCr accumulated table of bond-valence parameters
    (I. D. Brown, bvparm2013.cif, version 2013-09-11 with the 2014 addition), read with gemmi
    (a general-purpose crystallography library on PyPI). The copyright notice travels verbatim at
    the top, the file's _audit_update_record is copied and a line is appended that records what
    was changed, as the notice asks.
-2. data/okeeffe_brese_1991.tsv: the per-element size (r, A) and softness (c) parameters of
+2. crates/hopmap/data/okeeffe_brese_1991.tsv: the per-element size (r, A) and softness (c) parameters of
    O'Keeffe & Brese, J. Am. Chem. Soc. 113 (1991) 3226, as copied in pymatgen
    (pymatgen/core/bvparam_1991.yaml). These feed the flagged fallback estimate of R0.
 
@@ -72,7 +72,7 @@ def main():
     for r in rows:
         details = r.str(7) if r[7] not in ("?", ".") else ""
         out.append("bv\t" + "\t".join([r.str(0), r[1], r.str(2), r[3], r[4], r[5], r.str(6), details.strip()]))
-    path = os.path.join(root, "data", "bvparm2013.tsv")
+    path = os.path.join(root, "crates", "hopmap", "data", "bvparm2013.tsv")
     with open(path + ".tmp", "w", encoding="utf-8") as f:
         f.write("\n".join(out) + "\n")
     os.replace(path + ".tmp", path)
@@ -81,7 +81,7 @@ def main():
     # O'Keeffe-Brese element parameters, pymatgen's copy
     yaml_path = os.path.join(os.path.dirname(pymatgen.core.__file__), "bvparam_1991.yaml")
     ob = loadfn(yaml_path)
-    path = os.path.join(root, "data", "okeeffe_brese_1991.tsv")
+    path = os.path.join(root, "crates", "hopmap", "data", "okeeffe_brese_1991.tsv")
     lines = [
         "# Per-element bond-valence size r (A) and softness c of M. O'Keeffe and N. E. Brese,",
         "# J. Am. Chem. Soc. 113 (1991) 3226-3229, used in",

@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Generates data/shannon_radii.tsv: the effective ionic radii of R. D. Shannon, Acta Cryst. A32
+"""Generates crates/hopmap/data/shannon_radii.tsv: the effective ionic radii of R. D. Shannon, Acta Cryst. A32
 (1976) 751-767, as copied in pymatgen's periodic table data (pymatgen/core/periodic_table.json.gz,
 key "Shannon radii", field "ionic_radius"). pymatgen is a general-purpose materials library on
 PyPI. Run from the crate root: python tools/gen_radii.py
@@ -40,7 +40,7 @@ def main():
                     out.append(f"{sym}\t{charge}\t{cn}\t{SPIN[spin]}\t{vals['ionic_radius']}")
                     n += 1
     out[4:4] = skipped
-    path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "data", "shannon_radii.tsv")
+    path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "crates", "hopmap", "data", "shannon_radii.tsv")
     with open(path + ".tmp", "w", encoding="utf-8") as f:
         f.write("\n".join(out) + "\n")
     os.replace(path + ".tmp", path)

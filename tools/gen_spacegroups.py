@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Generates src/spacegroup/table.rs: the 530 Hall settings of the 230 space groups, with their
+"""Generates crates/hopmap/src/spacegroup/table.rs: the 530 Hall settings of the 230 space groups, with their
 full lists of symmetry operations (centring translations included), from spglib's database
 (spglib is a general-purpose symmetry library on PyPI).
 
@@ -9,7 +9,7 @@ the Hall symbol, the Hermann-Mauguin symbols as spglib gives them (setting-speci
 short forms), the setting choice code ("1", "2", "H", "R", "b1", "cab", ...), and every
 operation as 9 rotation integers (row major) and a translation in 24ths of a lattice vector.
 
-Run: python tools/gen_spacegroups.py > src/spacegroup/table.rs && cargo fmt
+Run: python tools/gen_spacegroups.py > crates/hopmap/src/spacegroup/table.rs && cargo fmt
 """
 import sys
 

@@ -1,0 +1,195 @@
+//! `hopmap screen` and `hopmap merge`.
+
+use super::analyse::{ModelArgs, RateArgsCommon};
+use super::{CmdResult, Failure, GlobalOpts};
+use crate::screen::{self, ScreenRow, Shard, TableFormat};
+use clap::Args;
+use hopmap::substitute::Substitution;
+use indicatif::{ProgressBar, ProgressStyle};
+use std::path::{Path, PathBuf};
+
+#[derive(Args, Debug)]
+pub struct ScreenArgs {
+    /// Structure files or folders (searched recursively for .cif, POSCAR, .vasp, .xyz)
+    #[arg(required = true)]
+    pub inputs: Vec<PathBuf>,
+    /// Output table: .csv, or .jsonl for JSON lines; an existing file is resumed
+    #[arg(long, value_name = "FILE")]
+    pub out: PathBuf,
+    /// Mobile ions to screen, comma-separated (one row per structure and ion)
+    #[arg(long, value_delimiter = ',', default_value = "Li")]
+    pub ion: Vec<String>,
+    /// Take the K-th of N deterministic slices of the file list (for job arrays), e.g. 3/10
+    #[arg(long, value_name = "K/N")]
+    pub shard: Option<Shard>,
+    /// Replace a species by a mix on the same sites, e.g. 'Nb=Nb:0.75,W:0.25' (repeatable)
+    #[arg(long, value_name = "SPEC")]
+    pub substitute: Vec<Substitution>,
+    /// Grid spacing in A (default: 0.1 A, coarser for cells above 1000 A^3)
+    #[arg(long, value_name = "A")]
+    pub spacing: Option<f64>,
+    /// Parameter file (TOML), e.g. from `hopmap calibrate`
+    #[arg(long, value_name = "TOML")]
+    pub params: Option<PathBuf>,
+    /// Oxidation states to use where they apply, by element or site label, e.g. 'Co=3.5'
+    /// (an element a structure lacks is noted in its row, not an error)
+    #[arg(long, value_name = "KEY=STATE,...")]
+    pub oxidation: Option<String>,
+    /// Keep the cell of P 1 inputs instead of rewriting them in the conventional cell
+    #[arg(long)]
+    pub keep_cell: bool,
+}
+
+#[derive(Args, Debug)]
+pub struct MergeArgs {
+    /// Shard outputs to join (.csv or .jsonl)
+    #[arg(required = true)]
+    pub inputs: Vec<PathBuf>,
+    /// Merged table (.csv or .jsonl)
+    #[arg(long, value_name = "FILE")]
+    pub out: PathBuf,
+}
+
+/// One screening row: read, substitute, analyse; any failure becomes an error row.
+pub fn screen_one(
+    path: &Path,
+    ion: &str,
+    keep_cell: bool,
+    subs: &[Substitution],
+    opts_for: &dyn Fn(&str) -> Result<hopmap::analysis::AnalysisOptions, String>,
+) -> ScreenRow {
+    let file = path.display().to_string();
+    let mut row = ScreenRow {
+        file: file.clone(),
+        ion: ion.to_string(),
+        ..Default::default()
+    };
+    let result = (|| -> Result<(), String> {
+        let mut s =
+            hopmap::read::read_structure_with(path, None, keep_cell).map_err(|e| e.to_string())?;
+        for sub in subs {
+            s = hopmap::substitute::apply(&s, sub)?;
+        }
+        let (_, formula) = s.formula_and_z();
+        row.formula = formula;
+        row.space_group = s.symmetry.hm_symbol.clone().unwrap_or_default();
+        row.space_group_number = s.symmetry.number;
+        let opts = opts_for(ion)?;
+        let a = hopmap::analysis::analyse(&s, &opts).map_err(|e| e.to_string())?;
+        let p = &a.percolation;
+        row.dimension = Some(p.dimension);
+        row.barrier_1d_ev = p.threshold(1).map(|t| t.barrier as f64);
+        row.barrier_2d_ev = p.threshold(2).map(|t| t.barrier as f64);
+        row.barrier_3d_ev = p.threshold(3).map(|t| t.barrier as f64);
+        row.direction = hopmap::analysis::distinct_thresholds(p)
+            .into_iter()
+            .next()
+            .map(|t| match &t.channel.span {
+                hopmap::percolation::Span::Line { direction, .. } => {
+                    format!("[{}]", hopmap::percolation::format_indices(*direction))
+                }
+                hopmap::percolation::Span::Plane { normal, .. } => {
+                    format!("({})", hopmap::percolation::format_indices(*normal))
+                }
+                _ => String::new(),
+            })
+            .unwrap_or_default();
+        row.sites = a.network.as_ref().map(|n| n.sites.len());
+        if let Some(v) = &a.valence {
+            row.valence_verdict = v.verdict.word().to_string();
+            row.gii_vu = Some(v.gii);
+        }
+        row.warnings = a.warnings.clone();
+        Ok(())
+    })();
+    if let Err(e) = result {
+        row.error = e;
+    }
+    row
+}
+
+pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
+    let files =
+        screen::collect_files(&a.inputs).map_err(|e| format!("cannot list the inputs: {e}"))?;
+    if files.is_empty() {
+        return Err(Failure::Usage(
+            "no structure files found in the inputs".into(),
+        ));
+    }
+    for ion in &a.ion {
+        super::analyse::parse_ion(ion)?;
+    }
+    let jobs = screen::shard_jobs(&files, &a.ion, a.shard);
+    let base_rate = RateArgsCommon::default();
+    let quiet = GlobalOpts {
+        quiet: true,
+        verbose: false,
+    };
+    let spacing = a.spacing;
+    let params = a.params.clone();
+    let oxidation = a.oxidation.clone();
+    let keep_cell = a.keep_cell;
+    let opts_for = move |ion: &str| -> Result<hopmap::analysis::AnalysisOptions, String> {
+        let m = ModelArgs {
+            ion: ion.to_string(),
+            spacing,
+            params: params.clone(),
+            exclude: vec![],
+            oxidation: oxidation.clone(),
+        };
+        super::analyse::options(&quiet, &m, &base_rate).map_err(|e| match e {
+            Failure::Analysis(s) | Failure::Usage(s) => s,
+        })
+    };
+    let bar = if g.quiet {
+        ProgressBar::hidden()
+    } else {
+        let b = ProgressBar::new(jobs.len() as u64);
+        b.set_style(
+            ProgressStyle::with_template(
+                "{bar:40} {pos}/{len} structures x ions  {elapsed} (eta {eta})",
+            )
+            .unwrap(),
+        );
+        b
+    };
+    let subs = a.substitute.clone();
+    let (summary, rows) = screen::run_batch(
+        &jobs,
+        &a.out,
+        |p, ion| screen_one(p, ion, keep_cell, &subs, &opts_for),
+        &|| bar.inc(1),
+    )
+    .map_err(|e| format!("cannot write {}: {e}", a.out.display()))?;
+    bar.finish_and_clear();
+    out!("{}", screen::sorted_view(&rows));
+    if !g.quiet {
+        eprintln!(
+            "{} jobs: {} computed, {} already in {} (skipped), {} error rows; table written to {}",
+            summary.jobs,
+            summary.computed,
+            summary.skipped_done,
+            a.out.display(),
+            summary.errors,
+            a.out.display()
+        );
+    }
+    Ok(())
+}
+
+pub fn run_merge(g: &GlobalOpts, a: MergeArgs) -> CmdResult {
+    let rows = screen::merge_tables(&a.inputs)
+        .map_err(|e| format!("cannot read the shard outputs: {e}"))?;
+    let text = screen::render_table(&rows, TableFormat::from_path(&a.out));
+    super::write_atomic(&a.out, text.as_bytes())
+        .map_err(|e| format!("cannot write {}: {e}", a.out.display()))?;
+    if !g.quiet {
+        eprintln!(
+            "{} rows from {} files merged into {}",
+            rows.len(),
+            a.inputs.len(),
+            a.out.display()
+        );
+    }
+    Ok(())
+}

@@ -1,0 +1,194 @@
+//! Writes a structure as a CIF in space group P 1: the full cell, every site listed.
+//!
+//! The output uses the core CIF dictionary names (`_space_group_symop_operation_xyz`,
+//! `_atom_site_*`, `_atom_type_*`). Each occupant of a site is one `_atom_site` row, so a mixed
+//! site (Nb/W, Li/Ti) appears as several rows at the same position, each with its own
+//! occupancy. Type symbols carry the formal charge when it is known (`Nb5+`, `O2-`) and the
+//! `_atom_type` loop gives the matching `_atom_type_oxidation_number`; with no charge known the
+//! type symbol is the element and the oxidation-number column is left out. Labels are kept when
+//! they are unique in the cell and numbered (`Li1_2`) when several images share one.
+
+use hopmap::structure::{Species, Structure};
+use std::collections::HashSet;
+use std::fmt::Write as _;
+use std::path::Path;
+
+/// The CIF text of `s` in P 1.
+pub fn to_cif_p1(s: &Structure) -> String {
+    let mut out = String::new();
+    let p = s.lattice.parameters();
+    let _ = writeln!(
+        out,
+        "# written by hopmap {}: the full cell in P 1",
+        env!("CARGO_PKG_VERSION")
+    );
+    let _ = writeln!(out, "data_{}", block_name(&s.name));
+    let _ = writeln!(out, "_cell_length_a    {:.6}", p.a);
+    let _ = writeln!(out, "_cell_length_b    {:.6}", p.b);
+    let _ = writeln!(out, "_cell_length_c    {:.6}", p.c);
+    let _ = writeln!(out, "_cell_angle_alpha {:.6}", p.alpha);
+    let _ = writeln!(out, "_cell_angle_beta  {:.6}", p.beta);
+    let _ = writeln!(out, "_cell_angle_gamma {:.6}", p.gamma);
+    let _ = writeln!(out, "_cell_volume      {:.6}", s.volume());
+    let _ = writeln!(out, "_space_group_name_H-M_alt 'P 1'");
+    let _ = writeln!(out, "_space_group_name_Hall 'P 1'");
+    let _ = writeln!(out, "_space_group_IT_number 1");
+    out.push_str("loop_\n_space_group_symop_id\n_space_group_symop_operation_xyz\n1 x,y,z\n");
+
+    // atom types in order of first appearance
+    let mut types: Vec<Species> = Vec::new();
+    for site in &s.sites {
+        for o in &site.occupants {
+            if !types.contains(&o.species) {
+                types.push(o.species.clone());
+            }
+        }
+    }
+    let any_charge = types.iter().any(|t| t.oxidation.is_some());
+    out.push_str("loop_\n_atom_type_symbol\n");
+    if any_charge {
+        out.push_str("_atom_type_oxidation_number\n");
+    }
+    for t in &types {
+        if any_charge {
+            let q = t.oxidation.map(format_number).unwrap_or_else(|| "?".into());
+            let _ = writeln!(out, "{} {}", t.name(), q);
+        } else {
+            let _ = writeln!(out, "{}", t.name());
+        }
+    }
+
+    out.push_str(
+        "loop_\n_atom_site_label\n_atom_site_type_symbol\n_atom_site_fract_x\n\
+         _atom_site_fract_y\n_atom_site_fract_z\n_atom_site_occupancy\n",
+    );
+    let labels = unique_labels(s);
+    let mut k = 0;
+    for site in &s.sites {
+        let f = site.frac.wrapped().0;
+        for o in &site.occupants {
+            let _ = writeln!(
+                out,
+                "{} {} {:.6} {:.6} {:.6} {}",
+                labels[k],
+                o.species.name(),
+                f.x,
+                f.y,
+                f.z,
+                format_number(o.occupancy)
+            );
+            k += 1;
+        }
+    }
+    out
+}
+
+/// Writes the P 1 CIF of `s` to `path` through a temporary file in the same directory, renamed
+/// into place, so that a failed write never leaves a partial file.
+pub fn write_cif_p1(path: impl AsRef<Path>, s: &Structure) -> std::io::Result<()> {
+    let path = path.as_ref();
+    let dir = path
+        .parent()
+        .filter(|d| !d.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    let stem = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "structure.cif".into());
+    let tmp = dir.join(format!(".{stem}.{}.tmp", std::process::id()));
+    std::fs::write(&tmp, to_cif_p1(s))?;
+    std::fs::rename(&tmp, path).inspect_err(|_| {
+        let _ = std::fs::remove_file(&tmp);
+    })
+}
+
+/// One label per `_atom_site` row, in the order of [`to_cif_p1`]: the occupant label when no
+/// other row uses it, otherwise `label_n` with n counting that label's rows (1, 2, ...).
+/// Characters that would break a CIF value (white space, quotes) become `_`.
+fn unique_labels(s: &Structure) -> Vec<String> {
+    let raw: Vec<String> = s
+        .sites
+        .iter()
+        .flat_map(|site| {
+            site.occupants.iter().map(|o| {
+                let l: String = o
+                    .label
+                    .chars()
+                    .map(|c| {
+                        if c.is_whitespace() || c == '\'' || c == '"' {
+                            '_'
+                        } else {
+                            c
+                        }
+                    })
+                    .collect();
+                if l.is_empty() || l.starts_with(['_', '#', '$', ';', '[', ']']) {
+                    format!("{}{}", o.species.element.symbol(), l)
+                } else {
+                    l
+                }
+            })
+        })
+        .collect();
+    let mut total: std::collections::HashMap<&str, usize> = Default::default();
+    for l in &raw {
+        *total.entry(l.as_str()).or_insert(0) += 1;
+    }
+    let mut used: HashSet<String> = HashSet::new();
+    let mut seen: std::collections::HashMap<&str, usize> = Default::default();
+    let mut out = Vec::with_capacity(raw.len());
+    for l in &raw {
+        let mut cand = if total[l.as_str()] == 1 {
+            l.clone()
+        } else {
+            let n = seen.entry(l.as_str()).or_insert(0);
+            *n += 1;
+            format!("{l}_{n}")
+        };
+        while used.contains(&cand) {
+            cand.push('x');
+        }
+        used.insert(cand.clone());
+        out.push(cand);
+    }
+    out
+}
+
+/// A number without trailing zeros: 1, 0.5, 3.5, 0.333333.
+fn format_number(v: f64) -> String {
+    if (v - v.round()).abs() < 1e-9 {
+        format!("{}", v.round() as i64)
+    } else {
+        let s = format!("{v:.6}");
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    }
+}
+
+/// A data block name: no white space, not empty.
+fn block_name(name: &str) -> String {
+    let n: String = name
+        .chars()
+        .map(|c| if c.is_whitespace() { '_' } else { c })
+        .collect();
+    if n.is_empty() { "structure".into() } else { n }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn numbers_lose_trailing_zeros() {
+        assert_eq!(format_number(1.0), "1");
+        assert_eq!(format_number(-2.0), "-2");
+        assert_eq!(format_number(0.5), "0.5");
+        assert_eq!(format_number(3.5), "3.5");
+        assert_eq!(format_number(1.0 / 3.0), "0.333333");
+    }
+
+    #[test]
+    fn block_names_have_no_spaces() {
+        assert_eq!(block_name("Li Fe P O4"), "Li_Fe_P_O4");
+        assert_eq!(block_name(""), "structure");
+    }
+}

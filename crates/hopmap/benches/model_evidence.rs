@@ -1,0 +1,488 @@
+//! The evidence for the model's knobs: every row of the reference set
+//! (structures/reference/references.csv) scored against its published barrier range, with the
+//! knobs fitted leave-one-family-out, beside the oracle's barriers (tools/oracle/results.csv,
+//! a universal machine-learned potential, when present).
+//!
+//! `cargo bench --bench model_evidence` prints, for the shipped default knobs: each row's
+//! topology check, barrier, published range, errors, oracle barrier and whether the lowest point
+//! of the first network is a site the ion occupies; then the mean absolute errors with `d0_ev`
+//! fitted on all rows and leave-one-family-out (for each family, `d0_ev` is fitted on the other
+//! families only, and the family's rows predicted with it).
+//!
+//! With `HOPMAP_SWEEP` set it also scores a grid of the other knobs, nested the same way: for each
+//! left-out family the setting and `d0_ev` that best fit the other families are chosen, so the
+//! leave-one-family-out error includes the choice of the setting. Format (any subset):
+//! `HOPMAP_SWEEP="screening_factor=0.75,1.0;d0_length_exponent=0,2;charge_shell_exponent=0;mobile_charge_scale=0"`.
+//! `HOPMAP_SWEEP_SPACING` (A, default 0.2) sets the grid of the sweep; the default-knob table uses
+//! the analysis grid (0.15 A above 500 A^3).
+//!
+//! The fit minimises the squared distance to the published ranges (zero inside a range) plus a
+//! tenth of the squared distance to the mid-points, so that a range is preferred but the fit is
+//! still determined when every row lies inside its range.
+
+use hopmap::analysis::{self, AnalysisOptions};
+use hopmap::bv::model::ModelKnobs;
+use hopmap::calibrate::{combine, coulomb_part, morse_part};
+use hopmap::element::Element;
+use hopmap::grid::Grid;
+use hopmap::percolation::{self, Percolation};
+use hopmap::scoring::{self, ReferenceRow};
+use hopmap::structure::Structure;
+use rayon::prelude::*;
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+/// Penalty (eV) for a row whose network does not open below the cap.
+const MISSING_EV: f64 = 1.0;
+/// Lowest point of a network counted as an occupied site when within this of the occupied level.
+const SITE_TOLERANCE_EV: f32 = 0.02;
+
+fn folder() -> PathBuf {
+    Path::new(concat!(env!("CARGO_MANIFEST_DIR"), "/../..")).join("structures/reference")
+}
+
+/// Barrier per row from the oracle's results table, when present: (file, ion) -> eV.
+fn oracle_barriers() -> BTreeMap<(String, String), f64> {
+    let path =
+        Path::new(concat!(env!("CARGO_MANIFEST_DIR"), "/../..")).join("tools/oracle/results.csv");
+    let mut out = BTreeMap::new();
+    let Ok(mut r) = csv::ReaderBuilder::new()
+        .comment(Some(b'#'))
+        .flexible(true)
+        .from_path(&path)
+    else {
+        return out;
+    };
+    let Ok(h) = r.headers().cloned() else {
+        return out;
+    };
+    let col = |n: &str| h.iter().position(|x| x == n);
+    let (Some(cf), Some(ci), Some(cb)) = (col("file"), col("ion"), col("barrier_ev")) else {
+        return out;
+    };
+    for rec in r.records().flatten() {
+        if let (Some(f), Some(i), Some(b)) = (rec.get(cf), rec.get(ci), rec.get(cb))
+            && let Ok(b) = b.parse::<f64>()
+        {
+            let name = Path::new(f)
+                .file_name()
+                .map(|x| x.to_string_lossy().to_string())
+                .unwrap_or_default();
+            out.insert((name, i.to_string()), b);
+        }
+    }
+    out
+}
+
+/// What one model setting gives for one row.
+#[derive(Debug, Clone, Copy)]
+struct Result1 {
+    barrier: Option<f64>,
+    topology_ok: bool,
+    /// None: the host holds no ion (nothing to check).
+    site_ok: Option<bool>,
+}
+
+fn outcome(s: &Structure, row: &ReferenceRow, p: &Percolation) -> Result1 {
+    let barrier = p.threshold(row.dimension).map(|t| t.barrier as f64);
+    let topology_ok = scoring::topology_matches(s, p, row.dimension, row.direction);
+    let site_ok = p.thresholds.iter().flatten().next().and_then(|t| {
+        t.marked_lowest
+            .map(|m| m - t.channel.lowest <= SITE_TOLERANCE_EV)
+    });
+    Result1 {
+        barrier,
+        topology_ok,
+        site_ok,
+    }
+}
+
+fn percolate(e: &Grid, s: &Structure, ion: Element, cap: f64) -> Percolation {
+    let marks = analysis::occupied_wells(e, &analysis::mobile_sites(s, ion));
+    percolation::percolate_marked(e, cap as f32, &marks)
+}
+
+/// One discrete setting of the knobs other than `d0_ev`.
+#[derive(Debug, Clone)]
+struct Setting {
+    names: Vec<(String, f64)>,
+}
+
+impl Setting {
+    fn apply(&self, k: &mut ModelKnobs) {
+        for (n, v) in &self.names {
+            match n.as_str() {
+                "screening_factor" => k.screening_factor = *v,
+                "d0_length_exponent" => k.d0_length_exponent = *v,
+                "charge_shell_exponent" => k.charge_shell_exponent = *v,
+                "mobile_charge_scale" => k.mobile_charge_scale = *v,
+                "mobile_excluded_nearest" => k.mobile_excluded_nearest = *v as usize,
+                "vacancy_share_threshold" => k.vacancy_share_threshold = *v,
+                "softness_transfer" => k.softness_transfer = *v != 0.0,
+                other => panic!("HOPMAP_SWEEP: unknown knob '{other}'"),
+            }
+        }
+    }
+    fn label(&self) -> String {
+        self.names
+            .iter()
+            .map(|(n, v)| format!("{n}={v}"))
+            .collect::<Vec<_>>()
+            .join(" ")
+    }
+}
+
+fn parse_sweep(text: &str) -> Vec<Setting> {
+    let mut axes: Vec<(String, Vec<f64>)> = Vec::new();
+    for part in text.split(';').filter(|p| !p.trim().is_empty()) {
+        let (n, vs) = part.split_once('=').expect("HOPMAP_SWEEP: knob=values");
+        let vs: Vec<f64> = vs
+            .split(',')
+            .map(|v| v.trim().parse().expect("HOPMAP_SWEEP: a number"))
+            .collect();
+        axes.push((n.trim().to_string(), vs));
+    }
+    let mut out = vec![Setting { names: vec![] }];
+    for (n, vs) in axes {
+        let mut next = Vec::new();
+        for s in &out {
+            for v in &vs {
+                let mut t = s.clone();
+                t.names.push((n.clone(), *v));
+                next.push(t);
+            }
+        }
+        out = next;
+    }
+    out
+}
+
+fn d0_values() -> Vec<f64> {
+    (0..=16).map(|i| 0.06 + 0.03 * i as f64).collect()
+}
+
+/// Results of every setting and every `d0_ev` for one row: `[setting][d0]`.
+fn tabulate(
+    s: &Structure,
+    row: &ReferenceRow,
+    settings: &[Setting],
+    spacing: Option<f64>,
+) -> Vec<Vec<Result1>> {
+    let mut opts = AnalysisOptions::new(row.ion);
+    opts.spacing_a = spacing;
+    let cap = opts.knobs.energy_cap_ev;
+    let mut morse_cache: Vec<(String, Grid)> = Vec::new();
+    settings
+        .iter()
+        .map(|set| {
+            let mut o = opts.clone();
+            set.apply(&mut o.knobs);
+            let mkey = format!(
+                "{} {}",
+                o.knobs.d0_length_exponent, o.knobs.softness_transfer
+            );
+            let morse = match morse_cache.iter().find(|(k, _)| *k == mkey) {
+                Some((_, g)) => g.clone(),
+                None => {
+                    let g = morse_part(s, &o).expect("morse part");
+                    morse_cache.push((mkey, g.clone()));
+                    g
+                }
+            };
+            let coulomb = coulomb_part(s, &o).expect("coulomb part");
+            d0_values()
+                .par_iter()
+                .map(|&d0| {
+                    let e = combine(&morse, &coulomb, d0, cap);
+                    outcome(s, row, &percolate(&e, s, row.ion, cap))
+                })
+                .collect()
+        })
+        .collect()
+}
+
+fn loss(r: &Result1, row: &ReferenceRow) -> f64 {
+    let Some((lo, hi)) = row.range_ev else {
+        return 0.0;
+    };
+    match r.barrier {
+        Some(b) => {
+            let (out, mid) = scoring::range_error(b, (lo, hi));
+            out * out + 0.1 * mid * mid
+        }
+        None => MISSING_EV * MISSING_EV,
+    }
+}
+
+/// Best (setting, d0 index) over the rows for which `use_row` holds.
+fn fit(
+    tables: &[Vec<Vec<Result1>>],
+    rows: &[ReferenceRow],
+    use_row: &dyn Fn(usize) -> bool,
+) -> (usize, usize, f64) {
+    let nset = tables[0].len();
+    let nd = tables[0][0].len();
+    let mut best = (0, 0, f64::INFINITY);
+    for si in 0..nset {
+        for di in 0..nd {
+            let l: f64 = (0..rows.len())
+                .filter(|&k| use_row(k))
+                .map(|k| loss(&tables[k][si][di], &rows[k]))
+                .sum();
+            if l < best.2 {
+                best = (si, di, l);
+            }
+        }
+    }
+    best
+}
+
+struct Loaded {
+    row: ReferenceRow,
+    structure: Structure,
+}
+
+fn load() -> Vec<Loaded> {
+    let rows = scoring::read_reference_rows(&folder().join("references.csv"))
+        .unwrap_or_else(|e| panic!("{e}"));
+    rows.into_iter()
+        .map(|row| {
+            let s = hopmap::read::read_structure(&folder().join(&row.file), None)
+                .unwrap_or_else(|e| panic!("{e}"));
+            let (s, _) = analysis::with_oxidation_states(&s, &AnalysisOptions::new(row.ion).table)
+                .unwrap_or_else(|e| panic!("{}: {e}", row.file));
+            Loaded { row, structure: s }
+        })
+        .collect()
+}
+
+fn family(r: &ReferenceRow) -> String {
+    if r.family.is_empty() {
+        r.file.clone()
+    } else {
+        r.family.clone()
+    }
+}
+
+fn summarise(
+    title: &str,
+    data: &[Loaded],
+    tables: &[Vec<Vec<Result1>>],
+    settings: &[Setting],
+    oracle: &BTreeMap<(String, String), f64>,
+    print_rows: bool,
+) {
+    let rows: Vec<ReferenceRow> = data.iter().map(|d| d.row.clone()).collect();
+    let d0s = d0_values();
+    let (bs, bd, _) = fit(tables, &rows, &|_| true);
+    // leave one family out: the setting and d0 chosen without the family
+    let families: Vec<String> = {
+        let mut f: Vec<String> = rows.iter().map(family).collect();
+        f.sort();
+        f.dedup();
+        f
+    };
+    let mut lofo: Vec<Option<(usize, usize)>> = vec![None; rows.len()];
+    for fam in &families {
+        let (si, di, _) = fit(tables, &rows, &|k| family(&rows[k]) != *fam);
+        for k in 0..rows.len() {
+            if family(&rows[k]) == *fam {
+                lofo[k] = Some((si, di));
+            }
+        }
+    }
+    println!("\n== {title}");
+    println!(
+        "fitted on all rows: {} d0_ev={:.2} eV",
+        settings[bs].label(),
+        d0s[bd]
+    );
+    if print_rows {
+        println!(
+            "{:<30} {:>3} {:<15} {:>4} {:>5} {:>11} {:>7} {:>7} {:>6} {:>6} {:>7} {:>5}",
+            "structure",
+            "ion",
+            "family",
+            "dim",
+            "topo",
+            "range eV",
+            "fit eV",
+            "LOFO eV",
+            "out",
+            "mid",
+            "oracle",
+            "site"
+        );
+    }
+    let (mut fit_out, mut fit_mid, mut lo_out, mut lo_mid) = (vec![], vec![], vec![], vec![]);
+    let (mut topo_ok, mut site_ok, mut site_n) = (0, 0, 0);
+    let mut oracle_pairs = Vec::new();
+    let mut published_pairs = Vec::new();
+    for (k, d) in data.iter().enumerate() {
+        let r = &d.row;
+        let at_fit = tables[k][bs][bd];
+        let (ls, ld) = lofo[k].unwrap();
+        let at_lofo = tables[k][ls][ld];
+        if at_fit.topology_ok {
+            topo_ok += 1;
+        }
+        if let Some(ok) = at_fit.site_ok {
+            site_n += 1;
+            if ok {
+                site_ok += 1;
+            }
+        }
+        let mut errs = ("-".to_string(), "-".to_string());
+        if let Some(range) = r.range_ev {
+            let e_fit = at_fit
+                .barrier
+                .map(|b| scoring::range_error(b, range))
+                .unwrap_or((MISSING_EV, MISSING_EV));
+            let e_lo = at_lofo
+                .barrier
+                .map(|b| scoring::range_error(b, range))
+                .unwrap_or((MISSING_EV, MISSING_EV));
+            fit_out.push(e_fit.0);
+            fit_mid.push(e_fit.1);
+            lo_out.push(e_lo.0);
+            lo_mid.push(e_lo.1);
+            errs = (format!("{:.2}", e_lo.0), format!("{:.2}", e_lo.1));
+            if let Some(b) = at_fit.barrier {
+                published_pairs.push((b, 0.5 * (range.0 + range.1)));
+            }
+        }
+        let name = Path::new(&r.file)
+            .file_name()
+            .unwrap()
+            .to_string_lossy()
+            .to_string();
+        let orc = oracle
+            .get(&(name.clone(), r.ion.symbol().to_string()))
+            .copied();
+        if let (Some(o), Some(b)) = (orc, at_fit.barrier) {
+            oracle_pairs.push((b, o));
+        }
+        if print_rows {
+            println!(
+                "{:<30} {:>3} {:<15} {:>4} {:>5} {:>11} {:>7} {:>7} {:>6} {:>6} {:>7} {:>5}",
+                name.trim_end_matches(".cif"),
+                r.ion.symbol(),
+                family(r),
+                format!("{}D", r.dimension),
+                if at_fit.topology_ok { "ok" } else { "WRONG" },
+                r.range_ev
+                    .map(|(a, b)| format!("{a:.2}-{b:.2}"))
+                    .unwrap_or("-".into()),
+                at_fit
+                    .barrier
+                    .map(|b| format!("{b:.2}"))
+                    .unwrap_or("none".into()),
+                at_lofo
+                    .barrier
+                    .map(|b| format!("{b:.2}"))
+                    .unwrap_or("none".into()),
+                errs.0,
+                errs.1,
+                orc.map(|o| format!("{o:.2}")).unwrap_or("-".into()),
+                match at_fit.site_ok {
+                    Some(true) => "real",
+                    Some(false) => "VOID",
+                    None => "-",
+                },
+            );
+        }
+    }
+    let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len().max(1) as f64;
+    println!(
+        "barrier rows {}: MAE to range {:.3} eV (fit) {:.3} eV (leave-one-family-out, {} families); MAE to mid-point {:.3} eV (fit) {:.3} eV (LOFO)",
+        fit_out.len(),
+        mean(&fit_out),
+        mean(&lo_out),
+        families.len(),
+        mean(&fit_mid),
+        mean(&lo_mid)
+    );
+    println!(
+        "topology right on {topo_ok}/{} rows; lowest point of the first network is an occupied site in {site_ok}/{site_n} hosts that hold the ion",
+        rows.len()
+    );
+    println!(
+        "rank correlation (Spearman) with the oracle: {} over {} rows; with the published mid-points: {} over {} rows",
+        scoring::spearman(&oracle_pairs)
+            .map(|x| format!("{x:.2}"))
+            .unwrap_or("-".into()),
+        oracle_pairs.len(),
+        scoring::spearman(&published_pairs)
+            .map(|x| format!("{x:.2}"))
+            .unwrap_or("-".into()),
+        published_pairs.len()
+    );
+}
+
+fn main() {
+    // `cargo bench` passes --bench; nothing else is read from the command line
+    let data = load();
+    let oracle = oracle_barriers();
+    let spacing_for = |s: &Structure| (s.volume() > 500.0).then_some(0.15);
+    // the shipped knobs, d0 refitted leave-one-family-out
+    let base = Setting { names: vec![] };
+    let t = std::time::Instant::now();
+    let tables: Vec<Vec<Vec<Result1>>> = data
+        .iter()
+        .map(|d| {
+            tabulate(
+                &d.structure,
+                &d.row,
+                std::slice::from_ref(&base),
+                spacing_for(&d.structure),
+            )
+        })
+        .collect();
+    summarise(
+        "default knobs (ModelKnobs::default), d0_ev refitted",
+        &data,
+        &tables,
+        std::slice::from_ref(&base),
+        &oracle,
+        true,
+    );
+    println!("({:.1} s)", t.elapsed().as_secs_f64());
+    if let Ok(sweep) = std::env::var("HOPMAP_SWEEP") {
+        let settings = parse_sweep(&sweep);
+        let spacing: f64 = std::env::var("HOPMAP_SWEEP_SPACING")
+            .ok()
+            .and_then(|s| s.parse().ok())
+            .unwrap_or(0.2);
+        let t = std::time::Instant::now();
+        let tables: Vec<Vec<Vec<Result1>>> = data
+            .iter()
+            .map(|d| {
+                eprintln!("  sweep: {} {}", d.row.file, d.row.ion);
+                tabulate(&d.structure, &d.row, &settings, Some(spacing))
+            })
+            .collect();
+        for (si, set) in settings.iter().enumerate() {
+            let one: Vec<Vec<Vec<Result1>>> = tables.iter().map(|t| vec![t[si].clone()]).collect();
+            summarise(
+                &format!("setting {}", set.label()),
+                &data,
+                &one,
+                std::slice::from_ref(set),
+                &oracle,
+                false,
+            );
+        }
+        summarise(
+            &format!(
+                "nested over {} settings (spacing {spacing} A)",
+                settings.len()
+            ),
+            &data,
+            &tables,
+            &settings,
+            &oracle,
+            true,
+        );
+        println!("({:.1} s)", t.elapsed().as_secs_f64());
+    }
+}

@@ -1,0 +1,33 @@
+//! hopmap: where mobile ions can travel through a crystal, and how hard each path is.
+//!
+//! The core of the pipeline, one way: file -> [`cif`] document (the `hopmap-cif` crate) ->
+//! [`structure::Structure`] -> framework and probe ion ([`bv::model`]) -> energy
+//! [`grid::Grid`] ([`landscape`]) -> channels ([`percolation`]) and site network
+//! ([`network`]) -> [`analysis::Analysis`]. Renderers (terminal, JSON, HTML, volumetric files)
+//! live in `hopmap-report`, the command line in `hopmap-cli`. This crate knows nothing of
+//! terminals, output formats or Python. See `ARCHITECTURE.md`.
+
+pub use hopmap_cif as cif;
+pub use hopmap_cif::error;
+
+pub mod analysis;
+pub mod bv;
+pub mod calibrate;
+pub mod capacity;
+pub mod csv_record;
+pub mod element;
+mod element_table;
+pub mod grid;
+pub mod landscape;
+pub mod lattice;
+pub mod neighbours;
+pub mod network;
+pub mod percolation;
+pub mod read;
+pub mod scoring;
+pub mod spacegroup;
+pub mod structure;
+pub mod substitute;
+pub mod symmetry;
+pub mod text;
+pub mod transport;

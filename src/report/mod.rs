@@ -1,8 +1,0 @@
-//! Renderers: the edge of the pipeline. Each takes plain result types and produces text for a
-//! person (terminal), for a program (JSON), or for a report (HTML with inline SVG figures).
-//! Nothing upstream knows these formats exist.
-
-pub mod figures;
-pub mod html;
-pub mod json;
-pub mod terminal;
