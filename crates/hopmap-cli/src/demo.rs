@@ -8,7 +8,6 @@
 
 use hopmap::analysis::{self, Analysis, AnalysisOptions};
 use hopmap::element::Element;
-use hopmap::percolation::{Span, format_indices};
 use hopmap_report::html::{self, esc, sci};
 use hopmap_report::output::write_atomic;
 use rayon::prelude::*;
@@ -159,15 +158,6 @@ pub fn read_embedded(s: &DemoStructure) -> Result<hopmap::structure::Structure, 
     hopmap::read::cif::structure_from_block(block, s.file).map_err(|e| e.to_string())
 }
 
-fn span_short(span: &Span) -> String {
-    match span {
-        Span::Line { direction, .. } => format!("[{}]", format_indices(*direction)),
-        Span::Plane { normal, .. } => format!("({})", format_indices(*normal)),
-        Span::Space { .. } => "3D".into(),
-        Span::Closed => "-".into(),
-    }
-}
-
 /// The comparison numbers of one analysis.
 pub fn summarise(a: &Analysis, report: String, seconds: f64) -> DemoResult {
     let p = &a.percolation;
@@ -183,8 +173,21 @@ pub fn summarise(a: &Analysis, report: String, seconds: f64) -> DemoResult {
         .filter_map(|t| at_rate(t).map(|x| (t, x)))
         .max_by(|x, y| x.1.total_cmp(&y.1));
     let best_direction = best
-        .and_then(|(t, _)| p.threshold(t.dimension))
-        .map(|t| span_short(&t.channel.span))
+        .and_then(|(t, _)| {
+            a.summary
+                .networks
+                .iter()
+                .find(|n| n.dimension == t.dimension)
+        })
+        .map(|n| match n.dimension {
+            3 => "3D".to_string(),
+            _ => n
+                .orientations
+                .iter()
+                .map(|o| o.indices())
+                .collect::<Vec<_>>()
+                .join(" "),
+        })
         .unwrap_or_else(|| "-".into());
     let (capacity_mah_g, capacity_mah_cm3, capacity_is_site_bound) = match &a.capacity {
         Some(c) if c.redox_electrons_per_formula_unit > 0.0 => {

@@ -12,7 +12,8 @@
 
 use super::figures::{self, ReportFigure};
 use hopmap::analysis::{Analysis, ChannelTransport};
-use hopmap::percolation::{Percolation, Span, format_indices};
+use hopmap::percolation::Percolation;
+use hopmap::summary::Orientation;
 use hopmap_plot::svg::escape_xml;
 use std::fmt::Write;
 
@@ -125,100 +126,71 @@ fn ion_name(a: &Analysis) -> String {
     }
 }
 
-fn span_words(span: &Span) -> String {
-    match span {
-        Span::Line { direction, .. } => format!("along [{}]", format_indices(*direction)),
-        Span::Plane { normal, .. } => format!("in the ({}) plane", format_indices(*normal)),
-        Span::Space { .. } => "in all directions".into(),
-        Span::Closed => "closed".into(),
-    }
-}
-
-/// The directions (1D) or planes (2D) of the channels that open at a threshold.
-fn threshold_directions(p: &Percolation, d: u8, energy: f32, span: &Span) -> Vec<String> {
-    let mut dirs = vec![span_words(span)];
-    for f in p
-        .families
-        .iter()
-        .filter(|f| f.dimension == d && (f.onset - energy).abs() < 1e-6)
-    {
-        let w = span_words(&f.span);
-        if !dirs.contains(&w) {
-            dirs.push(w);
-        }
-    }
-    dirs
-}
-
 /// The answer in plain words, e.g. "Li+ can travel through LiFePO4 along one-dimensional
-/// channels in the [010] direction, over a barrier of 0.41 eV; joining the channels into layers
-/// parallel to the (100) plane takes 0.75 eV, and into a three-dimensional network 1.40 eV."
-/// Thresholds reached at the same energy, or within [`hopmap::analysis::CHANNEL_MERGE_EV`], are
-/// told as one (the highest dimension).
+/// channels in the [010] direction, over a barrier of 0.41 ± 0.15 eV; joining the channels into
+/// layers parallel to the (100) plane takes 0.79 eV, and into a three-dimensional network 1.80
+/// eV." The networks are those of `hopmap::summary` (thresholds within
+/// [`hopmap::analysis::CHANNEL_MERGE_EV`] told as one, the highest dimension).
 pub fn answer_sentence(a: &Analysis) -> String {
-    let p = &a.percolation;
     let ion = ion_name(a);
     let formula = a.structure.formula_and_z().1;
-    if p.dimension == 0 {
+    let nets = &a.summary.networks;
+    let Some(first) = nets.first() else {
         return format!(
             "On this model {ion} finds no connected path through {formula} below {:.1} eV (the \
              energy cap): the structure does not conduct {ion}.",
-            p.ceiling
+            a.percolation.ceiling
         );
-    }
-    // Merge thresholds at (nearly) the same energy into the highest one.
-    let ts: Vec<_> = p.thresholds.iter().flatten().collect();
-    let groups = hopmap::analysis::distinct_thresholds(p);
-    let how = |t: &hopmap::percolation::Threshold, first: bool| -> String {
-        let at_once = first && t.dimension > 1 && ts[0].dimension < t.dimension;
-        match &t.channel.span {
-            Span::Line { .. } => {
-                let dirs: Vec<String> = threshold_directions(p, 1, t.energy, &t.channel.span)
-                    .into_iter()
-                    .map(|w| w.trim_start_matches("along ").to_string())
-                    .collect();
-                let (n, s) = if dirs.len() > 1 {
-                    ("directions", dirs.join(", "))
-                } else {
-                    ("direction", dirs.join(""))
-                };
-                format!("along one-dimensional channels in the {s} {n}")
+    };
+    let at_once = !first.folded.is_empty();
+    let how = match first.dimension {
+        1 => {
+            let dirs: Vec<String> = first
+                .orientations
+                .iter()
+                .map(Orientation::indices)
+                .collect();
+            let (n, s) = if dirs.len() > 1 {
+                ("directions", dirs.join(", "))
+            } else {
+                ("direction", dirs.join(""))
+            };
+            format!("along one-dimensional channels in the {s} {n}")
+        }
+        2 => format!(
+            "{}in two-dimensional layers parallel to the {} plane",
+            if at_once { "at once " } else { "" },
+            first
+                .orientations
+                .iter()
+                .map(Orientation::indices)
+                .collect::<Vec<_>>()
+                .join(", ")
+        ),
+        _ => {
+            if at_once {
+                "in all three dimensions at once".into()
+            } else {
+                "in all three dimensions".into()
             }
-            Span::Plane { normal, .. } => format!(
-                "{}in two-dimensional layers parallel to the ({}) plane",
-                if at_once { "at once " } else { "" },
-                format_indices(*normal)
-            ),
-            Span::Space { .. } => {
-                if at_once {
-                    "in all three dimensions at once".into()
-                } else {
-                    "in all three dimensions".into()
-                }
-            }
-            Span::Closed => String::new(),
         }
     };
     let mut s = format!(
-        "{ion} can travel through {formula} {}, over a barrier of {:.2} eV",
-        how(groups[0], true),
-        groups[0].barrier
+        "{ion} can travel through {formula} {how}, over a barrier of {:.2} ± {:.2} eV",
+        first.barrier_ev, first.uncertainty_ev
     );
-    let joins: Vec<(String, f32)> = groups[1..]
+    let joins: Vec<(String, f64)> = nets[1..]
         .iter()
-        .map(|t| match &t.channel.span {
-            Span::Plane { normal, .. } => (
-                format!(
-                    "into layers parallel to the ({}) plane",
-                    format_indices(*normal)
-                ),
-                t.barrier,
+        .map(|n| match (n.dimension, n.orientations.first()) {
+            (2, Some(o)) => (
+                format!("into layers parallel to the {} plane", o.indices()),
+                n.barrier_ev,
             ),
-            _ => ("into a three-dimensional network".to_string(), t.barrier),
+            _ => ("into a three-dimensional network".to_string(), n.barrier_ev),
         })
         .collect();
     if let Some((w, b)) = joins.first() {
-        let what = if groups[0].dimension == 1 {
+        let what = if first.dimension == 1 {
             "channels"
         } else {
             "layers"
@@ -409,7 +381,10 @@ fn channel_table(p: &Percolation, unit: &str, o: &mut String) {
         "accessible fraction of the cell",
     ]));
     for t in p.thresholds.iter().flatten() {
-        let dirs = threshold_directions(p, t.dimension, t.energy, &t.channel.span);
+        let dirs: Vec<String> = hopmap::summary::orientations_at(p, t)
+            .iter()
+            .map(|o| o.words())
+            .collect();
         o.push_str(&row(&[
             td(&format!("{}D", t.dimension)),
             tn(format!("{:.3}", t.energy)),
@@ -438,7 +413,9 @@ fn channel_table(p: &Percolation, unit: &str, o: &mut String) {
         for f in &p.families {
             o.push_str(&row(&[
                 td(&format!("{}D", f.dimension)),
-                td(&esc(&span_words(&f.span))),
+                td(&esc(&Orientation::of(&f.span)
+                    .map(|o| o.words())
+                    .unwrap_or("closed".into()))),
                 tn(format!("{:.3}", f.onset)),
                 tn(format!("{:.3}", f.barrier)),
                 tn(f.components),
@@ -565,64 +542,7 @@ fn sites_section(a: &Analysis, o: &mut String) {
 }
 
 /// Hops shorter than this (A) join split minima of one site; the hop table leaves them out.
-pub const SHORT_HOP_A: f64 = 0.5;
-
-/// A group of symmetry-equivalent hops.
-struct HopGroup {
-    from_orbit: usize,
-    to_orbit: usize,
-    count: usize,
-    length: f64,
-    saddle: f32,
-    forward: f32,
-    backward: f32,
-    opening: Option<f64>,
-    clearance: Option<f64>,
-}
-
-/// Hops up to `level`, grouped: two hops are taken as symmetry-equivalent when they join the
-/// same pair of orbits with the same length (0.01 A) and saddle energy (0.005 eV); a hop read
-/// backwards joins its group with the barriers swapped.
-fn hop_groups(a: &Analysis, level: f32) -> Vec<HopGroup> {
-    let Some(net) = &a.network else {
-        return vec![];
-    };
-    let mut groups: Vec<HopGroup> = Vec::new();
-    for h in net
-        .hops
-        .iter()
-        .filter(|h| h.saddle_energy <= level + 1e-4 && h.length >= SHORT_HOP_A)
-    {
-        let (of, ot) = (net.sites[h.from].orbit, net.sites[h.to].orbit);
-        let (f, t, fw, bw) = if of <= ot {
-            (of, ot, h.barrier_forward, h.barrier_backward)
-        } else {
-            (ot, of, h.barrier_backward, h.barrier_forward)
-        };
-        let found = groups.iter_mut().find(|g| {
-            g.from_orbit == f
-                && g.to_orbit == t
-                && (g.length - h.length).abs() < 0.01
-                && (g.saddle - h.saddle_energy).abs() < 0.005
-        });
-        match found {
-            Some(g) => g.count += 1,
-            None => groups.push(HopGroup {
-                from_orbit: f,
-                to_orbit: t,
-                count: 1,
-                length: h.length,
-                saddle: h.saddle_energy,
-                forward: fw,
-                backward: bw,
-                opening: h.bottleneck.as_ref().map(|b| b.radius),
-                clearance: h.bottleneck.as_ref().map(|b| b.clearance),
-            }),
-        }
-    }
-    groups.sort_by(|x, y| x.saddle.total_cmp(&y.saddle));
-    groups
-}
+pub const SHORT_HOP_A: f64 = hopmap::summary::SHORT_HOP_A;
 
 fn hops_section(a: &Analysis, o: &mut String) {
     let Some(net) = &a.network else {
@@ -636,7 +556,7 @@ fn hops_section(a: &Analysis, o: &mut String) {
         .last()
         .map(|t| t.energy)
         .unwrap_or(f32::NEG_INFINITY);
-    let groups = hop_groups(a, level);
+    let groups = &a.summary.hop_groups;
     let shown: usize = groups.iter().map(|g| g.count).sum();
     let short = net
         .hops
@@ -684,7 +604,7 @@ fn hops_section(a: &Analysis, o: &mut String) {
     ]));
     const MAX: usize = 40;
     for g in groups.iter().take(MAX) {
-        let clear = match g.clearance {
+        let clear = match g.clearance_a {
             Some(c) if c < 0.0 => format!("<span class=\"flag\">{c:+.2}</span>"),
             Some(c) => format!("{c:+.2}"),
             None => "–".into(),
@@ -693,11 +613,11 @@ fn hops_section(a: &Analysis, o: &mut String) {
             td(&format!("S{}", g.from_orbit)),
             td(&format!("S{}", g.to_orbit)),
             tn(g.count),
-            tn(format!("{:.3}", g.length)),
-            tn(format!("{:.3}", g.saddle)),
-            tn(format!("{:.3}", g.forward)),
-            tn(format!("{:.3}", g.backward)),
-            tn(g.opening.map(|r| format!("{r:.2}")).unwrap_or("–".into())),
+            tn(format!("{:.3}", g.length_a)),
+            tn(format!("{:.3}", g.saddle_ev)),
+            tn(format!("{:.3}", g.barrier_forward_ev)),
+            tn(format!("{:.3}", g.barrier_backward_ev)),
+            tn(g.opening_a.map(|r| format!("{r:.2}")).unwrap_or("–".into())),
             tn(clear),
         ]));
     }
@@ -1132,7 +1052,7 @@ pub fn report(a: &Analysis, file: &str) -> String {
         header,
         "<p class=\"meta\">In one line: <code>{}</code>. From <code>{}</code>, hopmap {}, a \
          static bond-valence screen; see the <a href=\"#cautions\">cautions</a>.</p>",
-        esc(&hopmap::analysis::headline(a)),
+        esc(&a.summary.headline),
         esc(file),
         env!("CARGO_PKG_VERSION")
     );

@@ -100,6 +100,7 @@ pub fn structure(s: &Structure, file: &str) -> Value {
 use hopmap::analysis::{Analysis, ChannelTransport};
 use hopmap::bv::ValenceReport;
 use hopmap::percolation::{Percolation, Span, format_indices};
+use hopmap::summary::{Orientation, Summary};
 
 /// The cautions every report carries (science notes, section 7).
 pub const CAUTIONS: &[&str] = &[
@@ -129,19 +130,12 @@ fn channels(p: &Percolation, unit: &str) -> Vec<Value> {
         .iter()
         .flatten()
         .map(|t| {
-            let (mut dirs, span) = span_json(&t.channel.span);
-            for f in p
-                .families
+            let (_, span) = span_json(&t.channel.span);
+            let dirs: Vec<String> = hopmap::summary::orientations_at(p, t)
                 .iter()
-                .filter(|f| f.dimension == t.dimension && (f.onset - t.energy).abs() < 1e-6)
-            {
-                let (d, _) = span_json(&f.span);
-                for x in d {
-                    if !dirs.contains(&x) {
-                        dirs.push(x);
-                    }
-                }
-            }
+                .map(Orientation::indices)
+                .filter(|d| !d.is_empty())
+                .collect();
             let mut m = serde_json::Map::new();
             m.insert("dimension".into(), json!(t.dimension));
             m.insert(
@@ -164,7 +158,7 @@ fn channels(p: &Percolation, unit: &str) -> Vec<Value> {
             if unit == "ev" {
                 m.insert(
                     "merged_with_higher".into(),
-                    json!(hopmap::analysis::merged_with_higher(p, t)),
+                    json!(hopmap::summary::folded_into_higher(p, t)),
                 );
             }
             Value::Object(m)
@@ -184,6 +178,27 @@ fn families(p: &Percolation, unit: &str) -> Vec<Value> {
             m.insert(format!("barrier_{unit}"), json!(round(f.barrier as f64, 4)));
             m.insert("components".into(), json!(f.components));
             Value::Object(m)
+        })
+        .collect()
+}
+
+/// The networks the answer reports (`hopmap::summary`).
+fn networks_json(s: &Summary) -> Vec<Value> {
+    s.networks
+        .iter()
+        .map(|n| {
+            json!({
+                "dimension": n.dimension,
+                "threshold_ev": round(n.threshold_ev, 4),
+                "barrier_ev": round(n.barrier_ev, 4),
+                "barrier_uncertainty_ev": n.uncertainty_ev,
+                "lowest_ev": round(n.lowest_ev, 4),
+                "occupied_level_ev": n.occupied_level_ev.map(|x| round(x, 4)),
+                "directions": n.orientations.iter().map(Orientation::indices).filter(|d| !d.is_empty()).collect::<Vec<_>>(),
+                "components": n.components,
+                "accessible_fraction": round(n.accessible_fraction, 5),
+                "folded_dimensions": n.folded,
+            })
         })
         .collect()
 }
@@ -312,7 +327,23 @@ pub fn paths(a: &Analysis, file: &str) -> Value {
     json!({
         "schema": "hopmap.paths/1",
         "file": file,
-        "answer": hopmap::analysis::headline(a),
+        "answer": a.summary.headline,
+        "networks": networks_json(&a.summary),
+        "hop_groups": a.summary.hop_groups.iter().map(|g| json!({
+            "from_orbit": g.from_orbit,
+            "to_orbit": g.to_orbit,
+            "count": g.count,
+            "length_a": round(g.length_a, 3),
+            "saddle_ev": round(g.saddle_ev, 4),
+            "barrier_forward_ev": round(g.barrier_forward_ev, 4),
+            "barrier_backward_ev": round(g.barrier_backward_ev, 4),
+            "opening_a": g.opening_a.map(|x| round(x, 3)),
+            "clearance_a": g.clearance_a.map(|x| round(x, 3)),
+        })).collect::<Vec<_>>(),
+        "deeper_pocket": a.summary.deeper_pocket.as_ref().map(|d| json!({
+            "depth_ev": round(d.depth_ev, 4),
+            "frac": d.frac.map(|x| round(x, 4)),
+        })),
         "structure": structure(&a.structure, file),
         "ion": {
             "element": a.model.probe.element.symbol(),
@@ -402,7 +433,7 @@ pub fn rate(a: &Analysis, file: &str, particle_um: Option<f64>) -> Value {
     json!({
         "schema": "hopmap.rate/1",
         "file": file,
-        "answer": hopmap::analysis::headline(a),
+        "answer": a.summary.headline,
         "transport": a.transport.iter().map(transport_json).collect::<Vec<_>>(),
         "particle_diameter_um": particle_um,
         "max_c_rate_for_particle": particle_um.and_then(|um| best.and_then(|t| hopmap::transport::max_c_rate_for_particle(t.diffusion_m2_s, t.dimension, um * 1000.0).ok())),

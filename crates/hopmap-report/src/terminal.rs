@@ -90,16 +90,7 @@ pub fn structure(s: &Structure, file: &str) -> String {
 
 use hopmap::analysis::{Analysis, ChannelTransport};
 use hopmap::bv::ValenceReport;
-use hopmap::percolation::{Percolation, Span, format_indices};
-
-fn span_words(span: &Span) -> String {
-    match span {
-        Span::Line { direction, .. } => format!("along [{}]", format_indices(*direction)),
-        Span::Plane { normal, .. } => format!("in the ({}) plane", format_indices(*normal)),
-        Span::Space { .. } => "in all directions".into(),
-        Span::Closed => "closed".into(),
-    }
-}
+use hopmap::percolation::{Percolation, format_indices};
 
 fn channel_table(o: &mut String, p: &Percolation, unit: &str) {
     let _ = writeln!(
@@ -113,17 +104,10 @@ fn channel_table(o: &mut String, p: &Percolation, unit: &str) {
         "accessible"
     );
     for t in p.thresholds.iter().flatten() {
-        let mut dirs = vec![span_words(&t.channel.span)];
-        for f in p
-            .families
+        let dirs: Vec<String> = hopmap::summary::orientations_at(p, t)
             .iter()
-            .filter(|f| f.dimension == t.dimension && (f.onset - t.energy).abs() < 1e-6)
-        {
-            let w = span_words(&f.span);
-            if !dirs.contains(&w) {
-                dirs.push(w);
-            }
-        }
+            .map(|o| o.words())
+            .collect();
         let _ = writeln!(
             o,
             "    {:>3} {:>14.3} {:>12.3} {:<24} {:>10} {:>10.1}%",
@@ -145,7 +129,7 @@ pub fn paths(a: &Analysis, file: &str) -> String {
     let mut o = String::new();
     let (z, formula) = a.structure.formula_and_z();
     let z = hopmap::structure::format_z(z);
-    let _ = writeln!(o, "{}", hopmap::analysis::headline(a));
+    let _ = writeln!(o, "{}", a.summary.headline);
     let _ = writeln!(
         o,
         "  {file}: {formula} (Z = {z}), {}, V = {:.2} A^3",
@@ -448,7 +432,7 @@ fn rate_section(o: &mut String, a: &Analysis, particle_um: Option<f64>) {
 /// `hopmap rate`.
 pub fn rate(a: &Analysis, file: &str, particle_um: Option<f64>) -> String {
     let mut o = String::new();
-    let _ = writeln!(o, "{}", hopmap::analysis::headline(a));
+    let _ = writeln!(o, "{}", a.summary.headline);
     let _ = writeln!(o, "  {file}");
     rate_section(&mut o, a, particle_um);
     let _ = writeln!(o, "\n  {}", hopmap::transport::RATE_CAUTION);

@@ -177,6 +177,8 @@ pub struct Analysis {
     pub warnings: Vec<String>,
     /// Seconds per stage.
     pub timings: Vec<(&'static str, f64)>,
+    /// The interpretation every renderer reads: networks, orientations, hop groups, headline.
+    pub summary: crate::summary::Summary,
 }
 
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -389,8 +391,17 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
         packing: None,
         warnings,
         timings,
+        summary: crate::summary::Summary {
+            ion: opts.ion,
+            networks: vec![],
+            no_path_below_ev: None,
+            hop_groups: vec![],
+            deeper_pocket: None,
+            headline: String::new(),
+        },
     };
     if opts.percolation_only {
+        out.summary = crate::summary::summarise(&out);
         return Ok(out);
     }
 
@@ -449,6 +460,7 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     out.packing = packing;
     out.network = Some(net);
     out.graph_percolation = Some(graph_perc);
+    out.summary = crate::summary::summarise(&out);
     Ok(out)
 }
 
@@ -597,22 +609,14 @@ fn mean_hop_length(net: &Network, level: f32) -> Option<f64> {
 /// channels 2 meV below its 2D layers: that is reported as 2D layers.
 pub const CHANNEL_MERGE_EV: f32 = 0.02;
 
-/// True when a higher-dimensional network opens within [`CHANNEL_MERGE_EV`] of `t`.
-pub fn merged_with_higher(p: &Percolation, t: &percolation::Threshold) -> bool {
-    p.thresholds
-        .iter()
-        .flatten()
-        .any(|u| u.dimension > t.dimension && u.energy - t.energy < CHANNEL_MERGE_EV)
-}
-
 /// The thresholds worth reporting on their own: a dimension reached at the same energy as a
 /// higher one, or within [`CHANNEL_MERGE_EV`] below it (a spinel's 1D, 2D and 3D networks all
-/// open at once), is left to the higher one.
+/// open at once), is left to the higher one (the rule of [`crate::summary::networks`]).
 pub fn distinct_thresholds(p: &Percolation) -> Vec<&percolation::Threshold> {
     p.thresholds
         .iter()
         .flatten()
-        .filter(|t| !merged_with_higher(p, t))
+        .filter(|t| !crate::summary::folded_into_higher(p, t))
         .collect()
 }
 
@@ -785,56 +789,8 @@ fn capacity_estimate(
     }
 }
 
-/// The headline in one sentence, e.g. "Li+: 1D channels along [010], barrier 0.32 eV; 2D at
-/// 0.95 eV; 3D at 1.40 eV". Energies after the first are the thresholds relative to the lowest
-/// site energy of the network (i.e. barriers).
+/// The headline in one sentence, e.g. "Li: 1D channels along [010], barrier 0.41 ± 0.15 eV; 2D
+/// at 0.79 eV; 3D at 1.80 eV" (see [`crate::summary`]).
 pub fn headline(a: &Analysis) -> String {
-    let p = &a.percolation;
-    let ion = a.model.probe.element.symbol();
-    if p.dimension == 0 {
-        return format!(
-            "{ion}: no percolating path below {:.1} eV (the energy cap)",
-            p.ceiling
-        );
-    }
-    let mut parts = Vec::new();
-    for t in distinct_thresholds(p) {
-        // a dimension reached at (nearly) the same energy as a higher one is reported as the
-        // higher one
-        let what = match &t.channel.span {
-            percolation::Span::Line { direction, .. } => {
-                let dirs: Vec<String> = p
-                    .families
-                    .iter()
-                    .filter(|f| f.dimension == 1 && (f.onset - t.energy).abs() < 1e-6)
-                    .map(|f| format!("[{}]", percolation::format_indices(f.span.key())))
-                    .collect();
-                let dirs = if dirs.is_empty() {
-                    format!("[{}]", percolation::format_indices(*direction))
-                } else {
-                    dirs.join(", ")
-                };
-                format!("1D channels along {dirs}")
-            }
-            percolation::Span::Plane { normal, .. } => format!(
-                "2D layers in the ({}) plane",
-                percolation::format_indices(*normal)
-            ),
-            percolation::Span::Space { .. } => "3D network".to_string(),
-            percolation::Span::Closed => continue,
-        };
-        if parts.is_empty() {
-            parts.push(format!(
-                "{what}, barrier {:.2} ± {:.2} eV",
-                t.barrier, BARRIER_UNCERTAINTY_EV
-            ));
-        } else {
-            parts.push(format!(
-                "{} at {:.2} eV",
-                what.split(' ').next().unwrap_or(""),
-                t.barrier
-            ));
-        }
-    }
-    format!("{ion}: {}", parts.join("; "))
+    a.summary.headline.clone()
 }

@@ -28,6 +28,7 @@ pub mod scoring;
 pub mod spacegroup;
 pub mod structure;
 pub mod substitute;
+pub mod summary;
 pub mod symmetry;
 pub mod text;
 pub mod transport;

@@ -81,18 +81,11 @@ pub fn screen_one(
         row.barrier_1d_ev = p.threshold(1).map(|t| t.barrier as f64);
         row.barrier_2d_ev = p.threshold(2).map(|t| t.barrier as f64);
         row.barrier_3d_ev = p.threshold(3).map(|t| t.barrier as f64);
-        row.direction = hopmap::analysis::distinct_thresholds(p)
-            .into_iter()
-            .next()
-            .map(|t| match &t.channel.span {
-                hopmap::percolation::Span::Line { direction, .. } => {
-                    format!("[{}]", hopmap::percolation::format_indices(*direction))
-                }
-                hopmap::percolation::Span::Plane { normal, .. } => {
-                    format!("({})", hopmap::percolation::format_indices(*normal))
-                }
-                _ => String::new(),
-            })
+        row.direction = a
+            .summary
+            .first()
+            .and_then(|n| n.orientations.first())
+            .map(|o| o.indices())
             .unwrap_or_default();
         row.sites = a.network.as_ref().map(|n| n.sites.len());
         if let Some(v) = &a.valence {
