@@ -396,7 +396,8 @@ pub fn paths(a: &Analysis, file: &str) -> Value {
             "notes": prov.notes,
         },
         "timings_s": a.timings.iter().map(|(k, v)| json!({"stage": k, "seconds": round(*v, 4)})).collect::<Vec<_>>(),
-        "warnings": a.warnings,
+        "warnings": a.warnings.iter().map(|w| w.message.as_str()).collect::<Vec<_>>(),
+        "warning_kinds": a.warnings.iter().map(|w| w.kind.name()).collect::<Vec<_>>(),
         "cautions": CAUTIONS,
     })
 }

@@ -115,6 +115,70 @@ impl AnalysisOptions {
     }
 }
 
+/// What a warning is about, so that a program can filter warnings without reading sentences.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum WarningKind {
+    /// Reading the file, its symmetry, its oxidation states.
+    Structure,
+    /// A bond-valence parameter or radius from a fallback rule.
+    Parameters,
+    /// The bond-valence check of the structure.
+    Valence,
+    /// The landscape: an empty host, a pocket deeper than the occupied sites.
+    Landscape,
+    /// The site network and its internal checks.
+    Network,
+    /// The transport estimates.
+    Transport,
+    /// The capacity estimates.
+    Capacity,
+}
+
+impl WarningKind {
+    /// The kind's name in outputs (`structure`, `parameters`, ...).
+    pub fn name(&self) -> &'static str {
+        match self {
+            WarningKind::Structure => "structure",
+            WarningKind::Parameters => "parameters",
+            WarningKind::Valence => "valence",
+            WarningKind::Landscape => "landscape",
+            WarningKind::Network => "network",
+            WarningKind::Transport => "transport",
+            WarningKind::Capacity => "capacity",
+        }
+    }
+}
+
+/// A problem that did not stop the analysis: its kind and a plain sentence. Reads as the
+/// sentence (`Display`, and `Deref` to `str`).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Warning {
+    pub kind: WarningKind,
+    pub message: String,
+}
+
+impl Warning {
+    pub fn new(kind: WarningKind, message: impl Into<String>) -> Self {
+        Warning {
+            kind,
+            message: message.into(),
+        }
+    }
+}
+
+impl std::fmt::Display for Warning {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.message)
+    }
+}
+
+impl std::ops::Deref for Warning {
+    type Target = str;
+    fn deref(&self) -> &str {
+        &self.message
+    }
+}
+
 /// Transport through one percolating network.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ChannelTransport {
@@ -174,7 +238,7 @@ pub struct Analysis {
     pub transport: Vec<ChannelTransport>,
     pub capacity: Option<CapacityReport>,
     pub packing: Option<SitePacking>,
-    pub warnings: Vec<String>,
+    pub warnings: Vec<Warning>,
     /// Seconds per stage.
     pub timings: Vec<(&'static str, f64)>,
     /// The interpretation every renderer reads: networks, orientations, hop groups, headline.
@@ -272,7 +336,7 @@ pub fn occupied_wells(grid: &Grid, sites: &[MobileSite]) -> Vec<usize> {
 
 /// Says so when a network's lowest point is an empty pocket clearly deeper than the sites the
 /// ion occupies (the barrier is then measured from the occupied sites).
-fn deeper_void_warning(p: &Percolation, grid: &Grid, warnings: &mut Vec<String>) {
+fn deeper_void_warning(p: &Percolation, grid: &Grid, warnings: &mut Vec<Warning>) {
     let Some(t) = p.thresholds.iter().flatten().next() else {
         return;
     };
@@ -282,10 +346,10 @@ fn deeper_void_warning(p: &Percolation, grid: &Grid, warnings: &mut Vec<String>)
     let depth = occupied - t.channel.lowest;
     if depth as f64 > DEEPER_VOID_EV {
         let f = grid.frac(grid.ijk(t.channel.lowest_point)).wrapped();
-        warnings.push(format!(
+        warnings.push(Warning::new(WarningKind::Landscape, format!(
             "the landscape's lowest point, an empty pocket at ({:.3}, {:.3}, {:.3}), lies {:.2} eV below the sites the ion occupies; barriers are measured from the occupied sites",
             f.0.x, f.0.y, f.0.z, depth
-        ));
+        )));
     }
 }
 
@@ -328,18 +392,25 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     let mut timings = Vec::new();
     let t0 = Instant::now();
     let (s, oxidation_note, model, provenance, land) = model_and_landscape(structure, opts)?;
-    let mut warnings: Vec<String> = s.warnings.clone();
+    let mut warnings: Vec<Warning> = s
+        .warnings
+        .iter()
+        .map(|w| Warning::new(WarningKind::Structure, w.clone()))
+        .collect();
     timings.push(("model and grids", t0.elapsed().as_secs_f64()));
     if provenance.uses_fallback {
-        warnings.push(
-            "a probe-anion pair uses the O'Keeffe-Brese estimate of R0 (no tabulated parameters): treat barriers with extra caution"
-                .to_string(),
-        );
+        warnings.push(Warning::new(
+            WarningKind::Parameters,
+            "a probe-anion pair uses the O'Keeffe-Brese estimate of R0 (no tabulated parameters): treat barriers with extra caution",
+        ));
     }
     if provenance.removed_mobile == 0.0 {
-        warnings.push(format!(
-            "the structure has no {0}: its framework is analysed as an empty host for {0}",
-            opts.ion
+        warnings.push(Warning::new(
+            WarningKind::Landscape,
+            format!(
+                "the structure has no {0}: its framework is analysed as an empty host for {0}",
+                opts.ion
+            ),
         ));
     }
     for r in provenance
@@ -349,7 +420,10 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
         .filter(|r| r.origin == crate::bv::ValueOrigin::Fallback)
     {
         let why = r.notes.last().cloned().unwrap_or_default();
-        let w = format!("radius of {} is a fallback: {why}", r.species_name());
+        let w = Warning::new(
+            WarningKind::Parameters,
+            format!("radius of {} is a fallback: {why}", r.species_name()),
+        );
         if !warnings.contains(&w) {
             warnings.push(w);
         }
@@ -357,7 +431,10 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     let valence = match valence_check_with(&s, &opts.table, Some(opts.ion)) {
         Ok(v) => Some(v),
         Err(e) => {
-            warnings.push(format!("valence check not possible: {e}"));
+            warnings.push(Warning::new(
+                WarningKind::Valence,
+                format!("valence check not possible: {e}"),
+            ));
             None
         }
     };
@@ -423,8 +500,11 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     for d in 1..=3u8 {
         let (g, v) = (out.percolation.energy(d), graph_perc.energy(d));
         if g != v {
-            out.warnings.push(format!(
-                "internal check: the site graph percolates in {d}D at {v:?} eV but the grid at {g:?} eV; please report this structure"
+            out.warnings.push(Warning::new(
+                WarningKind::Network,
+                format!(
+                    "internal check: the site graph percolates in {d}D at {v:?} eV but the grid at {g:?} eV; please report this structure"
+                ),
             ));
         }
     }
@@ -639,7 +719,7 @@ fn channel_transport(
     lattice: &crate::lattice::Lattice,
     carriers: Option<f64>,
     charge: f64,
-    warnings: &mut Vec<String>,
+    warnings: &mut Vec<Warning>,
 ) -> Vec<ChannelTransport> {
     let mut out = Vec::new();
     for t in distinct_thresholds(p) {
@@ -666,9 +746,12 @@ fn channel_transport(
                         Some(m),
                     ),
                     Err(e) => {
-                        warnings.push(format!(
-                            "transport estimate of the {}D network skipped: {e}",
-                            t.dimension
+                        warnings.push(Warning::new(
+                            WarningKind::Transport,
+                            format!(
+                                "transport estimate of the {}D network skipped: {e}",
+                                t.dimension
+                            ),
                         ));
                         continue;
                     }
@@ -748,7 +831,7 @@ fn capacity_estimate(
     p: &Percolation,
     net: &Network,
     r: &RateOptions,
-    warnings: &mut Vec<String>,
+    warnings: &mut Vec<Warning>,
 ) -> (Option<CapacityReport>, Option<SitePacking>) {
     let (z, _) = s.formula_and_z();
     let comp = s.cell_composition();
@@ -773,7 +856,10 @@ fn capacity_estimate(
         match capacity::pack_sites(&s.lattice, &cands, r.min_ion_distance_a) {
             Ok(pk) => Some(pk),
             Err(e) => {
-                warnings.push(format!("site-limited capacity skipped: {e}"));
+                warnings.push(Warning::new(
+                    WarningKind::Capacity,
+                    format!("site-limited capacity skipped: {e}"),
+                ));
                 None
             }
         }
@@ -783,7 +869,10 @@ fn capacity_estimate(
     match CapacityReport::new(&per_fu, redox_electrons, site, charge, Some(s.density())) {
         Ok(c) => (Some(c), packing),
         Err(e) => {
-            warnings.push(format!("capacity estimate skipped: {e}"));
+            warnings.push(Warning::new(
+                WarningKind::Capacity,
+                format!("capacity estimate skipped: {e}"),
+            ));
             (None, packing)
         }
     }

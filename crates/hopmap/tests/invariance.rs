@@ -3,10 +3,11 @@
 //! Networks whose thresholds lie within `CHANNEL_MERGE_EV` of each other are one network of the
 //! higher dimension (checked on hand-made landscapes, exact by construction).
 
-use hopmap::analysis::{CHANNEL_MERGE_EV, distinct_thresholds, merged_with_higher};
+use hopmap::analysis::{CHANNEL_MERGE_EV, distinct_thresholds};
 use hopmap::grid::Grid;
 use hopmap::lattice::{CellParameters, Lattice};
 use hopmap::percolation::percolate;
+use hopmap::summary::folded_into_higher;
 
 /// An 8 x 8 x 8 landscape at 5 eV with two channels at 0 eV: a line along a (j = k = 0) over a
 /// bottleneck of 1 eV, and a line along b (i = k = 0) over a bottleneck of `second` eV. The
@@ -42,7 +43,7 @@ fn thresholds_closer_than_the_tolerance_are_one_network_of_the_higher_dimension(
     let p = percolate(&crossed_lines(1.01), 5.0);
     assert_eq!(p.threshold(1).map(|t| t.energy), Some(1.0));
     assert_eq!(p.threshold(2).map(|t| t.energy), Some(1.01));
-    assert!(merged_with_higher(&p, p.threshold(1).unwrap()));
+    assert!(folded_into_higher(&p, p.threshold(1).unwrap()));
     let d: Vec<u8> = distinct_thresholds(&p)
         .iter()
         .map(|t| t.dimension)
@@ -51,7 +52,7 @@ fn thresholds_closer_than_the_tolerance_are_one_network_of_the_higher_dimension(
     // 50 meV apart (more than CHANNEL_MERGE_EV = 20 meV): two networks
     assert!(0.05 > CHANNEL_MERGE_EV);
     let p = percolate(&crossed_lines(1.05), 5.0);
-    assert!(!merged_with_higher(&p, p.threshold(1).unwrap()));
+    assert!(!folded_into_higher(&p, p.threshold(1).unwrap()));
     let d: Vec<u8> = distinct_thresholds(&p)
         .iter()
         .map(|t| t.dimension)

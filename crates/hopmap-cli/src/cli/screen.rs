@@ -92,7 +92,7 @@ pub fn screen_one(
             row.valence_verdict = v.verdict.word().to_string();
             row.gii_vu = Some(v.gii);
         }
-        row.warnings = a.warnings.clone();
+        row.warnings = a.warnings.iter().map(|w| w.message.clone()).collect();
         Ok(())
     })();
     if let Err(e) = result {
