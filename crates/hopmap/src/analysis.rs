@@ -714,7 +714,7 @@ fn carriers_per_m3(s: &Structure, ion: Element, inserted: Option<f64>) -> Option
     let present = s.cell_composition().get(&ion).copied().unwrap_or(0.0);
     let (z, _) = s.formula_and_z();
     let per_cell = match inserted {
-        Some(x) => x * z as f64,
+        Some(x) => x * z,
         None => present,
     };
     transport::carrier_density_per_cell(per_cell, s.volume()).ok()
@@ -790,7 +790,7 @@ fn channel_transport(
             let at = |ea: f64| {
                 HoppingModel {
                     barrier_ev: ea.max(0.0),
-                    ..m.clone()
+                    ..*m
                 }
                 .diffusion_coefficient(temperature_k)
             };
@@ -844,7 +844,7 @@ fn capacity_estimate(
 ) -> (Option<CapacityReport>, Option<SitePacking>) {
     let (z, _) = s.formula_and_z();
     let comp = s.cell_composition();
-    let per_fu: capacity::Composition = comp.iter().map(|(e, n)| (*e, n / z as f64)).collect();
+    let per_fu: capacity::Composition = comp.iter().map(|(e, n)| (*e, n / z)).collect();
     let present = per_fu.get(&ion).copied().unwrap_or(0.0);
     let ions = r.ions_per_formula_unit.unwrap_or(present);
     // sites in the highest-dimensional network reached, at its threshold
@@ -874,7 +874,7 @@ fn capacity_estimate(
         }
     });
     let redox_electrons = ions * charge as f64;
-    let site = packing.as_ref().map(|pk| (pk, z as f64));
+    let site = packing.as_ref().map(|pk| (pk, z));
     match CapacityReport::new(&per_fu, redox_electrons, site, charge, Some(s.density())) {
         Ok(c) => (Some(c), packing),
         Err(e) => {
