@@ -142,13 +142,6 @@ pub fn options(
     r: &RateArgsCommon,
 ) -> Result<AnalysisOptions, Failure> {
     let ion = parse_ion(&m.ion)?;
-    if let Some(s) = m.spacing {
-        if !(s > 0.01 && s <= 2.0) {
-            return Err(Failure::Usage(format!(
-                "--spacing {s} A must lie between 0.01 and 2 A"
-            )));
-        }
-    }
     let (table, knobs) = load_parameters(m.params.as_deref(), m.oxidation.as_deref())?;
     let mut o = AnalysisOptions::new(ion);
     o.spacing_a = m.spacing;
@@ -170,6 +163,8 @@ pub fn options(
         min_ion_distance_a: r.min_ion_distance,
         ..RateOptions::default()
     };
+    // the ranges are the core's (hopmap::limits, RateOptions::validate)
+    o.validate().map_err(|e| Failure::Usage(e.to_string()))?;
     Ok(o)
 }
 
