@@ -606,9 +606,15 @@ where
         .iter()
         .map(|(f, ion)| (job_key(&f.display().to_string()), ion.clone()))
         .collect();
+    // a retried row keeps the file name it was first written with
+    let mut first_name: std::collections::BTreeMap<(String, String), String> = Default::default();
     existing.retain(|r| {
         let k = (job_key(&r.file), r.ion.clone());
-        !(retry.contains(&k) && in_this_run.contains(&k))
+        let again = retry.contains(&k) && in_this_run.contains(&k);
+        if again {
+            first_name.insert(k, r.file.clone());
+        }
+        !again
     });
     // Drop an interrupted last line before appending: rewrite the complete rows.
     if out.exists() {
@@ -638,7 +644,10 @@ where
         if failed.load(std::sync::atomic::Ordering::Relaxed) {
             return;
         }
-        let row = analyse(file, ion);
+        let mut row = analyse(file, ion);
+        if let Some(name) = first_name.get(&(job_key(&row.file), row.ion.clone())) {
+            row.file = name.clone();
+        }
         let line = match format {
             TableFormat::Csv => row.to_csv_line(),
             TableFormat::JsonLines => row.to_json().to_string() + "\n",

@@ -81,19 +81,26 @@ pub fn human_bytes(b: f64) -> String {
     }
 }
 
-/// A short number for messages: at most four significant digits, scientific beyond 1e6 or
-/// below 1e-3, so that an absurd input never prints a 300-digit number.
+/// A number for messages: as written when that is short (`0.0100001`, `5.1295`, `-5`), else
+/// scientific with four significant digits (`1.000e300`), so that an absurd input never prints
+/// a 300-digit number.
 pub fn short_number(x: f64) -> String {
-    if !x.is_finite() {
-        return format!("{x}");
-    }
+    let plain = format!("{x}");
     let a = x.abs();
-    if a != 0.0 && !(1e-3..1e6).contains(&a) {
-        format!("{x:.3e}")
+    if plain.len() <= 12 {
+        plain
+    } else if (1e-4..1e9).contains(&a) {
+        // seven significant digits, trailing zeros dropped: 179.99900000000002 -> 179.999
+        let decimals = (6 - a.log10().floor() as i32).max(0) as usize;
+        let s = format!("{x:.decimals$}");
+        let s = if s.contains('.') {
+            s.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            s
+        };
+        s
     } else {
-        let s = format!("{x:.4}");
-        let s = s.trim_end_matches('0').trim_end_matches('.');
-        s.to_string()
+        format!("{x:.3e}")
     }
 }
 
@@ -343,5 +350,9 @@ mod tests {
         assert_eq!(short_number(1e300), "1.000e300");
         assert_eq!(short_number(5.1295), "5.1295");
         assert_eq!(short_number(90.0), "90");
+        assert_eq!(short_number(0.0100001), "0.0100001");
+        assert_eq!(short_number(f64::NAN), "NaN");
+        assert_eq!(short_number(179.99900000000002), "179.999");
+        assert_eq!(short_number(8.953e-5), "0.00008953");
     }
 }

@@ -66,7 +66,7 @@ fn huge_atom_counts_are_refused_before_anything_is_allocated() {
 
 #[test]
 fn absurd_cells_are_refused_with_the_cell_line() {
-    refused("cell_1e7.cif", 4, "cell edge a = 1.000e7 A is longer");
+    refused("cell_1e7.cif", 4, "cell edge a = 10000000 A is longer");
     refused("cell_1e300.cif", 4, "cell edge a = 1.000e300 A is longer");
     refused("cell_flat_angle.cif", 4, "the cell is flat");
     refused(
@@ -193,7 +193,7 @@ fn physical_options_out_of_range_are_refused() {
     check(&|r| r.site_filling = f64::NAN, "site filling NaN");
     check(
         &|r| r.min_ion_distance_a = 1e6,
-        "minimum ion distance 1.000e6 A",
+        "minimum ion distance 1000000 A",
     );
     check(&|r| r.correlation_factor = 0.0, "correlation factor 0");
     check(
