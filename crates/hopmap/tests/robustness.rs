@@ -202,3 +202,100 @@ fn physical_options_out_of_range_are_refused() {
     );
     assert!(RateOptions::default().validate().is_ok());
 }
+
+/// The 2 x 2 x 2 supercell of a structure in P 1 (every site copied into the eight subcells).
+fn supercell_222(s: &hopmap::structure::Structure) -> hopmap::structure::Structure {
+    use hopmap::lattice::{Frac, Lattice};
+    use hopmap::spacegroup::SymOp;
+    use hopmap::structure::{AsymmetricSite, Site, Structure, SymmetryInfo};
+    let lattice = Lattice::from_matrix(s.lattice.matrix() * 2.0).unwrap();
+    let mut sites = Vec::new();
+    for site in &s.sites {
+        for (i, j, k) in (0..8).map(|n| (n & 1, (n >> 1) & 1, (n >> 2) & 1)) {
+            let f = (site.frac.wrapped().0 + nalgebra::Vector3::new(i as f64, j as f64, k as f64))
+                / 2.0;
+            sites.push(Site {
+                frac: Frac(f),
+                occupants: site.occupants.clone(),
+                asym_index: sites.len(),
+            });
+        }
+    }
+    let asymmetric_sites = sites
+        .iter()
+        .map(|x: &Site| AsymmetricSite {
+            label: x.label().to_string(),
+            frac: x.frac,
+            occupants: x.occupants.clone(),
+            multiplicity: 1,
+            wyckoff: None,
+        })
+        .collect();
+    Structure {
+        name: format!("{} 2x2x2", s.name),
+        lattice,
+        symmetry: SymmetryInfo {
+            number: Some(1),
+            hm_symbol: Some("P 1".into()),
+            hall_symbol: Some("P 1".into()),
+            ops: vec![SymOp::identity()],
+            source: "built in the test (P 1)".into(),
+            transformation: None,
+        },
+        asymmetric_sites,
+        sites,
+        warnings: vec![],
+        oxidation_states_assigned: false,
+    }
+}
+
+#[test]
+fn a_large_cell_coarsened_by_default_says_so() {
+    // olivine LiFePO4 (Streltsov et al. 1993, structures/reference): 291 A^3; its 2x2x2
+    // supercell, 2331 A^3, is above the 1000 A^3 where the default grid coarsens
+    let s = read_structure(
+        &PathBuf::from(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/../../structures/reference/LiFePO4_olivine.cif"
+        )),
+        None,
+    )
+    .unwrap();
+    let big = supercell_222(&s);
+    let mut o = AnalysisOptions::new(Element::from_symbol("Li").unwrap());
+    o.percolation_only = true;
+    let a = analyse(&big, &o).unwrap();
+    let w: Vec<&str> = a.warnings.iter().map(|w| w.message.as_str()).collect();
+    assert!(
+        w.iter()
+            .any(|m| m.contains("grid was coarsened from 0.1 A to 0.133 A")),
+        "{w:#?}"
+    );
+    // the cell as read (below 1000 A^3) is not coarsened and says nothing
+    let a = analyse(&s, &o).unwrap();
+    assert!(!a.warnings.iter().any(|w| w.message.contains("coarsened")));
+}
+
+#[test]
+fn an_operator_list_that_is_not_a_group_is_read_with_a_warning() {
+    // x,y,z and -x,-y,z+1/3: the square of the second, x,y,z+2/3, is missing (a group is
+    // closed under composition: International Tables Vol. A, ch. 8)
+    let s = read_structure(&robust("ops_not_a_group.cif"), None).unwrap();
+    assert!(
+        s.warnings
+            .iter()
+            .any(|w| w.contains("not a group: the product of operations 2 and 2")),
+        "{:#?}",
+        s.warnings
+    );
+    // a closed list (the reference LiCl file, 192 operations of F m -3 m) says nothing
+    let licl = read_structure(
+        &PathBuf::from(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/../../structures/reference/LiCl_rocksalt.cif"
+        )),
+        None,
+    )
+    .unwrap();
+    assert!(!licl.warnings.iter().any(|w| w.contains("not a group")));
+}

@@ -623,7 +623,31 @@ fn read_operator_list(
             ops.insert(0, identity);
         }
     }
+    if let Some((i, j)) = first_product_missing(&ops) {
+        warnings.push(format!(
+            "the operator list is not a group: the product of operations {} and {} is not in it \
+             (an operation is missing or mistyped); the atoms are placed with the operations as \
+             listed",
+            i + 1,
+            j + 1
+        ));
+    }
     Ok(Some(ops))
+}
+
+/// The first pair of operations (indices in the list) whose product is not in the list modulo
+/// lattice translations, or None for a closed list (a group). At most 192^3 comparisons, as the
+/// list is bounded by [`crate::limits::MAX_SYMMETRY_OPERATIONS`].
+fn first_product_missing(ops: &[SymOp]) -> Option<(usize, usize)> {
+    for (i, a) in ops.iter().enumerate() {
+        for (j, b) in ops.iter().enumerate() {
+            let p = a.compose(b);
+            if !ops.iter().any(|o| o.same_modulo_lattice(&p)) {
+                return Some((i, j));
+            }
+        }
+    }
+    None
 }
 
 /// A crystallographic rotation has order 1, 2, 3, 4 or 6 (R^n = identity), and in any
