@@ -93,12 +93,11 @@ pub fn short_number(x: f64) -> String {
         // seven significant digits, trailing zeros dropped: 179.99900000000002 -> 179.999
         let decimals = (6 - a.log10().floor() as i32).max(0) as usize;
         let s = format!("{x:.decimals$}");
-        let s = if s.contains('.') {
+        if s.contains('.') {
             s.trim_end_matches('0').trim_end_matches('.').to_string()
         } else {
             s
-        };
-        s
+        }
     } else {
         format!("{x:.3e}")
     }
@@ -114,7 +113,7 @@ pub fn check_lattice(lattice: &Lattice) -> Result<(), String> {
         let e = lattice.vector(i);
         let m = e.amax();
         let v = if m > 0.0 { m * (e / m).norm() } else { 0.0 };
-        if !(v <= MAX_CELL_LENGTH_A) {
+        if v.is_nan() || v > MAX_CELL_LENGTH_A {
             return Err(format!(
                 "cell edge {name} = {} A is longer than hopmap analyses ({} A at most)",
                 short_number(v),
@@ -124,7 +123,7 @@ pub fn check_lattice(lattice: &Lattice) -> Result<(), String> {
     }
     let w = lattice.perpendicular_widths();
     for (i, name) in ["a", "b", "c"].iter().enumerate() {
-        if !(w[i] >= MIN_CELL_WIDTH_A) {
+        if w[i].is_nan() || w[i] < MIN_CELL_WIDTH_A {
             return Err(format!(
                 "the cell is flat: its width across the {name} direction is {} A (at least {} A \
                  is needed; cell a = {}, b = {}, c = {} A, alpha = {}, beta = {}, gamma = {} deg)",

@@ -461,22 +461,22 @@ fn read_symmetry(
             None => tried.push(format!("the Hall symbol '{h}' is not in the table")),
         }
     }
-    if found.is_none() {
-        if let Some(h) = &hm {
-            match spacegroup::from_hm(h) {
-                Some(sg) => found = Some((sg, format!("Hermann-Mauguin symbol '{h}'"))),
-                None => tried.push(format!(
-                    "the Hermann-Mauguin symbol '{h}' is not in the table"
-                )),
-            }
+    if found.is_none()
+        && let Some(h) = &hm
+    {
+        match spacegroup::from_hm(h) {
+            Some(sg) => found = Some((sg, format!("Hermann-Mauguin symbol '{h}'"))),
+            None => tried.push(format!(
+                "the Hermann-Mauguin symbol '{h}' is not in the table"
+            )),
         }
     }
-    if found.is_none() {
-        if let Some(n) = number {
-            match spacegroup::from_number(n) {
-                Some(sg) => found = Some((sg, format!("space-group number {n}"))),
-                None => tried.push(format!("space-group number {n} is not in the table")),
-            }
+    if found.is_none()
+        && let Some(n) = number
+    {
+        match spacegroup::from_number(n) {
+            Some(sg) => found = Some((sg, format!("space-group number {n}"))),
+            None => tried.push(format!("space-group number {n} is not in the table")),
         }
     }
     let Some((sg, source)) = found else {
@@ -509,13 +509,13 @@ fn read_symmetry(
         .at_line(block.line)
         .context(ctx.to_string()));
     };
-    if let Some(n) = number {
-        if n != sg.number {
-            warnings.push(format!(
-                "the file gives space group number {n}, but the {source} is No. {}; the symbol is used",
-                sg.number
-            ));
-        }
+    if let Some(n) = number
+        && n != sg.number
+    {
+        warnings.push(format!(
+            "the file gives space group number {n}, but the {source} is No. {}; the symbol is used",
+            sg.number
+        ));
     }
     info.number = Some(sg.number);
     info.hm_symbol.get_or_insert(sg.hm);
@@ -850,13 +850,13 @@ fn read_site_rows(
         };
         let site_ctx = || format!("{ctx}, site '{label}'");
         let line = xs[i].line().unwrap_or(block.line);
-        if let Some(flag) = text_at(&flags) {
-            if flag.eq_ignore_ascii_case("dum") {
-                warnings.push(format!(
-                    "site '{label}' is a dummy site (calc flag 'dum'); left out"
-                ));
-                continue;
-            }
+        if let Some(flag) = text_at(&flags)
+            && flag.eq_ignore_ascii_case("dum")
+        {
+            warnings.push(format!(
+                "site '{label}' is a dummy site (calc flag 'dum'); left out"
+            ));
+            continue;
         }
         let symbol = type_symbol.unwrap_or(&label);
         let reading = match type_symbol {

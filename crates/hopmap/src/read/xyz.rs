@@ -34,7 +34,10 @@ pub fn read_extxyz(path: impl AsRef<Path>) -> Result<crate::structure::Structure
 
 /// Splits the comment line into (key, value) pairs; values in double quotes may hold spaces.
 /// Errors carry the 1-based column of the problem.
-fn key_values(line: &str) -> Result<Vec<(String, String, usize)>, (usize, String)> {
+/// Key, value and 1-based column of each `key=value` pair of a comment line.
+type KeyValues = Vec<(String, String, usize)>;
+
+fn key_values(line: &str) -> Result<KeyValues, (usize, String)> {
     let chars: Vec<char> = line.chars().collect();
     let mut out = Vec::new();
     let mut i = 0;
@@ -85,7 +88,7 @@ fn key_values(line: &str) -> Result<Vec<(String, String, usize)>, (usize, String
 /// Where the species and position columns are, from a `Properties` value.
 fn columns(props: &str) -> Result<(usize, bool, usize, usize), String> {
     let parts: Vec<&str> = props.split(':').collect();
-    if parts.len() % 3 != 0 {
+    if !parts.len().is_multiple_of(3) {
         return Err(format!(
             "Properties '{props}' must be name:type:width triples"
         ));
