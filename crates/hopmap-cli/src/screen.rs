@@ -812,7 +812,11 @@ mod tests {
         let d = tmp("quoting");
         let out = d.join("q.csv");
         let r = fake(Path::new("x/y, z.cif"), "Li");
-        std::fs::write(&out, render_table(std::slice::from_ref(&r), TableFormat::Csv)).unwrap();
+        std::fs::write(
+            &out,
+            render_table(std::slice::from_ref(&r), TableFormat::Csv),
+        )
+        .unwrap();
         assert_eq!(read_table(&out).unwrap(), vec![r]);
     }
 
@@ -844,10 +848,17 @@ mod tests {
         let row = fake(Path::new("dir/s01.cif"), "Li");
         let other = fake(Path::new("dir/s02.cif"), "Li");
         std::fs::write(&a, render_table(&[row.clone(), other], TableFormat::Csv)).unwrap();
-        std::fs::write(&b, render_table(std::slice::from_ref(&row), TableFormat::Csv)).unwrap();
+        std::fs::write(
+            &b,
+            render_table(std::slice::from_ref(&row), TableFormat::Csv),
+        )
+        .unwrap();
         let m = merge_tables(&[a, b]).unwrap();
         assert_eq!(m.rows.len(), 2);
-        assert_eq!(m.dropped, vec![("dir/s01.cif".to_string(), "Li".to_string(), 1)]);
+        assert_eq!(
+            m.dropped,
+            vec![("dir/s01.cif".to_string(), "Li".to_string(), 1)]
+        );
         assert_eq!(m.dropped_rows(), 1);
     }
 }

@@ -322,11 +322,11 @@ fn structure_section(a: &Analysis, file: &str, o: &mut String) {
         Some(v) => {
             let _ = writeln!(
                 o,
-                "<p>Global instability index GII = <b>{:.3} v.u.</b>: <b>{}</b> (below 0.1 v.u. \
-                 a well refined structure, 0.1 to 0.2 v.u. strained, above 0.2 v.u. suspect; \
+                "<p>Global instability index GII = <b>{:.3} v.u.</b>: <b>{}</b> ({}; \
                  Salinas-Sanchez et al., J. Solid State Chem. 100 (1992) 201).</p>",
                 v.gii,
-                v.verdict.word()
+                v.verdict.word(),
+                hopmap::bv::valence::VERDICT_RULE
             );
             o.push_str("<table>\n");
             o.push_str(&th_row(&[
@@ -570,8 +570,10 @@ fn hops_section(a: &Analysis, o: &mut String) {
          of the cell, in {} symmetry-distinct groups (same orbits, length and saddle energy){}. \
          Barriers are saddle minus site energy, read from the first orbit to the second and back. \
          Opening = distance from the saddle to the nearest framework ion minus that ion's Shannon \
-         radius; clearance = opening minus the radius of {} ({:.2} Å), negative where the ion must \
-         squeeze through.</p>",
+         radius; clearance = opening minus the radius of {} ({:.2} Å). Shannon radii describe ions \
+         at their usual coordination, and an ion passing through a window of three or four anions \
+         comes closer to them than that, so clearances at saddles are negative as a rule: \
+         compare them between hops and materials rather than reading a sign.</p>",
         level,
         shown,
         net.hops.len(),
@@ -605,7 +607,6 @@ fn hops_section(a: &Analysis, o: &mut String) {
     const MAX: usize = 40;
     for g in groups.iter().take(MAX) {
         let clear = match g.clearance_a {
-            Some(c) if c < 0.0 => format!("<span class=\"flag\">{c:+.2}</span>"),
             Some(c) => format!("{c:+.2}"),
             None => "–".into(),
         };

@@ -412,7 +412,8 @@ pub fn valence(v: &ValenceReport, s: &Structure, note: Option<&str>) -> Value {
         "assignment_note": note,
         "gii_vu": round(v.gii, 4),
         "verdict": v.verdict.word(),
-        "thresholds_vu": [0.1, 0.2],
+        "thresholds_vu": [hopmap::bv::valence::GII_PLAUSIBLE, hopmap::bv::valence::GII_SUSPECT],
+        "verdict_rule": hopmap::bv::valence::VERDICT_RULE,
         "ions": v.ions.iter().map(|i| json!({
             "label": i.label, "site": i.site_label, "species": i.species,
             "formal_vu": i.formal, "bvs_vu": round(i.bvs, 4), "deviation_vu": round(i.deviation, 4),

@@ -4,9 +4,7 @@
 //! every stage it calls takes and returns plain data.
 
 use crate::bv::model::{ModelKnobs, ModelProvenance, build_model};
-use crate::bv::{
-    ParameterTable, ValenceReport, assign_oxidation_states, valence::valence_check,
-};
+use crate::bv::{ParameterTable, ValenceReport, assign_oxidation_states, valence::valence_check};
 use crate::capacity::{self, CandidateSite, CapacityReport, SitePacking};
 use crate::element::Element;
 use crate::grid::Grid;
@@ -882,7 +880,13 @@ fn capacity_estimate(
     };
     // an amount set by the user: that many ions (times their charge) per formula unit
     if let Some(ions) = r.ions_per_formula_unit {
-        return match CapacityReport::new(&per_fu, ions * charge as f64, site, charge, Some(s.density())) {
+        return match CapacityReport::new(
+            &per_fu,
+            ions * charge as f64,
+            site,
+            charge,
+            Some(s.density()),
+        ) {
             Ok(c) => (Some(c), packing, None),
             Err(e) => {
                 skipped(e, warnings);
@@ -937,7 +941,9 @@ fn capacity_estimate(
         );
         return (None, packing, Some(note));
     };
-    let site_ions = packing.as_ref().map(|pk| pk.ions_per_cell / z as f64 + pinned);
+    let site_ions = packing
+        .as_ref()
+        .map(|pk| pk.ions_per_cell / z as f64 + pinned);
     match CapacityReport::from_redox(
         &per_fu,
         &bound,
@@ -974,7 +980,11 @@ fn other_mobile_ions_warning(
     warnings: &mut Vec<Warning>,
 ) {
     const USUAL_MOBILE: [&str; 4] = ["Li", "Na", "K", "Ag"];
-    let excluded: Vec<&str> = provenance.excluded.iter().map(|(l, _)| l.as_str()).collect();
+    let excluded: Vec<&str> = provenance
+        .excluded
+        .iter()
+        .map(|(l, _)| l.as_str())
+        .collect();
     for sym in USUAL_MOBILE {
         let Some(e) = Element::from_symbol(sym) else {
             continue;
