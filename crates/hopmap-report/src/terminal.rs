@@ -166,10 +166,11 @@ pub fn paths(a: &Analysis, file: &str) -> String {
     if let Some(v) = &a.valence {
         let _ = writeln!(
             o,
-            "  valence check: GII = {:.3} v.u., {} ({})",
+            "  valence check: GII = {:.3} v.u., {} (plausible below {} v.u., suspect above {} v.u.; sources in `hopmap valence`)",
             v.gii,
             v.verdict.word(),
-            hopmap::bv::valence::VERDICT_RULE
+            hopmap::bv::valence::GII_PLAUSIBLE,
+            hopmap::bv::valence::GII_SUSPECT
         );
     }
     if let Some(n) = &a.oxidation_note {
@@ -247,45 +248,53 @@ pub fn paths(a: &Analysis, file: &str) -> String {
                 seen.insert(key)
             })
             .collect();
-        let _ = writeln!(
-            o,
-            "\n  symmetry-distinct hops up to the highest threshold ({} distinct of {} in the cell):",
-            shown.len(),
-            net.hops.len()
-        );
-        let _ = writeln!(
-            o,
-            "    {:>5} {:>5} {:<10} {:>11} {:>13} {:>13} {:>12} {:>14}",
-            "orbit",
-            "orbit",
-            "image",
-            "length (A)",
-            "saddle (eV)",
-            "fwd/back (eV)",
-            "opening (A)",
-            "clearance (A)"
-        );
-        for h in shown.iter().take(30) {
-            let (r, c) = h
-                .bottleneck
-                .as_ref()
-                .map(|b| (format!("{:.2}", b.radius), format!("{:+.2}", b.clearance)))
-                .unwrap_or(("-".into(), "-".into()));
+        if shown.is_empty() {
             let _ = writeln!(
                 o,
-                "    {:>5} {:>5} {:<10} {:>11.3} {:>13.3} {:>13} {:>12} {:>14}",
-                net.sites[h.from].orbit,
-                net.sites[h.to].orbit,
-                format!("[{}]", format_indices(h.image)),
-                h.length,
-                h.saddle_energy,
-                format!("{:.2}/{:.2}", h.barrier_forward, h.barrier_backward),
-                r,
-                c
+                "\n  hops: none below the energy cap of {} eV",
+                hopmap::text::trim_number(a.model.energy_cap, 2)
             );
-        }
-        if shown.len() > 30 {
-            let _ = writeln!(o, "    ... {} more (see --json)", shown.len() - 30);
+        } else {
+            let _ = writeln!(
+                o,
+                "\n  symmetry-distinct hops up to the highest threshold ({} distinct of {} in the cell):",
+                shown.len(),
+                net.hops.len()
+            );
+            let _ = writeln!(
+                o,
+                "    {:>5} {:>5} {:<10} {:>11} {:>13} {:>13} {:>12} {:>14}",
+                "orbit",
+                "orbit",
+                "image",
+                "length (A)",
+                "saddle (eV)",
+                "fwd/back (eV)",
+                "opening (A)",
+                "clearance (A)"
+            );
+            for h in shown.iter().take(30) {
+                let (r, c) = h
+                    .bottleneck
+                    .as_ref()
+                    .map(|b| (format!("{:.2}", b.radius), format!("{:+.2}", b.clearance)))
+                    .unwrap_or(("-".into(), "-".into()));
+                let _ = writeln!(
+                    o,
+                    "    {:>5} {:>5} {:<10} {:>11.3} {:>13.3} {:>13} {:>12} {:>14}",
+                    net.sites[h.from].orbit,
+                    net.sites[h.to].orbit,
+                    format!("[{}]", format_indices(h.image)),
+                    h.length,
+                    h.saddle_energy,
+                    format!("{:.2}/{:.2}", h.barrier_forward, h.barrier_backward),
+                    r,
+                    c
+                );
+            }
+            if shown.len() > 30 {
+                let _ = writeln!(o, "    ... {} more (see --json)", shown.len() - 30);
+            }
         }
     }
     rate_section(&mut o, a, None);

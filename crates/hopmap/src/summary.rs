@@ -293,10 +293,13 @@ pub fn hop_groups(a: &Analysis, level: f64) -> Vec<HopGroup> {
 pub fn headline(ion: Element, networks: &[Network], no_path_below_ev: Option<f64>) -> String {
     let ion = ion.symbol();
     if networks.is_empty() {
-        return format!(
-            "{ion}: no percolating path below {:.1} eV (the energy cap)",
-            no_path_below_ev.unwrap_or(f64::NAN)
-        );
+        return match no_path_below_ev {
+            Some(cap) => format!(
+                "{ion}: no percolating path below {} eV (the energy cap)",
+                crate::text::trim_number(cap, 2)
+            ),
+            None => format!("{ion}: no percolating path"),
+        };
     }
     let parts: Vec<String> = networks
         .iter()

@@ -125,6 +125,7 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
     for ion in &a.ion {
         super::analyse::parse_ion(ion)?;
     }
+    super::prepare_output_file(&a.out)?;
     let jobs = screen::shard_jobs(&files, &a.ion, a.shard);
     let base_rate = RateArgsCommon::default();
     let quiet = GlobalOpts {
@@ -184,6 +185,7 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
 }
 
 pub fn run_merge(g: &GlobalOpts, a: MergeArgs) -> CmdResult {
+    super::prepare_output_file(&a.out)?;
     let merged = screen::merge_tables(&a.inputs)
         .map_err(|e| format!("cannot read the shard outputs: {e}"))?;
     let rows = &merged.rows;
