@@ -925,7 +925,11 @@ fn capacity_estimate(
             }
         }
     }
-    let Some(bound) = capacity::redox_bound(&cations, present, charge) else {
+    let towards = |d| capacity::redox_bound_towards(&cations, present, charge, d);
+    let (Some(ext), Some(ins)) = (
+        towards(capacity::RedoxDirection::Extraction),
+        towards(capacity::RedoxDirection::Insertion),
+    ) else {
         let mut names: Vec<String> = cations
             .iter()
             .map(|c| c.element.symbol().to_string())
@@ -944,23 +948,26 @@ fn capacity_estimate(
     let site_ions = packing
         .as_ref()
         .map(|pk| pk.ions_per_cell / z as f64 + pinned);
-    match CapacityReport::from_redox(
-        &per_fu,
-        &bound,
-        site_ions,
-        present,
-        charge,
-        Some(s.density()),
-    ) {
+    // the larger of the two directions (ties to extraction): a lithiated cathode gives up its
+    // ions (LiCoO2), a titanate or an empty host takes them in (Li4Ti5O12), a partly filled
+    // bronze goes the way with more room
+    let report = |b: &capacity::RedoxBound| {
+        CapacityReport::from_redox(&per_fu, b, site_ions, present, charge, Some(s.density()))
+    };
+    let chosen = match (report(&ext), report(&ins)) {
+        (Ok(e), Ok(i)) => Ok(if i.capacity_mah_g > e.capacity_mah_g + 1e-9 {
+            i
+        } else {
+            e
+        }),
+        (Ok(e), Err(_)) => Ok(e),
+        (Err(_), Ok(i)) => Ok(i),
+        (Err(e), Err(_)) => Err(e),
+    };
+    match chosen {
         Ok(c) => {
             let note = (c.capacity_mah_g <= 0.0).then(|| {
-                format!(
-                    "no capacity: the framework's cations cannot be {} further",
-                    match bound.direction {
-                        capacity::RedoxDirection::Extraction => "oxidised",
-                        capacity::RedoxDirection::Insertion => "reduced",
-                    }
-                )
+                "no capacity: the framework's cations can neither be oxidised with the ions present nor reduced with room for more".to_string()
             });
             (Some(c), packing, note)
         }

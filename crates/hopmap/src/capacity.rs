@@ -449,16 +449,43 @@ fn state_name(e: Element, q: f64) -> String {
 }
 
 /// The redox bound of a framework for a mobile ion of charge `ion_charge` present at
-/// `mobile_per_formula_unit`: when the structure holds the ion and its cations can be oxidised,
-/// the ions can be extracted, as many as the oxidation allows and no more than are there
-/// (LiFePO4: 1 e, Fe2+ -> Fe3+; LiCoO2: 1 e, Co3+ -> Co4+; LiMn2O4: 1 e, Mn3.5+ -> Mn4+);
-/// otherwise ions can be inserted, as many as the reduction of the cations allows (Li4Ti5O12:
-/// Ti4+ -> Ti3+, 5 e per Li4Ti5O12 before the sites run out at 3; FePO4: Fe3+ -> Fe2+).
-/// None when no cation is redox-active ([`redox_window`]): a solid electrolyte.
+/// `mobile_per_formula_unit`, in the usual direction: when the structure holds the ion and its
+/// cations can be oxidised, the ions can be extracted, as many as the oxidation allows and no
+/// more than are there (LiFePO4: 1 e, Fe2+ -> Fe3+; LiCoO2: 1 e, Co3+ -> Co4+; LiMn2O4: 1 e,
+/// Mn3.5+ -> Mn4+); otherwise ions can be inserted, as many as the reduction of the cations
+/// allows (Li4Ti5O12: Ti4+ -> Ti3+, 5 e per Li4Ti5O12 before the sites run out at 3; FePO4:
+/// Fe3+ -> Fe2+). None when no cation is redox-active ([`redox_window`]): a solid electrolyte.
 pub fn redox_bound(
     cations: &[FrameworkCation],
     mobile_per_formula_unit: f64,
     ion_charge: u8,
+) -> Option<RedoxBound> {
+    let ext = redox_bound_towards(
+        cations,
+        mobile_per_formula_unit,
+        ion_charge,
+        RedoxDirection::Extraction,
+    )?;
+    if ext.electrons_per_formula_unit > 0.0 {
+        Some(ext)
+    } else {
+        redox_bound_towards(
+            cations,
+            mobile_per_formula_unit,
+            ion_charge,
+            RedoxDirection::Insertion,
+        )
+    }
+}
+
+/// The redox bound in one direction (see [`redox_bound`]); zero electrons when the cations
+/// cannot move that way (or, for extraction, when the structure holds none of the ion). None
+/// when no cation is redox-active.
+pub fn redox_bound_towards(
+    cations: &[FrameworkCation],
+    mobile_per_formula_unit: f64,
+    ion_charge: u8,
+    direction: RedoxDirection,
 ) -> Option<RedoxBound> {
     let active: Vec<(&FrameworkCation, (f64, f64))> = cations
         .iter()
@@ -468,22 +495,17 @@ pub fn redox_bound(
     if active.is_empty() {
         return None;
     }
-    let oxidisable: f64 = active
-        .iter()
-        .map(|(c, (_, hi))| c.amount * (hi - c.state).max(0.0))
-        .sum();
-    let reducible: f64 = active
-        .iter()
-        .map(|(c, (lo, _))| c.amount * (c.state - lo).max(0.0))
-        .sum();
     let tol = 1e-6;
-    let (direction, electrons) = if mobile_per_formula_unit > tol && oxidisable > tol {
-        (
-            RedoxDirection::Extraction,
-            oxidisable.min(mobile_per_formula_unit * ion_charge as f64),
-        )
-    } else {
-        (RedoxDirection::Insertion, reducible)
+    let electrons = match direction {
+        RedoxDirection::Extraction => active
+            .iter()
+            .map(|(c, (_, hi))| c.amount * (hi - c.state).max(0.0))
+            .sum::<f64>()
+            .min(mobile_per_formula_unit.max(0.0) * ion_charge as f64),
+        RedoxDirection::Insertion => active
+            .iter()
+            .map(|(c, (lo, _))| c.amount * (c.state - lo).max(0.0))
+            .sum::<f64>(),
     };
     let mut couples: Vec<String> = Vec::new();
     for (c, (lo, hi)) in &active {
@@ -491,7 +513,7 @@ pub fn redox_bound(
             RedoxDirection::Extraction => *hi,
             RedoxDirection::Insertion => *lo,
         };
-        if (to - c.state).abs() < tol {
+        if (to - c.state).abs() < tol || electrons < tol {
             continue;
         }
         let couple = format!(
