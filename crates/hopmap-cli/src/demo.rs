@@ -343,6 +343,50 @@ fn barriers_text(b: &[Option<f64>; 3], sep: &str) -> String {
     }
 }
 
+/// The figure of the index page: barrier against capacity for every case that has both, a
+/// labelled point each, Li+ and Na+ apart. None when no case has both.
+pub fn index_figure(rows: &[DemoRow]) -> Option<String> {
+    use hopmap_plot::{Axis, Figure, LinePlot, MarkerSet, MarkerShape, colormap::categorical};
+    let mut plot = LinePlot::new(
+        Axis::linear("barrier", "eV"),
+        Axis::linear("capacity", "mAh/g"),
+    );
+    for (k, (ion, shape)) in [("Li", MarkerShape::Circle), ("Na", MarkerShape::Square)]
+        .into_iter()
+        .enumerate()
+    {
+        let points: Vec<(f64, f64, Option<String>)> = rows
+            .iter()
+            .filter(|r| r.ion == ion)
+            .filter_map(|r| {
+                let x = r.outcome.as_ref().ok()?;
+                Some((
+                    x.best_barrier_ev?,
+                    x.capacity_mah_g?,
+                    Some(r.structure.split('_').next().unwrap_or("").to_string()),
+                ))
+            })
+            .collect();
+        if !points.is_empty() {
+            plot.markers.push(MarkerSet {
+                legend: format!("{ion}+"),
+                shape,
+                colour: categorical(k),
+                points,
+            });
+        }
+    }
+    if plot.markers.is_empty() {
+        return None;
+    }
+    plot.legend = hopmap_plot::LegendPosition::TopRight;
+    Some(
+        Figure::lines(720.0, 420.0, plot)
+            .with_title("Barrier and capacity of the demo frameworks (invented)")
+            .to_svg(),
+    )
+}
+
 /// The index page of the study.
 pub fn index_page(rows: &[DemoRow]) -> String {
     let mut h = String::new();
@@ -368,6 +412,18 @@ pub fn index_page(rows: &[DemoRow]) -> String {
     let _ = writeln!(o, "<h2 id=\"scenario\">The scenario</h2>");
     let _ = writeln!(o, "<p>{}</p>", esc(SCENARIO));
     let _ = writeln!(o, "<div class=\"box warn\"><b>{}</b></div>", esc(INVENTED));
+    if let Some(svg) = index_figure(rows) {
+        let _ = writeln!(
+            o,
+            "<h2 id=\"overview\">Overview</h2>\n<figure id=\"fig-overview\">\n{svg}\n\
+             <figcaption>Figure 1. Barrier of the network with the best rate against the \
+             theoretical capacity, one point per framework and ion (Li+ circles, Na+ squares); \
+             frameworks without bulk transport at room temperature or without a capacity are \
+             listed in the table only. Barriers carry the model's uncertainty of ±{:.2} eV.\
+             </figcaption>\n</figure>",
+            analysis::BARRIER_UNCERTAINTY_EV
+        );
+    }
     let _ = writeln!(o, "<h2 id=\"ranking\">Ranking</h2>");
     let _ = writeln!(
         o,

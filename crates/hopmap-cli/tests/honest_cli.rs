@@ -268,3 +268,45 @@ fn a_magnesium_probe_on_a_lithium_compound_warns_that_lithium_stays() {
     ]));
     assert!(!text.contains("stays in the framework"), "{text}");
 }
+
+#[test]
+fn the_demo_index_has_a_figure_and_claims_only_what_its_numbers_show() {
+    // The demo study is invented (structures/demo); what is checked are rules of reporting: a
+    // figure on the index, no D below the floor of bulk transport (1e-20 m^2/s) printed as a
+    // number, and no particle claim beyond electrode-particle size (100 um).
+    let d = tmp("demo");
+    let out = d.join("demo");
+    let text = ok(&hopmap(&["demo", "--quiet", "--out", out.to_str().unwrap()]));
+    let index = std::fs::read_to_string(out.join("report.html")).unwrap();
+    let fig = index.find("id=\"fig-overview\"").expect("index figure");
+    assert!(index[fig..].contains("<svg"));
+    let answer_start = index.find("id=\"answer\"").unwrap();
+    let answer = &index[answer_start..answer_start + index[answer_start..].find("</p>").unwrap()];
+    for (i, _) in answer.match_indices(" µm") {
+        let before: String = answer[..i]
+            .chars()
+            .rev()
+            .take_while(|c| c.is_ascii_digit() || *c == '.')
+            .collect::<String>()
+            .chars()
+            .rev()
+            .collect();
+        if let Ok(v) = before.parse::<f64>() {
+            assert!(v <= 100.0, "claim of a {v} um particle: {answer}");
+        }
+    }
+    for page in [index.as_str(), text.as_str()] {
+        for (i, _) in page.match_indices("e-") {
+            let exp: String = page[i + 2..]
+                .chars()
+                .take_while(|c| c.is_ascii_digit())
+                .collect();
+            if let Ok(e) = exp.parse::<i32>() {
+                let before = page[..i].chars().last().unwrap_or(' ');
+                if before.is_ascii_digit() {
+                    assert!(e <= 20, "a value of order 1e-{e} is printed");
+                }
+            }
+        }
+    }
+}
