@@ -276,7 +276,12 @@ fn the_demo_index_has_a_figure_and_claims_only_what_its_numbers_show() {
     // number, and no particle claim beyond electrode-particle size (100 um).
     let d = tmp("demo");
     let out = d.join("demo");
-    let text = ok(&hopmap(&["demo", "--quiet", "--out", out.to_str().unwrap()]));
+    let text = ok(&hopmap(&[
+        "demo",
+        "--quiet",
+        "--out",
+        out.to_str().unwrap(),
+    ]));
     let index = std::fs::read_to_string(out.join("report.html")).unwrap();
     let fig = index.find("id=\"fig-overview\"").expect("index figure");
     assert!(index[fig..].contains("<svg"));

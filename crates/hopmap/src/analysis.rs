@@ -712,7 +712,7 @@ fn carriers_per_m3(s: &Structure, ion: Element, inserted: Option<f64>) -> Option
     let present = s.cell_composition().get(&ion).copied().unwrap_or(0.0);
     let (z, _) = s.formula_and_z();
     let per_cell = match inserted {
-        Some(x) => x * z as f64,
+        Some(x) => x * z,
         None => present,
     };
     transport::carrier_density_per_cell(per_cell, s.volume()).ok()
@@ -788,7 +788,7 @@ fn channel_transport(
             let at = |ea: f64| {
                 HoppingModel {
                     barrier_ev: ea.max(0.0),
-                    ..m.clone()
+                    ..*m
                 }
                 .diffusion_coefficient(temperature_k)
             };
@@ -843,7 +843,7 @@ fn capacity_estimate(
 ) -> (Option<CapacityReport>, Option<SitePacking>, Option<String>) {
     let (z, _) = s.formula_and_z();
     let comp = s.cell_composition();
-    let per_fu: capacity::Composition = comp.iter().map(|(e, n)| (*e, n / z as f64)).collect();
+    let per_fu: capacity::Composition = comp.iter().map(|(e, n)| (*e, n / z)).collect();
     let present = per_fu.get(&ion).copied().unwrap_or(0.0);
     // sites in the highest-dimensional network reached, at its threshold
     let packing = p.thresholds.iter().flatten().last().and_then(|t| {
@@ -871,7 +871,7 @@ fn capacity_estimate(
             }
         }
     });
-    let site = packing.as_ref().map(|pk| (pk, z as f64));
+    let site = packing.as_ref().map(|pk| (pk, z));
     let skipped = |e: capacity::CapacityError, warnings: &mut Vec<Warning>| {
         warnings.push(Warning::new(
             WarningKind::Capacity,
@@ -905,7 +905,7 @@ fn capacity_estimate(
             let q = o.species.oxidation.unwrap_or(0.0);
             if o.species.element == ion {
                 if shared {
-                    pinned += o.occupancy / z as f64;
+                    pinned += o.occupancy / z;
                 }
                 continue;
             }
@@ -916,11 +916,11 @@ fn capacity_estimate(
                 .iter_mut()
                 .find(|c| c.element == o.species.element && (c.state - q).abs() < 1e-6)
             {
-                Some(c) => c.amount += o.occupancy / z as f64,
+                Some(c) => c.amount += o.occupancy / z,
                 None => cations.push(capacity::FrameworkCation {
                     element: o.species.element,
                     state: q,
-                    amount: o.occupancy / z as f64,
+                    amount: o.occupancy / z,
                 }),
             }
         }
@@ -945,9 +945,7 @@ fn capacity_estimate(
         );
         return (None, packing, Some(note));
     };
-    let site_ions = packing
-        .as_ref()
-        .map(|pk| pk.ions_per_cell / z as f64 + pinned);
+    let site_ions = packing.as_ref().map(|pk| pk.ions_per_cell / z + pinned);
     // the larger of the two directions (ties to extraction): a lithiated cathode gives up its
     // ions (LiCoO2), a titanate or an empty host takes them in (Li4Ti5O12), a partly filled
     // bronze goes the way with more room

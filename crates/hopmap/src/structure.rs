@@ -196,7 +196,7 @@ impl Structure {
             .iter()
             .map(|(e, n)| e.atomic_mass() * n)
             .sum::<f64>()
-            / z as f64
+            / z
     }
 
     /// Density in g/cm^3.
