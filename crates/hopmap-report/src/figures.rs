@@ -97,7 +97,7 @@ pub fn arrhenius(a: &Analysis) -> Option<ReportFigure> {
             for (k, ea) in [(0, t.barrier_ev - u), (1, t.barrier_ev + u)] {
                 let model = hopmap::transport::HoppingModel {
                     barrier_ev: ea.max(0.0),
-                    ..m.clone()
+                    ..*m
                 };
                 let pts: Vec<(f64, f64)> = t
                     .arrhenius
