@@ -315,3 +315,31 @@ fn the_demo_index_has_a_figure_and_claims_only_what_its_numbers_show() {
         }
     }
 }
+
+#[test]
+fn the_report_capacity_section_is_rounded_and_names_electrolytes() {
+    let d = tmp("html-capacity");
+    for (file, must) in [
+        ("Li7La3Zr2O12_garnet.cif", "solid electrolyte"),
+        ("Li4Ti5O12_spinel.cif", "Ti4+/Ti3+"),
+    ] {
+        let report = d.join(format!("{file}.html"));
+        ok(&hopmap(&[
+            "paths",
+            &root(&format!("structures/reference/{file}")),
+            "--spacing",
+            "0.3",
+            "--quiet",
+            "--report",
+            report.to_str().unwrap(),
+        ]));
+        let html = std::fs::read_to_string(&report).unwrap();
+        let start = html.find("id=\"capacity\"").unwrap();
+        let end = start + html[start..].find("<h2").unwrap_or(html.len() - start);
+        let section = &html[start..end];
+        assert!(section.contains(must), "{file}: {section}");
+        // the Faraday constant is quoted to its CODATA digits on purpose
+        let leaks = raw_floats(&section.replace("96485.33212", ""));
+        assert!(leaks.is_empty(), "{file}: {leaks:?}");
+    }
+}
