@@ -667,7 +667,10 @@ pub fn read_symbol(s: &str) -> Option<SymbolReading> {
         None if lower.starts_with('d') => (Element::from_symbol("H")?, 1),
         None => return None,
     };
-    Some(SymbolReading::Atom(element, read_charge(&s[used..])))
+    Some(SymbolReading::Atom(
+        element,
+        crate::structure::read_charge(&s[used..]),
+    ))
 }
 
 /// Reads the element from a site label, for sites without a type symbol: as
@@ -687,28 +690,6 @@ pub fn read_label(label: &str) -> Option<SymbolReading> {
         return Some(SymbolReading::Atom(Element::from_symbol("O")?, None));
     }
     read_symbol(l)
-}
-
-/// `2+`, `+2`, `+`, `2.5+`, `-2` -> signed charge; anything else (a label's digits) -> None.
-fn read_charge(rest: &str) -> Option<f64> {
-    let (sign, mag) = if let Some(m) = rest.strip_suffix('+') {
-        (1.0, m)
-    } else if let Some(m) = rest.strip_suffix('-') {
-        (-1.0, m)
-    } else if let Some(m) = rest.strip_prefix('+') {
-        (1.0, m)
-    } else if let Some(m) = rest.strip_prefix('-') {
-        (-1.0, m)
-    } else {
-        return None;
-    };
-    if mag.is_empty() {
-        return Some(sign);
-    }
-    if !mag.bytes().all(|b| b.is_ascii_digit() || b == b'.') {
-        return None;
-    }
-    mag.parse::<f64>().ok().map(|m| sign * m)
 }
 
 fn read_site_rows(
