@@ -8,6 +8,7 @@
 
 use hopmap::analysis::{self, Analysis, AnalysisOptions};
 use hopmap::element::Element;
+use hopmap::transport::PRACTICAL_PARTICLE_MAX_UM;
 use hopmap_report::html::{self, esc, sci};
 use hopmap_report::output::write_atomic;
 use rayon::prelude::*;
@@ -91,14 +92,17 @@ pub struct DemoResult {
     /// Its direction [uvw], plane (hkl) or "3D".
     pub best_direction: String,
     pub best_barrier_ev: Option<f64>,
-    /// D at 298.15 K of that network (m^2/s).
+    /// D at 298.15 K of that network (m^2/s); None when no network has bulk transport.
     pub diffusion_m2_s: Option<f64>,
-    /// Largest particle diameter bulk diffusion charges at 10C (um).
+    /// Largest particle diameter bulk diffusion charges at 10C (um); None without bulk
+    /// transport.
     pub particle_10c_um: Option<f64>,
+    /// The same for the barrier plus and minus its uncertainty (low, high; um).
+    pub particle_10c_band_um: Option<(f64, f64)>,
     pub capacity_mah_g: Option<f64>,
     pub capacity_mah_cm3: Option<f64>,
-    /// True when the capacity shown is the site bound of an empty host (no redox bound).
-    pub capacity_is_site_bound: bool,
+    /// Why there is no capacity (a solid electrolyte), when there is none.
+    pub capacity_note: Option<String>,
     /// File name of the per-case report (relative to the output folder).
     pub report: String,
     pub seconds: f64,
@@ -158,19 +162,27 @@ pub fn read_embedded(s: &DemoStructure) -> Result<hopmap::structure::Structure, 
     hopmap::read::cif::structure_from_block(block, s.file).map_err(|e| e.to_string())
 }
 
-/// The comparison numbers of one analysis.
+/// The comparison numbers of one analysis. Only networks with bulk transport at room
+/// temperature (D above [`analysis::NO_BULK_TRANSPORT_M2_S`]) are ranked; the capacity is the
+/// analysis's own (none for a framework with no redox-active cation).
 pub fn summarise(a: &Analysis, report: String, seconds: f64) -> DemoResult {
-    let p = &a.percolation;
-    let barriers_ev = [1u8, 2, 3].map(|d| p.threshold(d).map(|t| t.barrier as f64));
-    let at_rate = |t: &analysis::ChannelTransport| {
-        hopmap::transport::rate_table(t.diffusion_m2_s, t.dimension, &[RANK_C_RATE])
+    let barriers_ev = [1u8, 2, 3].map(|d| {
+        a.summary
+            .networks
+            .iter()
+            .find(|n| n.dimension == d)
+            .map(|n| n.barrier_ev)
+    });
+    let at_rate = |d: f64, dim: u8| {
+        hopmap::transport::rate_table(d, dim, &[RANK_C_RATE])
             .ok()
             .and_then(|r| r.first().map(|r| r.max_particle_diameter_um))
     };
     let best = a
         .transport
         .iter()
-        .filter_map(|t| at_rate(t).map(|x| (t, x)))
+        .filter(|t| t.bulk_transport)
+        .filter_map(|t| at_rate(t.diffusion_m2_s, t.dimension).map(|x| (t, x)))
         .max_by(|x, y| x.1.total_cmp(&y.1));
     let best_direction = best
         .and_then(|(t, _)| {
@@ -189,38 +201,77 @@ pub fn summarise(a: &Analysis, report: String, seconds: f64) -> DemoResult {
                 .join(" "),
         })
         .unwrap_or_else(|| "-".into());
-    let (capacity_mah_g, capacity_mah_cm3, capacity_is_site_bound) = match &a.capacity {
-        Some(c) if c.redox_electrons_per_formula_unit > 0.0 => {
-            (Some(c.capacity_mah_g), c.capacity_mah_cm3, false)
-        }
-        Some(c) => match c.site_capacity_mah_g {
-            Some(q) => (
-                Some(q),
-                Some(hopmap::capacity::volumetric_capacity_mah_cm3(
-                    q,
-                    a.structure.density(),
-                )),
-                true,
-            ),
-            None => (None, None, false),
-        },
-        None => (None, None, false),
-    };
+    let particle_band = best.and_then(|(t, _)| {
+        let (lo, hi) = t.diffusion_band_m2_s?;
+        Some((at_rate(lo, t.dimension)?, at_rate(hi, t.dimension)?))
+    });
     DemoResult {
         headline: analysis::headline(a),
         answer: html::answer_sentence(a),
-        dimension: p.dimension,
+        dimension: a.summary.first().map(|n| n.dimension).unwrap_or(0),
         barriers_ev,
         best_dimension: best.map(|(t, _)| t.dimension),
         best_direction,
         best_barrier_ev: best.map(|(t, _)| t.barrier_ev),
         diffusion_m2_s: best.map(|(t, _)| t.diffusion_m2_s),
         particle_10c_um: best.map(|(_, x)| x),
-        capacity_mah_g,
-        capacity_mah_cm3,
-        capacity_is_site_bound,
+        particle_10c_band_um: particle_band,
+        capacity_mah_g: a
+            .capacity
+            .as_ref()
+            .map(|c| c.capacity_mah_g)
+            .filter(|q| *q > 0.0),
+        capacity_mah_cm3: a
+            .capacity
+            .as_ref()
+            .filter(|c| c.capacity_mah_g > 0.0)
+            .and_then(|c| c.capacity_mah_cm3),
+        capacity_note: a.capacity_note.clone(),
         report,
         seconds,
+    }
+}
+
+/// A particle size for people: "no bulk transport" when there is none, "over 100" beyond the
+/// size of electrode particles ([`hopmap::transport::PRACTICAL_PARTICLE_MAX_UM`]), else three
+/// significant figures.
+pub fn particle_text(x: Option<f64>) -> String {
+    match x {
+        None => "no bulk transport".into(),
+        Some(v) if v > PRACTICAL_PARTICLE_MAX_UM => format!("over {PRACTICAL_PARTICLE_MAX_UM:.0}"),
+        Some(v) => sig3(v),
+    }
+}
+
+/// The claim of the index page about the best case, made only from the numbers its table shows.
+pub fn particle_claim(x: &DemoResult) -> String {
+    let Some(p) = x.particle_10c_um else {
+        return "None of its networks carries bulk transport at room temperature on this model."
+            .into();
+    };
+    let band = x
+        .particle_10c_band_um
+        .filter(|(lo, _)| *lo <= PRACTICAL_PARTICLE_MAX_UM)
+        .map(|(lo, hi)| {
+            format!(
+                " ({} to {} µm for the barrier's ±{:.2} eV)",
+                particle_text(Some(lo)),
+                particle_text(Some(hi)),
+                analysis::BARRIER_UNCERTAINTY_EV
+            )
+        })
+        .unwrap_or_default();
+    if p > PRACTICAL_PARTICLE_MAX_UM {
+        format!(
+            "Bulk diffusion would fill particles larger than electrode particles are made \
+             (over {PRACTICAL_PARTICLE_MAX_UM:.0} µm){band} in a 10C charge: on this model the \
+             rate is set by the electrolyte and contacts, not by the framework."
+        )
+    } else {
+        format!(
+            "A particle up to {} µm across{band} charges by bulk diffusion at 10C.",
+            sig3(p)
+        )
     }
 }
 
@@ -292,6 +343,50 @@ fn barriers_text(b: &[Option<f64>; 3], sep: &str) -> String {
     }
 }
 
+/// The figure of the index page: barrier against capacity for every case that has both, a
+/// labelled point each, Li+ and Na+ apart. None when no case has both.
+pub fn index_figure(rows: &[DemoRow]) -> Option<String> {
+    use hopmap_plot::{Axis, Figure, LinePlot, MarkerSet, MarkerShape, colormap::categorical};
+    let mut plot = LinePlot::new(
+        Axis::linear("barrier", "eV"),
+        Axis::linear("capacity", "mAh/g"),
+    );
+    for (k, (ion, shape)) in [("Li", MarkerShape::Circle), ("Na", MarkerShape::Square)]
+        .into_iter()
+        .enumerate()
+    {
+        let points: Vec<(f64, f64, Option<String>)> = rows
+            .iter()
+            .filter(|r| r.ion == ion)
+            .filter_map(|r| {
+                let x = r.outcome.as_ref().ok()?;
+                Some((
+                    x.best_barrier_ev?,
+                    x.capacity_mah_g?,
+                    Some(r.structure.split('_').next().unwrap_or("").to_string()),
+                ))
+            })
+            .collect();
+        if !points.is_empty() {
+            plot.markers.push(MarkerSet {
+                legend: format!("{ion}+"),
+                shape,
+                colour: categorical(k),
+                points,
+            });
+        }
+    }
+    if plot.markers.is_empty() {
+        return None;
+    }
+    plot.legend = hopmap_plot::LegendPosition::TopRight;
+    Some(
+        Figure::lines(720.0, 420.0, plot)
+            .with_title("Barrier and capacity of the demo frameworks (invented)")
+            .to_svg(),
+    )
+}
+
 /// The index page of the study.
 pub fn index_page(rows: &[DemoRow]) -> String {
     let mut h = String::new();
@@ -306,18 +401,29 @@ pub fn index_page(rows: &[DemoRow]) -> String {
     {
         let _ = writeln!(
             h,
-            "<p class=\"answer\" id=\"answer\"><b>Best on this screen: {} ({}). {} A \
-                 particle up to {} µm across charges by bulk diffusion at 10C.</b></p>",
+            "<p class=\"answer\" id=\"answer\"><b>Best on this screen: {} ({}). {} {}</b></p>",
             esc(&top.structure),
             esc(&top.model),
             esc(&x.answer),
-            opt(x.particle_10c_um, sig3)
+            esc(&particle_claim(x))
         );
     }
     let mut o = String::new();
     let _ = writeln!(o, "<h2 id=\"scenario\">The scenario</h2>");
     let _ = writeln!(o, "<p>{}</p>", esc(SCENARIO));
     let _ = writeln!(o, "<div class=\"box warn\"><b>{}</b></div>", esc(INVENTED));
+    if let Some(svg) = index_figure(rows) {
+        let _ = writeln!(
+            o,
+            "<h2 id=\"overview\">Overview</h2>\n<figure id=\"fig-overview\">\n{svg}\n\
+             <figcaption>Figure 1. Barrier of the network with the best rate against the \
+             theoretical capacity, one point per framework and ion (Li+ circles, Na+ squares); \
+             frameworks without bulk transport at room temperature or without a capacity are \
+             listed in the table only. Barriers carry the model's uncertainty of ±{:.2} eV.\
+             </figcaption>\n</figure>",
+            analysis::BARRIER_UNCERTAINTY_EV
+        );
+    }
     let _ = writeln!(o, "<h2 id=\"ranking\">Ranking</h2>");
     let _ = writeln!(
         o,
@@ -325,9 +431,12 @@ pub fn index_page(rows: &[DemoRow]) -> String {
          10C charge (6 minutes), through the network with the best rate. Barriers are those of \
          the 1D, 2D and 3D networks of the site-energy landscape; D at 298.15 K from the hopping \
          model (attempt frequency 10<sup>13</sup> Hz, dilute limit). Capacity: the theoretical \
-         capacity when the structure holds the ion; for an empty host, the site bound (room for \
-         the ion on the reachable sites, no two closer than 2.3 Å), marked †. Click a structure \
-         for its full report.</p>"
+         capacity from the redox of the framework's cations (extraction when the structure holds \
+         the ion, insertion into an empty host), limited by the room on the reachable sites (no \
+         two ions closer than 2.3 Å); none for a framework without a redox-active cation. \
+         Particles larger than {PRACTICAL_PARTICLE_MAX_UM:.0} µm are given as \"over \
+         {PRACTICAL_PARTICLE_MAX_UM:.0}\": bulk diffusion does not limit the rate there. Click a \
+         structure for its full report.</p>"
     );
     o.push_str(
         "<table>\n<tr><th>rank</th><th>structure</th><th>ion</th><th>formula</th>\
@@ -341,7 +450,6 @@ pub fn index_page(rows: &[DemoRow]) -> String {
             Ok(x) => {
                 rank_no += 1;
                 let cls = if rank_no == 1 { " class=\"best\"" } else { "" };
-                let mark = if x.capacity_is_site_bound { " †" } else { "" };
                 let _ = writeln!(
                     o,
                     "<tr{cls}><td class=\"num\">{rank_no}</td><td><a href=\"{}\">{}</a><br>\
@@ -364,10 +472,12 @@ pub fn index_page(rows: &[DemoRow]) -> String {
                         .map(|d| format!("{d}D, {:.2} eV", x.best_barrier_ev.unwrap_or(0.0)))
                         .unwrap_or_else(|| "–".into()),
                     esc(&x.best_direction),
-                    opt(x.diffusion_m2_s, |v| sci(v, 2)),
-                    opt(x.particle_10c_um, sig3),
-                    opt(x.capacity_mah_g, |v| format!("{v:.1}{mark}")),
-                    opt(x.capacity_mah_cm3, |v| format!("{v:.0}{mark}")),
+                    x.diffusion_m2_s
+                        .map(|v| sci(v, 2))
+                        .unwrap_or_else(|| "no bulk transport".into()),
+                    particle_text(x.particle_10c_um),
+                    opt(x.capacity_mah_g, |v| format!("{v:.0}")),
+                    opt(x.capacity_mah_cm3, |v| format!("{v:.0}")),
                 );
             }
             Err(e) => {
@@ -441,20 +551,18 @@ pub fn terminal_summary(rows: &[DemoRow], index: &Path, seconds: f64) -> String 
                     r.ion,
                     barriers_text(&x.barriers_ev, " "),
                     x.best_direction,
-                    opt(x.diffusion_m2_s, |v| format!("{v:.2e}")),
-                    opt(x.particle_10c_um, |v| if v.abs() < 1e-3 {
-                        format!("{v:.2e}")
-                    } else {
-                        sig3(v)
-                    }),
-                    opt(x.capacity_mah_g, |v| format!(
-                        "{v:.1}{}",
-                        if x.capacity_is_site_bound {
-                            " (site)"
-                        } else {
-                            ""
-                        }
-                    )),
+                    x.diffusion_m2_s
+                        .map(|v| format!("{v:.1e}"))
+                        .unwrap_or_else(|| "none".into()),
+                    match x.particle_10c_um {
+                        None => "none".into(),
+                        p => particle_text(p),
+                    },
+                    match (&x.capacity_mah_g, &x.capacity_note) {
+                        (Some(q), _) => format!("{q:.0}"),
+                        (None, Some(_)) => "electrolyte".into(),
+                        (None, None) => "-".into(),
+                    },
                 );
             }
             Err(e) => {
@@ -554,9 +662,10 @@ mod tests {
                     best_barrier_ev: Some(0.3),
                     diffusion_m2_s: Some(1e-12),
                     particle_10c_um: Some(v),
+                    particle_10c_band_um: None,
                     capacity_mah_g: None,
                     capacity_mah_cm3: None,
-                    capacity_is_site_bound: false,
+                    capacity_note: None,
                     report: String::new(),
                     seconds: 0.0,
                 }),
@@ -567,5 +676,33 @@ mod tests {
         rank(&mut rows);
         let names: Vec<&str> = rows.iter().map(|r| r.structure.as_str()).collect();
         assert_eq!(names, ["c", "b", "a"]);
+    }
+
+    #[test]
+    fn particle_claims_stay_within_what_electrodes_hold() {
+        assert_eq!(particle_text(None), "no bulk transport");
+        assert_eq!(particle_text(Some(1256.0)), "over 100");
+        assert_eq!(particle_text(Some(8.63)), "8.63");
+        let mut x = DemoResult {
+            headline: String::new(),
+            answer: String::new(),
+            dimension: 1,
+            barriers_ev: [Some(0.3), None, None],
+            best_dimension: Some(1),
+            best_direction: "[001]".into(),
+            best_barrier_ev: Some(0.3),
+            diffusion_m2_s: Some(1e-10),
+            particle_10c_um: Some(1256.0),
+            particle_10c_band_um: Some((50.0, 9000.0)),
+            capacity_mah_g: None,
+            capacity_mah_cm3: None,
+            capacity_note: None,
+            report: String::new(),
+            seconds: 0.0,
+        };
+        let c = particle_claim(&x);
+        assert!(!c.contains("1256") && c.contains("over 100"), "{c}");
+        x.particle_10c_um = None;
+        assert!(particle_claim(&x).contains("bulk transport"));
     }
 }

@@ -15,6 +15,10 @@ use std::path::{Path, PathBuf};
 use std::sync::Mutex;
 
 /// One result row. Missing values (no 2D network, an error row) are `None`.
+///
+/// The row describes the networks the answer reports ([`hopmap::summary::Summary`]): its
+/// `dimension`, `direction` and `barrier_ev` are those of the network the answer leads with
+/// (the lowest), not of every network reached below the energy cap.
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct ScreenRow {
     pub file: String,
@@ -22,13 +26,31 @@ pub struct ScreenRow {
     pub formula: String,
     pub space_group: String,
     pub space_group_number: Option<u16>,
-    /// Highest dimensionality reached below the ceiling (0 = no percolating path).
+    /// Dimension of the network the answer leads with (0 = no percolating path).
     pub dimension: Option<u8>,
+    /// Its direction: `[uvw]` for 1D, plane normal `(hkl)` for 2D, empty for 3D.
+    pub direction: String,
+    /// Its barrier (eV) and the model's uncertainty of it (eV).
+    pub barrier_ev: Option<f64>,
+    pub barrier_uncertainty_ev: Option<f64>,
+    /// Barriers of the networks the answer reports, by dimension (a dimension folded into a
+    /// higher one is empty).
     pub barrier_1d_ev: Option<f64>,
     pub barrier_2d_ev: Option<f64>,
     pub barrier_3d_ev: Option<f64>,
-    /// Direction of the lowest channel: `[uvw]` for 1D, plane normal `(hkl)` for 2D.
-    pub direction: String,
+    /// D at 298.15 K (m^2/s) of that network and its band for the barrier's uncertainty;
+    /// empty without bulk transport.
+    pub diffusion_298k_m2_s: Option<f64>,
+    pub diffusion_low_m2_s: Option<f64>,
+    pub diffusion_high_m2_s: Option<f64>,
+    /// Nernst-Einstein conductivity at 298.15 K (S/cm) and its band.
+    pub conductivity_298k_s_cm: Option<f64>,
+    pub conductivity_low_s_cm: Option<f64>,
+    pub conductivity_high_s_cm: Option<f64>,
+    /// False when D lies below the floor of bulk transport (1e-20 m^2/s).
+    pub bulk_transport: Option<bool>,
+    /// Theoretical capacity (mAh/g); empty for a solid electrolyte.
+    pub capacity_mah_g: Option<f64>,
     pub sites: Option<usize>,
     pub valence_verdict: String,
     pub gii_vu: Option<f64>,
@@ -36,7 +58,8 @@ pub struct ScreenRow {
     pub error: String,
 }
 
-/// The columns of the CSV output, in order.
+/// The columns of the CSV output, in order; units are in the names (`_ev`, `_m2_s`, `_s_cm`,
+/// `_mah_g`, `_vu`).
 pub const COLUMNS: &[&str] = &[
     "file",
     "ion",
@@ -44,10 +67,20 @@ pub const COLUMNS: &[&str] = &[
     "space_group",
     "space_group_number",
     "dimension",
+    "direction",
+    "barrier_ev",
+    "barrier_uncertainty_ev",
     "barrier_1d_ev",
     "barrier_2d_ev",
     "barrier_3d_ev",
-    "direction",
+    "diffusion_298k_m2_s",
+    "diffusion_low_m2_s",
+    "diffusion_high_m2_s",
+    "conductivity_298k_s_cm",
+    "conductivity_low_s_cm",
+    "conductivity_high_s_cm",
+    "bulk_transport",
+    "capacity_mah_g",
     "sites",
     "valence_verdict",
     "gii_vu",
@@ -373,16 +406,28 @@ pub fn shard_jobs(
         .collect()
 }
 
-fn csv_field(s: &str) -> String {
-    if s.contains([',', '"', '\n', '\r']) {
-        format!("\"{}\"", s.replace('"', "\"\""))
-    } else {
-        s.to_string()
-    }
-}
-
 fn opt_num(x: Option<f64>, decimals: usize) -> String {
     x.map(|v| format!("{v:.decimals$}")).unwrap_or_default()
+}
+
+/// Two significant figures in scientific notation (D, conductivity): `2.6e-14`.
+fn opt_sci(x: Option<f64>) -> String {
+    x.map(|v| format!("{v:.1e}")).unwrap_or_default()
+}
+
+fn opt_bool(x: Option<bool>) -> String {
+    x.map(|b| if b { "yes" } else { "no" }.to_string())
+        .unwrap_or_default()
+}
+
+/// One CSV record with the csv crate's quoting, without the line end.
+fn csv_record(fields: &[String]) -> String {
+    let mut w = csv::WriterBuilder::new()
+        .terminator(csv::Terminator::Any(b'\n'))
+        .from_writer(Vec::new());
+    w.write_record(fields).expect("writing to memory");
+    let bytes = w.into_inner().expect("writing to memory");
+    String::from_utf8(bytes).expect("fields are text")
 }
 
 impl ScreenRow {
@@ -397,10 +442,20 @@ impl ScreenRow {
                 .map(|n| n.to_string())
                 .unwrap_or_default(),
             self.dimension.map(|n| n.to_string()).unwrap_or_default(),
+            self.direction.clone(),
+            opt_num(self.barrier_ev, 3),
+            opt_num(self.barrier_uncertainty_ev, 2),
             opt_num(self.barrier_1d_ev, 3),
             opt_num(self.barrier_2d_ev, 3),
             opt_num(self.barrier_3d_ev, 3),
-            self.direction.clone(),
+            opt_sci(self.diffusion_298k_m2_s),
+            opt_sci(self.diffusion_low_m2_s),
+            opt_sci(self.diffusion_high_m2_s),
+            opt_sci(self.conductivity_298k_s_cm),
+            opt_sci(self.conductivity_low_s_cm),
+            opt_sci(self.conductivity_high_s_cm),
+            opt_bool(self.bulk_transport),
+            opt_num(self.capacity_mah_g, 1),
             self.sites.map(|n| n.to_string()).unwrap_or_default(),
             self.valence_verdict.clone(),
             opt_num(self.gii_vu, 3),
@@ -409,9 +464,9 @@ impl ScreenRow {
         ]
     }
 
+    /// The row as one CSV line (newline included), quoted by the csv crate.
     pub fn to_csv_line(&self) -> String {
-        let f: Vec<String> = self.csv_fields().iter().map(|s| csv_field(s)).collect();
-        f.join(",") + "\n"
+        csv_record(&self.csv_fields())
     }
 
     /// The row as one JSON object (units in the key names).
@@ -419,39 +474,74 @@ impl ScreenRow {
         serde_json::json!({
             "file": self.file, "ion": self.ion, "formula": self.formula,
             "space_group": self.space_group, "space_group_number": self.space_group_number,
-            "dimension": self.dimension,
+            "dimension": self.dimension, "direction": self.direction,
+            "barrier_ev": self.barrier_ev, "barrier_uncertainty_ev": self.barrier_uncertainty_ev,
             "barrier_1d_ev": self.barrier_1d_ev, "barrier_2d_ev": self.barrier_2d_ev, "barrier_3d_ev": self.barrier_3d_ev,
-            "direction": self.direction, "sites": self.sites,
+            "diffusion_298k_m2_s": self.diffusion_298k_m2_s,
+            "diffusion_low_m2_s": self.diffusion_low_m2_s,
+            "diffusion_high_m2_s": self.diffusion_high_m2_s,
+            "conductivity_298k_s_cm": self.conductivity_298k_s_cm,
+            "conductivity_low_s_cm": self.conductivity_low_s_cm,
+            "conductivity_high_s_cm": self.conductivity_high_s_cm,
+            "bulk_transport": self.bulk_transport,
+            "capacity_mah_g": self.capacity_mah_g,
+            "sites": self.sites,
             "valence_verdict": self.valence_verdict, "gii_vu": self.gii_vu,
             "warnings": self.warnings, "error": self.error,
         })
     }
 
-    fn from_fields(f: &[String]) -> Option<ScreenRow> {
-        if f.len() != COLUMNS.len() {
+    /// A row from CSV fields named by a header; None without `file` and `ion`. Columns are
+    /// found by name, so tables written before a column was added still read.
+    fn from_record(header: &[String], f: &[String]) -> Option<ScreenRow> {
+        let get = |k: &str| -> &str {
+            header
+                .iter()
+                .position(|h| h == k)
+                .and_then(|i| f.get(i))
+                .map(|s| s.as_str())
+                .unwrap_or("")
+        };
+        let num = |k: &str| get(k).parse::<f64>().ok();
+        let file = get("file").to_string();
+        let ion = get("ion").to_string();
+        if file.is_empty() || ion.is_empty() {
             return None;
         }
-        let num = |s: &str| s.parse::<f64>().ok();
         Some(ScreenRow {
-            file: f[0].clone(),
-            ion: f[1].clone(),
-            formula: f[2].clone(),
-            space_group: f[3].clone(),
-            space_group_number: f[4].parse().ok(),
-            dimension: f[5].parse().ok(),
-            barrier_1d_ev: num(&f[6]),
-            barrier_2d_ev: num(&f[7]),
-            barrier_3d_ev: num(&f[8]),
-            direction: f[9].clone(),
-            sites: f[10].parse().ok(),
-            valence_verdict: f[11].clone(),
-            gii_vu: num(&f[12]),
-            warnings: if f[13].is_empty() {
+            file,
+            ion,
+            formula: get("formula").into(),
+            space_group: get("space_group").into(),
+            space_group_number: get("space_group_number").parse().ok(),
+            dimension: get("dimension").parse().ok(),
+            direction: get("direction").into(),
+            barrier_ev: num("barrier_ev"),
+            barrier_uncertainty_ev: num("barrier_uncertainty_ev"),
+            barrier_1d_ev: num("barrier_1d_ev"),
+            barrier_2d_ev: num("barrier_2d_ev"),
+            barrier_3d_ev: num("barrier_3d_ev"),
+            diffusion_298k_m2_s: num("diffusion_298k_m2_s"),
+            diffusion_low_m2_s: num("diffusion_low_m2_s"),
+            diffusion_high_m2_s: num("diffusion_high_m2_s"),
+            conductivity_298k_s_cm: num("conductivity_298k_s_cm"),
+            conductivity_low_s_cm: num("conductivity_low_s_cm"),
+            conductivity_high_s_cm: num("conductivity_high_s_cm"),
+            bulk_transport: match get("bulk_transport") {
+                "yes" => Some(true),
+                "no" => Some(false),
+                _ => None,
+            },
+            capacity_mah_g: num("capacity_mah_g"),
+            sites: get("sites").parse().ok(),
+            valence_verdict: get("valence_verdict").into(),
+            gii_vu: num("gii_vu"),
+            warnings: if get("warnings").is_empty() {
                 vec![]
             } else {
-                f[13].split("; ").map(String::from).collect()
+                get("warnings").split("; ").map(String::from).collect()
             },
-            error: f[14].clone(),
+            error: get("error").into(),
         })
     }
 
@@ -468,10 +558,20 @@ impl ScreenRow {
                 .and_then(|x| x.as_u64())
                 .map(|n| n as u16),
             dimension: v.get("dimension").and_then(|x| x.as_u64()).map(|n| n as u8),
+            direction: s("direction"),
+            barrier_ev: f("barrier_ev"),
+            barrier_uncertainty_ev: f("barrier_uncertainty_ev"),
             barrier_1d_ev: f("barrier_1d_ev"),
             barrier_2d_ev: f("barrier_2d_ev"),
             barrier_3d_ev: f("barrier_3d_ev"),
-            direction: s("direction"),
+            diffusion_298k_m2_s: f("diffusion_298k_m2_s"),
+            diffusion_low_m2_s: f("diffusion_low_m2_s"),
+            diffusion_high_m2_s: f("diffusion_high_m2_s"),
+            conductivity_298k_s_cm: f("conductivity_298k_s_cm"),
+            conductivity_low_s_cm: f("conductivity_low_s_cm"),
+            conductivity_high_s_cm: f("conductivity_high_s_cm"),
+            bulk_transport: v.get("bulk_transport").and_then(|x| x.as_bool()),
+            capacity_mah_g: f("capacity_mah_g"),
             sites: v.get("sites").and_then(|x| x.as_u64()).map(|n| n as usize),
             valence_verdict: s("valence_verdict"),
             gii_vu: f("gii_vu"),
@@ -494,8 +594,6 @@ impl ScreenRow {
     }
 }
 
-use hopmap::csv_record::split_csv_record;
-
 /// Reads the complete rows of a table written by [`run_batch`]; an incomplete last line (no
 /// newline: the run was interrupted while writing it) is ignored.
 pub fn read_table(path: &Path) -> std::io::Result<Vec<ScreenRow>> {
@@ -508,23 +606,32 @@ pub fn read_table(path: &Path) -> std::io::Result<Vec<ScreenRow>> {
     let mut rows = Vec::new();
     match format {
         TableFormat::Csv => {
-            // records may contain quoted newlines: join physical lines until quotes balance
-            let mut pending = String::new();
-            for (n, line) in complete.lines().enumerate() {
-                if !pending.is_empty() {
-                    pending.push('\n');
-                }
-                pending.push_str(line);
-                match split_csv_record(&pending) {
-                    Some(fields) => {
-                        if !(n == 0 && fields.first().map(|s| s.as_str()) == Some("file"))
-                            && let Some(r) = ScreenRow::from_fields(&fields)
-                        {
-                            rows.push(r);
+            let mut r = csv::ReaderBuilder::new()
+                .has_headers(false)
+                .flexible(true)
+                .from_reader(complete.as_bytes());
+            let mut header: Option<Vec<String>> = None;
+            for rec in r.records() {
+                // an unclosed quote at the end is the interrupted last record
+                let Ok(rec) = rec else { break };
+                let fields: Vec<String> = rec.iter().map(String::from).collect();
+                match &header {
+                    None => {
+                        if fields.first().map(|s| s.as_str()) == Some("file") {
+                            header = Some(fields);
+                            continue;
                         }
-                        pending.clear();
+                        header = Some(COLUMNS.iter().map(|s| s.to_string()).collect());
+                        if let Some(row) = ScreenRow::from_record(header.as_ref().unwrap(), &fields)
+                        {
+                            rows.push(row);
+                        }
                     }
-                    None => continue,
+                    Some(h) => {
+                        if let Some(row) = ScreenRow::from_record(h, &fields) {
+                            rows.push(row);
+                        }
+                    }
                 }
             }
         }
@@ -547,8 +654,9 @@ pub fn read_table(path: &Path) -> std::io::Result<Vec<ScreenRow>> {
 pub fn render_table(rows: &[ScreenRow], format: TableFormat) -> String {
     let mut s = String::new();
     if format == TableFormat::Csv {
-        s.push_str(&COLUMNS.join(","));
-        s.push('\n');
+        s.push_str(&csv_record(
+            &COLUMNS.iter().map(|c| c.to_string()).collect::<Vec<_>>(),
+        ));
     }
     for r in rows {
         match format {
@@ -678,9 +786,25 @@ where
     Ok((summary.into_inner().unwrap(), existing))
 }
 
+/// What a merge did: the joined rows, and the jobs that came more than once (file, ion, how
+/// many rows were dropped), so that the caller can say so.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct Merged {
+    pub rows: Vec<ScreenRow>,
+    pub dropped: Vec<(String, String, usize)>,
+}
+
+impl Merged {
+    /// Rows dropped as duplicates, in all.
+    pub fn dropped_rows(&self) -> usize {
+        self.dropped.iter().map(|d| d.2).sum()
+    }
+}
+
 /// Joins shard outputs into one table sorted by (file, ion); a job present in several inputs is
-/// kept once (the first non-error row wins).
-pub fn merge_tables(inputs: &[PathBuf]) -> Result<Vec<ScreenRow>, String> {
+/// kept once (the first non-error row wins, in the order of the inputs) and the duplicates
+/// dropped are listed in [`Merged::dropped`].
+pub fn merge_tables(inputs: &[PathBuf]) -> Result<Merged, String> {
     let mut all: Vec<ScreenRow> = Vec::new();
     for p in inputs {
         let format = TableFormat::of(p)?;
@@ -694,50 +818,61 @@ pub fn merge_tables(inputs: &[PathBuf]) -> Result<Vec<ScreenRow>, String> {
         check_table(p, format)?;
         all.extend(read_table(p).map_err(|e| format!("cannot read {}: {e}", p.display()))?);
     }
+    // stable: among rows of one job, non-error rows first, then input order
     all.sort_by(|a, b| {
         a.key()
             .cmp(&b.key())
             .then(a.error.is_empty().cmp(&b.error.is_empty()).reverse())
     });
-    all.dedup_by(|b, a| a.key() == b.key());
-    Ok(all)
+    let mut out = Merged::default();
+    for r in all {
+        match out.rows.last() {
+            Some(last) if last.key() == r.key() => match out.dropped.last_mut() {
+                Some(d) if d.0 == r.file && d.1 == r.ion => d.2 += 1,
+                _ => out.dropped.push((r.file.clone(), r.ion.clone(), 1)),
+            },
+            _ => out.rows.push(r),
+        }
+    }
+    Ok(out)
 }
 
-/// A terminal table of the rows, best first: highest dimensionality, then lowest barrier of it.
+/// A terminal table of the rows, best first: rows with a percolating network by the barrier of
+/// the network the answer leads with, lowest first; then rows without one; error rows last.
+/// Units are in the header.
 pub fn sorted_view(rows: &[ScreenRow]) -> String {
     let mut v: Vec<&ScreenRow> = rows.iter().collect();
-    let best = |r: &ScreenRow| -> (i32, f64) {
-        let d = r.dimension.unwrap_or(0) as i32;
-        let b = match d {
-            3 => r.barrier_3d_ev,
-            2 => r.barrier_2d_ev,
-            1 => r.barrier_1d_ev,
-            _ => None,
-        };
-        (-d, b.unwrap_or(f64::INFINITY))
+    let best = |r: &ScreenRow| -> f64 {
+        match r.dimension {
+            Some(d) if d > 0 => r.barrier_ev.unwrap_or(f64::INFINITY),
+            _ => f64::INFINITY,
+        }
     };
     v.sort_by(|a, b| {
-        let (da, ba) = best(a);
-        let (db, bb) = best(b);
         (a.error.is_empty().cmp(&b.error.is_empty()).reverse())
-            .then(da.cmp(&db))
-            .then(ba.total_cmp(&bb))
+            .then(best(a).total_cmp(&best(b)))
             .then(a.key().cmp(&b.key()))
     });
-    let mut s = format!(
-        "{:<36} {:<4} {:<16} {:<12} {:>3} {:>10} {:>10} {:>10} {:<9} {:>5} {:<10}\n",
+    let line = |c: [&str; 12]| {
+        format!(
+            "{:<32} {:<4} {:<16} {:<11} {:>3} {:<9} {:>14} {:>11} {:>11} {:>10} {:>5} {:<10}\n",
+            c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7], c[8], c[9], c[10], c[11]
+        )
+    };
+    let mut s = line([
         "file",
         "ion",
         "formula",
         "space group",
         "dim",
-        "Ea1D (eV)",
-        "Ea2D (eV)",
-        "Ea3D (eV)",
         "direction",
+        "barrier (eV)",
+        "D (m^2/s)",
+        "sigma (S/cm)",
+        "Q (mAh/g)",
         "sites",
-        "valence"
-    );
+        "valence",
+    ]);
     for r in v {
         let name = Path::new(&r.file)
             .file_name()
@@ -746,32 +881,50 @@ pub fn sorted_view(rows: &[ScreenRow]) -> String {
             .to_string();
         if !r.error.is_empty() {
             s.push_str(&format!(
-                "{:<36} {:<4} error: {}\n",
-                truncate(&name, 36),
+                "{:<32} {:<4} error: {}\n",
+                truncate(&name, 32),
                 r.ion,
                 r.error
             ));
             continue;
         }
-        let f = |x: Option<f64>| x.map(|v| format!("{v:.3}")).unwrap_or_else(|| "-".into());
-        s.push_str(&format!(
-            "{:<36} {:<4} {:<16} {:<12} {:>3} {:>10} {:>10} {:>10} {:<9} {:>5} {:<10}\n",
-            truncate(&name, 36),
-            r.ion,
-            truncate(&r.formula, 16),
-            truncate(&r.space_group, 12),
-            r.dimension
-                .map(|d| d.to_string())
-                .unwrap_or_else(|| "-".into()),
-            f(r.barrier_1d_ev),
-            f(r.barrier_2d_ev),
-            f(r.barrier_3d_ev),
-            r.direction,
-            r.sites.map(|n| n.to_string()).unwrap_or_else(|| "-".into()),
-            r.valence_verdict
-        ));
+        let dash = || "-".to_string();
+        let barrier = match (r.barrier_ev, r.barrier_uncertainty_ev) {
+            (Some(b), Some(u)) => format!("{b:.2} ± {u:.2}"),
+            (Some(b), None) => format!("{b:.2}"),
+            _ => dash(),
+        };
+        let no_bulk = r.bulk_transport == Some(false) && r.dimension.unwrap_or(0) > 0;
+        let sci = |x: Option<f64>| match x {
+            Some(v) => format!("{v:.1e}"),
+            None if no_bulk => "none".into(),
+            None => dash(),
+        };
+        s.push_str(&line([
+            &truncate(&name, 32),
+            &r.ion,
+            &truncate(&r.formula, 16),
+            &truncate(&r.space_group, 11),
+            &r.dimension.map(|d| d.to_string()).unwrap_or_else(dash),
+            &r.direction,
+            &barrier,
+            &sci(r.diffusion_298k_m2_s),
+            &sci(r.conductivity_298k_s_cm),
+            &r.capacity_mah_g
+                .map(|q| format!("{q:.0}"))
+                .unwrap_or_else(dash),
+            &r.sites.map(|n| n.to_string()).unwrap_or_else(dash),
+            &r.valence_verdict,
+        ]));
+    }
+    if v_has_no_bulk(rows) {
+        s.push_str("  D and sigma at 298.15 K; 'none': no bulk transport (D below 1e-20 m^2/s)\n");
     }
     s
+}
+
+fn v_has_no_bulk(rows: &[ScreenRow]) -> bool {
+    rows.iter().any(|r| r.bulk_transport == Some(false))
 }
 
 fn truncate(s: &str, n: usize) -> String {
@@ -806,7 +959,12 @@ mod tests {
             ion: ion.into(),
             formula: "LiX, \"odd\"".into(),
             dimension: Some(1),
+            barrier_ev: Some(name.len() as f64 / 100.0),
+            barrier_uncertainty_ev: Some(0.15),
             barrier_1d_ev: Some(name.len() as f64 / 100.0),
+            diffusion_298k_m2_s: Some(2.6e-14),
+            bulk_transport: Some(true),
+            capacity_mah_g: Some(169.9),
             direction: "[001]".into(),
             warnings: vec!["a warning".into(), "another".into()],
             ..Default::default()
@@ -873,6 +1031,8 @@ mod tests {
                 parts.push(p);
             }
             let merged = merge_tables(&parts).unwrap();
+            assert!(merged.dropped.is_empty(), "disjoint shards drop nothing");
+            let merged = merged.rows;
             assert_eq!(merged, read_table(&single).unwrap());
             assert_eq!(merged.len(), 14);
             assert_eq!(
@@ -905,8 +1065,56 @@ mod tests {
 
     #[test]
     fn csv_quoting_round_trips() {
+        let d = tmp("quoting");
+        let out = d.join("q.csv");
         let r = fake(Path::new("x/y, z.cif"), "Li");
-        let fields = split_csv_record(r.to_csv_line().trim_end()).unwrap();
-        assert_eq!(ScreenRow::from_fields(&fields).unwrap(), r);
+        std::fs::write(
+            &out,
+            render_table(std::slice::from_ref(&r), TableFormat::Csv),
+        )
+        .unwrap();
+        assert_eq!(read_table(&out).unwrap(), vec![r]);
+    }
+
+    #[test]
+    fn the_csv_header_carries_units_and_reads_back_by_name() {
+        let header = render_table(&[], TableFormat::Csv);
+        for col in [
+            "diffusion_298k_m2_s",
+            "conductivity_298k_s_cm",
+            "capacity_mah_g",
+            "barrier_ev",
+        ] {
+            assert!(header.contains(col), "{col} missing from {header}");
+        }
+        // a table of an older layout (fewer columns) still reads, by column name
+        let d = tmp("old-layout");
+        let out = d.join("old.csv");
+        std::fs::write(&out, "file,ion,dimension,barrier_1d_ev\na.cif,Li,1,0.40\n").unwrap();
+        let rows = read_table(&out).unwrap();
+        assert_eq!(rows.len(), 1);
+        assert_eq!(rows[0].barrier_1d_ev, Some(0.40));
+    }
+
+    #[test]
+    fn merge_lists_the_duplicates_it_drops() {
+        let d = tmp("dupes");
+        let a = d.join("a.csv");
+        let b = d.join("b.csv");
+        let row = fake(Path::new("dir/s01.cif"), "Li");
+        let other = fake(Path::new("dir/s02.cif"), "Li");
+        std::fs::write(&a, render_table(&[row.clone(), other], TableFormat::Csv)).unwrap();
+        std::fs::write(
+            &b,
+            render_table(std::slice::from_ref(&row), TableFormat::Csv),
+        )
+        .unwrap();
+        let m = merge_tables(&[a, b]).unwrap();
+        assert_eq!(m.rows.len(), 2);
+        assert_eq!(
+            m.dropped,
+            vec![("dir/s01.cif".to_string(), "Li".to_string(), 1)]
+        );
+        assert_eq!(m.dropped_rows(), 1);
     }
 }

@@ -254,11 +254,19 @@ fn figures_have_axis_labels_with_units() {
         } else if f.name.starts_with("profile") {
             assert!(has("Path length (Å)"), "{}", f.name);
             assert!(has("Site energy (eV)"), "{}", f.name);
+        } else if f.name == "arrhenius" {
+            assert!(has("1000/T (1/K)"), "{}", f.name);
+            assert!(has("D (m²/s)"), "{}", f.name);
+            assert!(has("no bulk transport below this D"), "{}", f.name);
         } else {
             assert!(has("C-rate (1/h)"), "{}", f.name);
             assert!(has("(µm)"), "{}", f.name);
         }
     }
+    assert!(
+        figs.iter().any(|f| f.name == "arrhenius"),
+        "an Arrhenius figure beside the table"
+    );
     let list = html::figures(olivine());
     assert_eq!(list.len(), figs.len());
 }

@@ -169,6 +169,76 @@ pub const CATEGORICAL: [Rgb; 8] = [
     Rgb::new(0x00, 0x00, 0x00), // black
 ];
 
+/// hopmap's own colour for an element, the same in every figure whatever else is drawn: a
+/// fixed table for the anions and the cations common in ion conductors and electrodes (anions
+/// in warm reds and yellows, alkali and alkaline-earth ions in purples, 3d metals in blues and
+/// teals, 4d/5d metals in greens, p-block cations in browns), and for any other element a
+/// colour picked from [`ELEMENT_FALLBACK`] by its symbol, so it never depends on which elements
+/// share a figure. None of these is white, which marks sites.
+pub fn element_colour(symbol: &str) -> Rgb {
+    let fixed = match symbol {
+        // anions
+        "O" => Some(Rgb::new(0xc4, 0x3c, 0x2f)),
+        "S" => Some(Rgb::new(0xe0, 0xb0, 0x1c)),
+        "Se" => Some(Rgb::new(0xb8, 0x6b, 0x1e)),
+        "Te" => Some(Rgb::new(0x8a, 0x4b, 0x14)),
+        "F" => Some(Rgb::new(0x9c, 0xd0, 0x5a)),
+        "Cl" => Some(Rgb::new(0x4f, 0x9a, 0x3c)),
+        "Br" => Some(Rgb::new(0x9b, 0x3a, 0x54)),
+        "I" => Some(Rgb::new(0x6a, 0x2c, 0x70)),
+        "N" => Some(Rgb::new(0x3b, 0x5b, 0xa5)),
+        "H" => Some(Rgb::new(0xd9, 0xd9, 0xd9)),
+        // mobile and large cations
+        "Li" => Some(Rgb::new(0xa3, 0x7c, 0xd6)),
+        "Na" => Some(Rgb::new(0x7e, 0x57, 0xc2)),
+        "K" => Some(Rgb::new(0x5e, 0x35, 0xb1)),
+        "Mg" => Some(Rgb::new(0xd0, 0x8f, 0xc8)),
+        "Ca" => Some(Rgb::new(0xb0, 0x5f, 0xa8)),
+        "Ag" => Some(Rgb::new(0xa0, 0xa4, 0xab)),
+        "Cu" => Some(Rgb::new(0xc9, 0x7b, 0x4a)),
+        "Zn" => Some(Rgb::new(0x8d, 0x9d, 0xb6)),
+        "Al" => Some(Rgb::new(0xb5, 0xa6, 0x8e)),
+        "La" => Some(Rgb::new(0x4c, 0xa9, 0x9b)),
+        // 3d metals
+        "Ti" => Some(Rgb::new(0x6f, 0x8f, 0xaf)),
+        "V" => Some(Rgb::new(0x45, 0x7b, 0x9d)),
+        "Cr" => Some(Rgb::new(0x2e, 0x86, 0xab)),
+        "Mn" => Some(Rgb::new(0x1d, 0x5f, 0x8a)),
+        "Fe" => Some(Rgb::new(0x27, 0x40, 0x6e)),
+        "Co" => Some(Rgb::new(0x20, 0x8e, 0xa3)),
+        "Ni" => Some(Rgb::new(0x2a, 0xa1, 0x98)),
+        // 4d/5d metals
+        "Zr" => Some(Rgb::new(0x5a, 0x8f, 0x5a)),
+        "Nb" => Some(Rgb::new(0x3f, 0x7f, 0x4f)),
+        "Mo" => Some(Rgb::new(0x2f, 0x6b, 0x45)),
+        "W" => Some(Rgb::new(0x24, 0x55, 0x3a)),
+        // p-block cations
+        "P" => Some(Rgb::new(0xe0, 0x7b, 0x39)),
+        "Si" => Some(Rgb::new(0xa0, 0x78, 0x5a)),
+        "Ge" => Some(Rgb::new(0x8c, 0x65, 0x4a)),
+        "Sn" => Some(Rgb::new(0x7a, 0x6a, 0x58)),
+        "Sb" => Some(Rgb::new(0x96, 0x5a, 0x3c)),
+        "B" => Some(Rgb::new(0xc8, 0x9a, 0x78)),
+        _ => None,
+    };
+    fixed.unwrap_or_else(|| {
+        let h = symbol
+            .bytes()
+            .fold(0usize, |h, b| h.wrapping_mul(31).wrapping_add(b as usize));
+        ELEMENT_FALLBACK[h % ELEMENT_FALLBACK.len()]
+    })
+}
+
+/// Colours of elements outside the fixed table of [`element_colour`].
+pub const ELEMENT_FALLBACK: [Rgb; 6] = [
+    Rgb::new(0x7f, 0x7f, 0x3f),
+    Rgb::new(0x5f, 0x7f, 0x7f),
+    Rgb::new(0x9f, 0x6f, 0x8f),
+    Rgb::new(0x6f, 0x6f, 0x9f),
+    Rgb::new(0x8f, 0x8f, 0x6f),
+    Rgb::new(0x7f, 0x5f, 0x5f),
+];
+
 /// The i-th categorical colour, cycling.
 pub fn categorical(i: usize) -> Rgb {
     CATEGORICAL[i % CATEGORICAL.len()]

@@ -11,11 +11,11 @@
 //! and whether values were clamped. An orientation key under the map shows the directions of u
 //! and v with their labels and a scale bar in A.
 
-use super::colormap::{Clamp, Colormap, Rgb, ValueScale, categorical};
+use super::colormap::{Clamp, Colormap, Rgb, ValueScale, element_colour};
 use super::svg::{Anchor, Style, Svg, escape_xml, num};
 use super::{
     Area, FONT, INK, LegendGlyph, MarkerShape, draw_legend_at, draw_marker, linear_ticks,
-    nice_number, nice_step,
+    nice_number, nice_step, text_width,
 };
 use std::fmt::Write;
 
@@ -57,7 +57,21 @@ pub struct HeatMap {
     pub unit: String,
     pub atoms: Vec<AtomMarker>,
     pub marker_sets: Vec<FracMarkerSet>,
+    /// Fractional length of the lattice vector drawn along u (and v): 1 for one cell, 2 when
+    /// the vector is drawn twice; the edge ticks are labelled in these units.
+    pub u_frac_span: f64,
+    pub v_frac_span: f64,
+    /// Fractional coordinate at the cell's origin corner along u (and v), e.g. 0.25 for a
+    /// slice that starts at x = 0.25; the edge ticks read `start + t x span`.
+    pub u_frac_start: f64,
+    pub v_frac_start: f64,
 }
+
+/// Font sizes of the map (px at the figure's own size; figures are drawn 560-900 px wide and
+/// shown at that size or larger, so nothing on them is smaller than 11 px).
+const LABEL_FONT: f64 = 12.0;
+const TICK_FONT: f64 = 12.0;
+const NOTE_FONT: f64 = 11.0;
 
 impl HeatMap {
     /// A heat map with viridis, an automatic scale and no overlays. Values shorter than
@@ -84,6 +98,10 @@ impl HeatMap {
             unit: "eV".into(),
             atoms: Vec::new(),
             marker_sets: Vec::new(),
+            u_frac_span: 1.0,
+            v_frac_span: 1.0,
+            u_frac_start: 0.0,
+            v_frac_start: 0.0,
         }
     }
 
@@ -112,11 +130,12 @@ impl HeatMap {
 
     pub(crate) fn draw(&self, svg: &mut Svg, frame: Area) {
         let right = 150.0;
-        let key_h = 70.0;
+        // room below the map for the u ticks and the orientation key, left of it for the v ticks
+        let key_h = 86.0;
         let area = Area {
-            x: frame.x + 14.0,
+            x: frame.x + 44.0,
             y: frame.y + 6.0,
-            w: (frame.w - right - 28.0).max(10.0),
+            w: (frame.w - right - 58.0).max(10.0),
             h: (frame.h - key_h - 12.0).max(10.0),
         };
         let [ux, uy] = self.u_vector_a;
@@ -221,12 +240,7 @@ impl HeatMap {
             }
         }
         elements.sort();
-        let element_colour = |e: &str| {
-            let i = elements.iter().position(|x| x == e).unwrap_or(0);
-            // Skip the first categorical colour (blue) for atoms: it is close to the map's
-            // dark end; cycle through the rest.
-            categorical(1 + i % 7)
-        };
+        // each element keeps its own colour in every figure (colormap::element_colour)
         for a in &self.atoms {
             for f in periodic_images(a.frac) {
                 let (x, y) = to_px(f);
@@ -238,15 +252,86 @@ impl HeatMap {
                 );
             }
         }
+        // labels are placed only where they do not overlap a label already drawn
+        let mut placed: Vec<(f64, f64, f64)> = Vec::new();
         for m in &self.marker_sets {
             for (f, label) in &m.points {
                 for g in periodic_images(*f) {
                     let (x, y) = to_px(g);
                     draw_marker(svg, x, y, m.shape, 10.0, m.colour, INK);
                     if let Some(l) = label {
-                        svg.text(x + 7.0, y - 7.0, l, FONT - 2.0, Anchor::Start, INK, None);
+                        let w = text_width(l, LABEL_FONT);
+                        let (lx, ly) = (x + 7.0, y - 7.0);
+                        let free = placed.iter().all(|&(px, py, pw)| {
+                            (ly - py).abs() >= LABEL_FONT + 1.0
+                                || lx + w + 2.0 <= px
+                                || px + pw + 2.0 <= lx
+                        });
+                        if free {
+                            svg.text(lx, ly, l, LABEL_FONT, Anchor::Start, INK, None);
+                            placed.push((lx, ly, w));
+                        }
                     }
                 }
+            }
+        }
+
+        // Fractional-coordinate ticks along the u and v edges of the cell.
+        for k in 0..=4 {
+            let t = k as f64 / 4.0;
+            let shown = |start: f64, span: f64| {
+                let v = start + t * span;
+                let r = (v * 1000.0).round() / 1000.0;
+                if r == r.trunc() {
+                    format!("{r:.0}")
+                } else {
+                    format!("{r}")
+                }
+            };
+            // ticks point away from the cell, a fixed number of pixels long, whatever the cell
+            let away = |from: [f64; 2], to: [f64; 2]| {
+                let (a, b) = (to_px(from), to_px(to));
+                let (dx, dy) = (b.0 - a.0, b.1 - a.1);
+                let n = (dx * dx + dy * dy).sqrt().max(1e-9);
+                (dx / n, dy / n)
+            };
+            for (p, d, label) in [
+                // u edge (v = 0): away from the v direction
+                (
+                    to_px([t, 0.0]),
+                    away([0.0, 1.0], [0.0, 0.0]),
+                    shown(self.u_frac_start, self.u_frac_span),
+                ),
+                // v edge (u = 0): away from the u direction
+                (
+                    to_px([0.0, t]),
+                    away([1.0, 0.0], [0.0, 0.0]),
+                    shown(self.v_frac_start, self.v_frac_span),
+                ),
+            ] {
+                svg.line(
+                    p.0,
+                    p.1,
+                    p.0 + 5.0 * d.0,
+                    p.1 + 5.0 * d.1,
+                    &Style::stroke(INK, 1.0),
+                );
+                let (lx, ly) = (p.0 + 9.0 * d.0, p.1 + 9.0 * d.1);
+                let anchor = if d.0 < -0.5 {
+                    Anchor::End
+                } else if d.0 > 0.5 {
+                    Anchor::Start
+                } else {
+                    Anchor::Middle
+                };
+                let dy = if d.1 > 0.5 {
+                    TICK_FONT
+                } else if d.1 < -0.5 {
+                    -2.0
+                } else {
+                    TICK_FONT * 0.35
+                };
+                svg.text(lx, ly + dy, &label, TICK_FONT, anchor, INK, None);
             }
         }
 
@@ -296,7 +381,7 @@ impl HeatMap {
                 bx + bw + 7.0,
                 y + 4.0,
                 &t.label,
-                FONT - 2.0,
+                TICK_FONT,
                 Anchor::Start,
                 INK,
                 None,
@@ -309,8 +394,8 @@ impl HeatMap {
         };
         let mut note_y = by + bh + 16.0;
         let mut note = |svg: &mut Svg, text: &str| {
-            svg.text(bx, note_y, text, FONT - 3.0, Anchor::Start, INK, None);
-            note_y += FONT;
+            svg.text(bx, note_y, text, NOTE_FONT, Anchor::Start, INK, None);
+            note_y += NOTE_FONT + 3.0;
         };
         note(svg, &format!("{}, linear scale", self.colormap.name()));
         note(

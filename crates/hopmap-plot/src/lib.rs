@@ -24,7 +24,7 @@ use svg::{Anchor, Style, Svg};
 
 pub(crate) const INK: Rgb = Rgb::new(0x22, 0x22, 0x22);
 pub(crate) const GRID: Rgb = Rgb::new(0xe4, 0xe4, 0xe4);
-pub(crate) const FONT: f64 = 12.0;
+pub(crate) const FONT: f64 = 13.0;
 
 /// A figure: size in pixels (SVG user units), an optional title, and its content.
 #[derive(Debug, Clone)]

@@ -312,7 +312,7 @@ impl Svg {
             colour.hex(),
             escape_xml(base),
             num(-size * 0.4),
-            num(size * 0.75),
+            num((size * 0.85).max(11.0)),
             escape_xml(sup)
         ));
     }

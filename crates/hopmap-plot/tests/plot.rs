@@ -366,3 +366,97 @@ fn xml_escaping_covers_the_five_predefined_entities() {
     );
     assert_eq!(d.root_element().text(), Some("<a href=\"x\">'&'</a>"));
 }
+
+/// The fill colours of the circles drawn for atoms (radius 5), by the order they appear.
+fn atom_fills(svg: &str) -> Vec<String> {
+    let doc = roxmltree::Document::parse(svg).unwrap();
+    doc.descendants()
+        .filter(|n| n.tag_name().name() == "circle" && n.attribute("r") == Some("5"))
+        .filter_map(|n| n.attribute("fill").map(String::from))
+        .collect()
+}
+
+fn square_map(elements: &[&str]) -> HeatMap {
+    let mut map = HeatMap::new(vec![0.0; 16], 4, 4, [4.0, 0.0], [0.0, 4.0]);
+    map.atoms = elements
+        .iter()
+        .enumerate()
+        .map(|(i, e)| AtomMarker {
+            frac: [0.2 + 0.2 * i as f64, 0.5],
+            element: e.to_string(),
+        })
+        .collect();
+    map
+}
+
+#[test]
+fn an_element_keeps_its_colour_whatever_else_shares_the_figure() {
+    // O alone, O with Fe, O with Fe, P and Li: the O circles have one colour in all three, and
+    // O and Fe never share one (they did when colours followed legend order).
+    let o_alone = atom_fills(&Figure::heatmap(600.0, 400.0, square_map(&["O"])).to_svg());
+    let o_fe = atom_fills(&Figure::heatmap(600.0, 400.0, square_map(&["O", "Fe"])).to_svg());
+    let many =
+        atom_fills(&Figure::heatmap(600.0, 400.0, square_map(&["Li", "Fe", "P", "O"])).to_svg());
+    assert_eq!(o_alone[0], o_fe[0]);
+    assert_eq!(o_fe[0], many[3]);
+    assert_ne!(o_fe[0], o_fe[1], "O and Fe share a colour");
+    assert_eq!(o_fe[1], many[1], "Fe changes colour with company");
+    // every element of a phosphate cathode and of a thiophosphate electrolyte is distinct
+    for set in [
+        ["Li", "Fe", "P", "O"],
+        ["Li", "P", "S", "Cl"],
+        ["Na", "Co", "O", "Mn"],
+    ] {
+        let colours: std::collections::BTreeSet<String> = set
+            .iter()
+            .map(|e| hopmap_plot::colormap::element_colour(e).hex())
+            .collect();
+        assert_eq!(colours.len(), set.len(), "{set:?}");
+    }
+}
+
+#[test]
+fn slices_carry_fractional_ticks_and_readable_text_without_overlapping_labels() {
+    let mut map = square_map(&["O"]);
+    map.u_frac_start = 0.25;
+    // many labelled sites close together: only labels that fit are drawn
+    map.marker_sets = vec![FracMarkerSet {
+        legend: "sites".into(),
+        shape: MarkerShape::Diamond,
+        colour: Rgb::new(255, 255, 255),
+        points: (0..12)
+            .map(|i| ([0.3 + 0.01 * i as f64, 0.3], Some(format!("S{i}"))))
+            .collect(),
+    }];
+    let svg = Figure::heatmap(640.0, 480.0, map).to_svg();
+    dump("heatmap-ticks", &svg);
+    let texts = parse_texts(&svg);
+    // u ticks start at x = 0.25; v ticks at 0 .. 1
+    for t in ["0.25", "0.5", "0.75", "1", "1.25", "0"] {
+        assert!(texts.iter().any(|x| x == t), "tick {t} missing: {texts:?}");
+    }
+    let doc = roxmltree::Document::parse(&svg).unwrap();
+    let mut labels: Vec<(f64, f64)> = Vec::new();
+    for n in doc.descendants().filter(|n| n.tag_name().name() == "text") {
+        let size: f64 = n.attribute("font-size").unwrap().parse().unwrap();
+        assert!(size >= 11.0, "text of {size} px: {:?}", n.text());
+        for t in n.descendants().filter(|d| d.tag_name().name() == "tspan") {
+            let s: f64 = t.attribute("font-size").unwrap().parse().unwrap();
+            assert!(s >= 11.0, "superscript of {s} px");
+        }
+        if n.text().is_some_and(|t| t.starts_with('S') && t.len() <= 3) {
+            let x: f64 = n.attribute("x").unwrap().parse().unwrap();
+            let y: f64 = n.attribute("y").unwrap().parse().unwrap();
+            labels.push((x, y));
+        }
+    }
+    assert!(!labels.is_empty() && labels.len() < 12, "{labels:?}");
+    for (i, a) in labels.iter().enumerate() {
+        for b in &labels[i + 1..] {
+            let apart = (a.1 - b.1).abs() >= 12.0 || (a.0 - b.0).abs() >= 14.0;
+            assert!(apart, "labels at {a:?} and {b:?} overlap");
+        }
+    }
+    // sites are not drawn as circles (circles are elements)
+    assert_eq!(atom_fills(&svg).len(), 1);
+}

@@ -52,12 +52,117 @@ pub struct ReportFigure {
     pub svg: String,
 }
 
-/// Every figure, in report order: slices, profiles, size-rate chart.
+/// Every figure, in report order: slices, profiles, size-rate chart, Arrhenius plot.
 pub fn all(a: &Analysis) -> Vec<ReportFigure> {
     let mut v = slices(a);
     v.extend(profiles(a));
     v.extend(size_rate(a));
+    v.extend(arrhenius(a));
     v
+}
+
+/// The Arrhenius plot: D (log scale) against 1000/T for every network the hopping model
+/// estimates, the model's D as a solid line and the band of the barrier's uncertainty as
+/// dashed lines of the same colour; the floor of bulk transport drawn across.
+pub fn arrhenius(a: &Analysis) -> Option<ReportFigure> {
+    use hopmap_plot::lines::{LinePlot, Series};
+    use hopmap_plot::{Axis, colormap::categorical};
+    let floor = hopmap::analysis::NO_BULK_TRANSPORT_M2_S;
+    let mut plot = LinePlot::new(Axis::linear("1000/T", "1/K"), Axis::log("D", "m²/s"));
+    let mut drawn = Vec::new();
+    for (i, t) in a.transport.iter().enumerate() {
+        let Some(m) = &t.model else { continue };
+        if t.arrhenius.len() < 2 {
+            continue;
+        }
+        let colour = categorical(i);
+        let pts: Vec<(f64, f64)> = t
+            .arrhenius
+            .iter()
+            .map(|(tk, d)| (1000.0 / tk, d.max(floor * 1e-3)))
+            .collect();
+        plot.add_series(
+            Series::line(
+                format!(
+                    "{}D, Ea {:.2} ± {:.2} eV",
+                    t.dimension,
+                    t.barrier_ev,
+                    t.barrier_uncertainty_ev.unwrap_or(0.0)
+                ),
+                pts,
+            )
+            .with_colour(colour),
+        );
+        if let Some(u) = t.barrier_uncertainty_ev {
+            for (k, ea) in [(0, t.barrier_ev - u), (1, t.barrier_ev + u)] {
+                let model = hopmap::transport::HoppingModel {
+                    barrier_ev: ea.max(0.0),
+                    ..*m
+                };
+                let pts: Vec<(f64, f64)> = t
+                    .arrhenius
+                    .iter()
+                    .map(|(tk, _)| {
+                        (
+                            1000.0 / tk,
+                            model.diffusion_coefficient(*tk).max(floor * 1e-3),
+                        )
+                    })
+                    .collect();
+                plot.add_series(
+                    Series::line(
+                        if k == 0 {
+                            format!("{}D, Ea ∓ {u:.2} eV", t.dimension)
+                        } else {
+                            String::new()
+                        },
+                        pts,
+                    )
+                    .with_colour(colour)
+                    .dashed(),
+                );
+            }
+        }
+        drawn.push(t.dimension);
+    }
+    if drawn.is_empty() {
+        return None;
+    }
+    let xs: Vec<f64> = hopmap::transport::default_temperatures_k()
+        .iter()
+        .map(|t| 1000.0 / t)
+        .collect();
+    let (x0, x1) = (
+        xs.iter().cloned().fold(f64::INFINITY, f64::min),
+        xs.iter().cloned().fold(f64::NEG_INFINITY, f64::max),
+    );
+    plot.add_series(
+        Series::line(
+            "no bulk transport below this D".to_string(),
+            vec![(x0, floor), (x1, floor)],
+        )
+        .with_colour(Rgb::new(0x55, 0x55, 0x55))
+        .dashed(),
+    );
+    plot.legend = hopmap_plot::LegendPosition::TopRight;
+    let ion = a.model.probe.element.symbol();
+    let fig = Figure::lines(760.0, 460.0, plot)
+        .with_title(format!("{ion}+ diffusion coefficient against temperature"));
+    Some(ReportFigure {
+        name: "arrhenius".into(),
+        caption: format!(
+            "Arrhenius plot of the hopping model, D = f (1 - c) a² ν₀ exp(-Ea/kT) / (2d), from              {:.0} K to {:.0} K, for the {} network{} (solid), with the band of the model's              barrier uncertainty (dashed). Below {floor:.0e} m²/s (dashed grey) an ion covers              less than 0.1 µm in a day: no bulk transport.",
+            1000.0 / x1,
+            1000.0 / x0,
+            drawn
+                .iter()
+                .map(|d| format!("{d}D"))
+                .collect::<Vec<_>>()
+                .join(" and "),
+            if drawn.len() > 1 { "s" } else { "" }
+        ),
+        svg: fig.to_svg(),
+    })
 }
 
 // ------------------------------------------------------------------------------------------
@@ -506,6 +611,19 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
         .with_unit("Site energy", "eV")
         .with_scale(lo, hi)
         .with_direction_labels(arrow_name(plane.u), arrow_name(plane.v));
+    // edge ticks in fractional coordinates: along a lattice axis they read that coordinate
+    // (from the plane's origin), along another lattice vector the fraction of that vector
+    map.u_frac_span = plane.u_repeat as f64;
+    map.v_frac_span = plane.v_repeat as f64;
+    let start = |v: [i32; 3]| match AXES.iter().position(|x| *x == v) {
+        Some(ax) => {
+            let o = plane.origin.0[ax];
+            o - o.floor()
+        }
+        None => 0.0,
+    };
+    map.u_frac_start = start(plane.u);
+    map.v_frac_start = start(plane.v);
     for i in 0..a.model.atoms.len() {
         let el = element_of_atom(a, i);
         for st in near_plane(a, plane, &fr, a.model.atoms[i].frac, NEAR_PLANE_A) {
@@ -547,9 +665,10 @@ pub fn slice_figure(a: &Analysis, plane: &SlicePlane) -> Figure {
             }
         }
         if !sites.is_empty() {
+            // elements are circles; sites and saddles take shapes no element uses
             map.marker_sets.push(FracMarkerSet {
                 legend: "sites".into(),
-                shape: MarkerShape::Circle,
+                shape: MarkerShape::Diamond,
                 colour: Rgb::new(255, 255, 255),
                 points: sites,
             });

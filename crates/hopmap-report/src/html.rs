@@ -322,11 +322,11 @@ fn structure_section(a: &Analysis, file: &str, o: &mut String) {
         Some(v) => {
             let _ = writeln!(
                 o,
-                "<p>Global instability index GII = <b>{:.3} v.u.</b>: <b>{}</b> (below 0.1 v.u. \
-                 a well refined structure, 0.1 to 0.2 v.u. strained, above 0.2 v.u. suspect; \
+                "<p>Global instability index GII = <b>{:.3} v.u.</b>: <b>{}</b> ({}; \
                  Salinas-Sanchez et al., J. Solid State Chem. 100 (1992) 201).</p>",
                 v.gii,
-                v.verdict.word()
+                v.verdict.word(),
+                hopmap::bv::valence::VERDICT_RULE
             );
             o.push_str("<table>\n");
             o.push_str(&th_row(&[
@@ -570,8 +570,10 @@ fn hops_section(a: &Analysis, o: &mut String) {
          of the cell, in {} symmetry-distinct groups (same orbits, length and saddle energy){}. \
          Barriers are saddle minus site energy, read from the first orbit to the second and back. \
          Opening = distance from the saddle to the nearest framework ion minus that ion's Shannon \
-         radius; clearance = opening minus the radius of {} ({:.2} Å), negative where the ion must \
-         squeeze through.</p>",
+         radius; clearance = opening minus the radius of {} ({:.2} Å). Shannon radii describe ions \
+         at their usual coordination, and an ion passing through a window of three or four anions \
+         comes closer to them than that, so clearances at saddles are negative as a rule: \
+         compare them between hops and materials rather than reading a sign.</p>",
         level,
         shown,
         net.hops.len(),
@@ -605,7 +607,6 @@ fn hops_section(a: &Analysis, o: &mut String) {
     const MAX: usize = 40;
     for g in groups.iter().take(MAX) {
         let clear = match g.clearance_a {
-            Some(c) if c < 0.0 => format!("<span class=\"flag\">{c:+.2}</span>"),
             Some(c) => format!("{c:+.2}"),
             None => "–".into(),
         };
@@ -819,30 +820,55 @@ fn transport_section(a: &Analysis, figs: &[(usize, &ReportFigure)], o: &mut Stri
 fn capacity_section(a: &Analysis, o: &mut String) {
     let _ = writeln!(o, "<h2 id=\"capacity\">Capacity</h2>");
     let Some(c) = &a.capacity else {
-        let _ = writeln!(o, "<p>No capacity estimate (see the warnings).</p>");
+        match &a.capacity_note {
+            Some(n) => {
+                let _ = writeln!(
+                    o,
+                    "<p><b>No capacity</b>: {}.</p>",
+                    esc(n.trim_start_matches("no capacity: "))
+                );
+            }
+            None => {
+                let _ = writeln!(o, "<p>No capacity estimate (see the warnings).</p>");
+            }
+        }
         return;
     };
     let ion = ion_name(a);
+    let electrons = hopmap::text::trim_number(c.redox_electrons_per_formula_unit, 3);
     let mut rows = vec![
         (
             "Redox bound",
             format!(
-                "{:.1} mAh/g ({} electron{} per formula unit {})",
+                "{:.1} mAh/g ({electrons} electron{} per {}{})",
                 c.redox_capacity_mah_g,
-                c.redox_electrons_per_formula_unit,
-                if c.redox_electrons_per_formula_unit == 1.0 {
-                    ""
-                } else {
-                    "s"
-                },
-                esc(&a.structure.formula_and_z().1)
+                if electrons == "1" { "" } else { "s" },
+                esc(&c.formula),
+                match c.direction {
+                    Some(d) => format!(
+                        ", on {} of {ion}{}",
+                        d.word(),
+                        if c.couples.is_empty() {
+                            String::new()
+                        } else {
+                            format!(": {}", esc(&c.couples.join(", ")))
+                        }
+                    ),
+                    None => ", as set".into(),
+                }
             ),
         ),
         (
             "Site bound",
             match (c.site_capacity_mah_g, c.site_ions_per_formula_unit) {
                 (Some(q), Some(x)) => format!(
-                    "{q:.1} mAh/g ({x:.3} {ion} per formula unit on the reachable sites{})",
+                    "{q:.1} mAh/g ({} {ion} per formula unit {} the reachable sites{})",
+                    hopmap::text::trim_number(x, 3),
+                    if c.direction == Some(hopmap::capacity::RedoxDirection::Insertion) {
+                        "of room left on"
+                    } else {
+                        "held by"
+                    },
                     a.packing
                         .as_ref()
                         .map(|p| format!(
@@ -877,14 +903,8 @@ fn capacity_section(a: &Analysis, o: &mut String) {
         ),
         ("Molar mass", format!("{:.3} g/mol", c.molar_mass_g_mol)),
     ];
-    if c.redox_electrons_per_formula_unit == 0.0 {
-        rows.push((
-            "Note",
-            format!(
-                "the structure holds no {ion}; the redox bound is zero until an inserted amount \
-                 is given (<code>--inserted</code>)"
-            ),
-        ));
+    if let Some(n) = &a.capacity_note {
+        rows.push(("Note", esc(n)));
     }
     o.push_str(&kv(&rows));
     let _ = writeln!(

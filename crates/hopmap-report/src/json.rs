@@ -5,6 +5,28 @@ use hopmap::structure::{Occupant, Structure};
 use serde_json::{Value, json};
 
 /// Rounds to a fixed number of decimals so the JSON is readable and diff-friendly.
+/// Every float of a document to [`SIGNIFICANT_DIGITS`] significant digits: a number for
+/// people and programs, never the binary noise of a computation (`6.9999959999999914`).
+pub fn tidy(v: Value) -> Value {
+    match v {
+        Value::Number(n) if n.is_f64() => {
+            let x = n.as_f64().unwrap_or(0.0);
+            let t: f64 = format!("{:.*e}", SIGNIFICANT_DIGITS - 1, x)
+                .parse()
+                .unwrap_or(x);
+            serde_json::Number::from_f64(t)
+                .map(Value::Number)
+                .unwrap_or(Value::Null)
+        }
+        Value::Array(a) => Value::Array(a.into_iter().map(tidy).collect()),
+        Value::Object(m) => Value::Object(m.into_iter().map(|(k, v)| (k, tidy(v))).collect()),
+        other => other,
+    }
+}
+
+/// Significant digits of the floats in JSON documents (see [`tidy`]).
+pub const SIGNIFICANT_DIGITS: usize = 6;
+
 pub fn round(x: f64, decimals: i32) -> f64 {
     let p = 10f64.powi(decimals);
     (x * p).round() / p
@@ -28,6 +50,10 @@ fn occupants(os: &[Occupant]) -> Value {
 
 /// `hopmap inspect --json`.
 pub fn structure(s: &Structure, file: &str) -> Value {
+    tidy(structure_raw(s, file))
+}
+
+fn structure_raw(s: &Structure, file: &str) -> Value {
     let p = s.lattice.parameters();
     let (z, formula) = s.formula_and_z();
     let composition: serde_json::Map<String, Value> = s
@@ -237,6 +263,10 @@ fn transport_json(t: &ChannelTransport) -> Value {
 
 /// `hopmap paths --json`.
 pub fn paths(a: &Analysis, file: &str) -> Value {
+    tidy(paths_raw(a, file))
+}
+
+fn paths_raw(a: &Analysis, file: &str) -> Value {
     let net = a.network.as_ref();
     let sites: Vec<Value> = net
         .map(|n| {
@@ -375,7 +405,9 @@ pub fn paths(a: &Analysis, file: &str) -> Value {
         "capacity": a.capacity.as_ref().map(|c| json!({
             "formula": c.formula,
             "molar_mass_g_mol": round(c.molar_mass_g_mol, 4),
-            "redox_electrons_per_formula_unit": c.redox_electrons_per_formula_unit,
+            "redox_electrons_per_formula_unit": round(c.redox_electrons_per_formula_unit, 4),
+            "redox_direction": c.direction.map(|d| d.word()),
+            "redox_couples": c.couples,
             "redox_capacity_mah_g": round(c.redox_capacity_mah_g, 2),
             "site_ions_per_formula_unit": c.site_ions_per_formula_unit.map(|x| round(x, 4)),
             "site_capacity_mah_g": c.site_capacity_mah_g.map(|x| round(x, 2)),
@@ -383,6 +415,7 @@ pub fn paths(a: &Analysis, file: &str) -> Value {
             "capacity_mah_cm3": c.capacity_mah_cm3.map(|x| round(x, 1)),
             "limited_by": format!("{:?}", c.limited_by).to_lowercase(),
         })),
+        "capacity_note": a.capacity_note,
         "valence": a.valence.as_ref().map(|v| json!({"gii_vu": round(v.gii, 4), "verdict": v.verdict.word()})),
         "oxidation_states_note": a.oxidation_note,
         "parameters": {
@@ -404,6 +437,10 @@ pub fn paths(a: &Analysis, file: &str) -> Value {
 
 /// `hopmap valence --json`.
 pub fn valence(v: &ValenceReport, s: &Structure, note: Option<&str>) -> Value {
+    tidy(valence_raw(v, s, note))
+}
+
+fn valence_raw(v: &ValenceReport, s: &Structure, note: Option<&str>) -> Value {
     json!({
         "schema": "hopmap.valence/1",
         "structure": v.structure,
@@ -412,7 +449,8 @@ pub fn valence(v: &ValenceReport, s: &Structure, note: Option<&str>) -> Value {
         "assignment_note": note,
         "gii_vu": round(v.gii, 4),
         "verdict": v.verdict.word(),
-        "thresholds_vu": [0.1, 0.2],
+        "thresholds_vu": [hopmap::bv::valence::GII_PLAUSIBLE, hopmap::bv::valence::GII_SUSPECT],
+        "verdict_rule": hopmap::bv::valence::VERDICT_RULE,
         "ions": v.ions.iter().map(|i| json!({
             "label": i.label, "site": i.site_label, "species": i.species,
             "formal_vu": i.formal, "bvs_vu": round(i.bvs, 4), "deviation_vu": round(i.deviation, 4),
@@ -430,6 +468,10 @@ pub fn valence(v: &ValenceReport, s: &Structure, note: Option<&str>) -> Value {
 
 /// `hopmap rate --json`.
 pub fn rate(a: &Analysis, file: &str, particle_um: Option<f64>) -> Value {
+    tidy(rate_raw(a, file, particle_um))
+}
+
+fn rate_raw(a: &Analysis, file: &str, particle_um: Option<f64>) -> Value {
     let best = a.transport.first();
     json!({
         "schema": "hopmap.rate/1",

@@ -161,17 +161,16 @@ pub fn paths(a: &Analysis, file: &str) -> String {
         a.spacing_a[0],
         a.spacing_a[1],
         a.spacing_a[2],
-        a.percolation
-            .lowest
-            .map(|x| format!("{x:.3}"))
-            .unwrap_or_else(|| "-".into())
+        lowest_energy_text(a)
     );
     if let Some(v) = &a.valence {
         let _ = writeln!(
             o,
-            "  valence check: GII = {:.3} v.u., {}",
+            "  valence check: GII = {:.3} v.u., {} (plausible below {} v.u., suspect above {} v.u.; sources in `hopmap valence`)",
             v.gii,
-            v.verdict.word()
+            v.verdict.word(),
+            hopmap::bv::valence::GII_PLAUSIBLE,
+            hopmap::bv::valence::GII_SUSPECT
         );
     }
     if let Some(n) = &a.oxidation_note {
@@ -249,45 +248,53 @@ pub fn paths(a: &Analysis, file: &str) -> String {
                 seen.insert(key)
             })
             .collect();
-        let _ = writeln!(
-            o,
-            "\n  symmetry-distinct hops up to the highest threshold ({} distinct of {} in the cell):",
-            shown.len(),
-            net.hops.len()
-        );
-        let _ = writeln!(
-            o,
-            "    {:>5} {:>5} {:<10} {:>11} {:>13} {:>13} {:>12} {:>14}",
-            "orbit",
-            "orbit",
-            "image",
-            "length (A)",
-            "saddle (eV)",
-            "fwd/back (eV)",
-            "opening (A)",
-            "clearance (A)"
-        );
-        for h in shown.iter().take(30) {
-            let (r, c) = h
-                .bottleneck
-                .as_ref()
-                .map(|b| (format!("{:.2}", b.radius), format!("{:+.2}", b.clearance)))
-                .unwrap_or(("-".into(), "-".into()));
+        if shown.is_empty() {
             let _ = writeln!(
                 o,
-                "    {:>5} {:>5} {:<10} {:>11.3} {:>13.3} {:>13} {:>12} {:>14}",
-                net.sites[h.from].orbit,
-                net.sites[h.to].orbit,
-                format!("[{}]", format_indices(h.image)),
-                h.length,
-                h.saddle_energy,
-                format!("{:.2}/{:.2}", h.barrier_forward, h.barrier_backward),
-                r,
-                c
+                "\n  hops: none below the energy cap of {} eV",
+                hopmap::text::trim_number(a.model.energy_cap, 2)
             );
-        }
-        if shown.len() > 30 {
-            let _ = writeln!(o, "    ... {} more (see --json)", shown.len() - 30);
+        } else {
+            let _ = writeln!(
+                o,
+                "\n  symmetry-distinct hops up to the highest threshold ({} distinct of {} in the cell):",
+                shown.len(),
+                net.hops.len()
+            );
+            let _ = writeln!(
+                o,
+                "    {:>5} {:>5} {:<10} {:>11} {:>13} {:>13} {:>12} {:>14}",
+                "orbit",
+                "orbit",
+                "image",
+                "length (A)",
+                "saddle (eV)",
+                "fwd/back (eV)",
+                "opening (A)",
+                "clearance (A)"
+            );
+            for h in shown.iter().take(30) {
+                let (r, c) = h
+                    .bottleneck
+                    .as_ref()
+                    .map(|b| (format!("{:.2}", b.radius), format!("{:+.2}", b.clearance)))
+                    .unwrap_or(("-".into(), "-".into()));
+                let _ = writeln!(
+                    o,
+                    "    {:>5} {:>5} {:<10} {:>11.3} {:>13.3} {:>13} {:>12} {:>14}",
+                    net.sites[h.from].orbit,
+                    net.sites[h.to].orbit,
+                    format!("[{}]", format_indices(h.image)),
+                    h.length,
+                    h.saddle_energy,
+                    format!("{:.2}/{:.2}", h.barrier_forward, h.barrier_backward),
+                    r,
+                    c
+                );
+            }
+            if shown.len() > 30 {
+                let _ = writeln!(o, "    ... {} more (see --json)", shown.len() - 30);
+            }
         }
     }
     rate_section(&mut o, a, None);
@@ -302,6 +309,16 @@ pub fn paths(a: &Analysis, file: &str) -> String {
         "\n  Screening estimate from a static bond-valence model, not cell design; see the cautions in the README."
     );
     o
+}
+
+/// The lowest site energy of the landscape, in words when the whole grid sits at the cap.
+pub fn lowest_energy_text(a: &Analysis) -> String {
+    let (lo, _) = a.landscape.energy.min_max();
+    if (lo as f64) < a.model.energy_cap {
+        format!("{:.3}", a.percolation.lowest.unwrap_or(lo))
+    } else {
+        format!("at the cap of {:.0}", a.model.energy_cap)
+    }
 }
 
 /// A length in um with as many digits as a reader needs.
@@ -337,9 +354,8 @@ fn rate_section(o: &mut String, a: &Analysis, particle_um: Option<f64>) {
         if !t.bulk_transport {
             let _ = writeln!(
                 o,
-                "    no bulk transport at {} K: D = {:.0e} m^2/s, below {:.0e} m^2/s (less than 0.1 um in a day)",
+                "    no bulk transport at {} K: D is below {:.0e} m^2/s (less than 0.1 um in a day)",
                 t.temperature_k,
-                t.diffusion_m2_s,
                 hopmap::analysis::NO_BULK_TRANSPORT_M2_S
             );
         } else {
@@ -395,38 +411,56 @@ fn rate_section(o: &mut String, a: &Analysis, particle_um: Option<f64>) {
             );
         }
     }
-    if let Some(c) = &a.capacity {
-        let site = c
-            .site_capacity_mah_g
-            .map(|x| format!("{x:.1} mAh/g"))
-            .unwrap_or_else(|| "not estimated".into());
-        if c.redox_electrons_per_formula_unit == 0.0 {
-            // An empty host: no redox bound until an inserted amount is given.
-            let ion = a.model.probe.element.symbol();
-            let _ = writeln!(
-                o,
-                "\n  capacity: the structure holds no {ion}, so there is no redox bound until \
-                 --inserted N ({ion} per {}) is given; site bound {site}",
-                c.formula
-            );
-        } else {
-            let _ = writeln!(
-                o,
-                "\n  capacity: redox bound {:.1} mAh/g ({} e per {}), site bound {site}, so {:.1} mAh/g{} (limited by the {} bound)",
-                c.redox_capacity_mah_g,
-                c.redox_electrons_per_formula_unit,
-                c.formula,
-                c.capacity_mah_g,
-                c.capacity_mah_cm3
-                    .map(|x| format!(", {x:.0} mAh/cm^3"))
-                    .unwrap_or_default(),
-                match c.limited_by {
-                    hopmap::capacity::CapacityLimit::Redox => "redox",
-                    hopmap::capacity::CapacityLimit::Sites => "site",
-                }
-            );
-        }
+    if let Some(line) = capacity_text(a) {
+        let _ = writeln!(o, "\n  capacity: {line}");
     }
+}
+
+/// The capacity in one sentence, numbers rounded for people; the reason in words when there is
+/// none (a solid electrolyte). None when no estimate was made.
+pub fn capacity_text(a: &Analysis) -> Option<String> {
+    use hopmap::text::trim_number;
+    let ion = a.model.probe.element.symbol();
+    let Some(c) = &a.capacity else {
+        return a.capacity_note.clone();
+    };
+    if let Some(note) = &a.capacity_note {
+        return Some(note.clone());
+    }
+    let site = match (c.site_capacity_mah_g, c.site_ions_per_formula_unit) {
+        (Some(q), Some(x)) => format!(
+            "{q:.0} mAh/g ({} {ion} per {} on the reachable sites)",
+            trim_number(x, 2),
+            c.formula
+        ),
+        _ => "not estimated".into(),
+    };
+    let how = match c.direction {
+        Some(d) => format!(
+            "on {} of {ion}{}",
+            d.word(),
+            if c.couples.is_empty() {
+                String::new()
+            } else {
+                format!(", {}", c.couples.join(", "))
+            }
+        ),
+        None => "as set".into(),
+    };
+    Some(format!(
+        "{:.0} mAh/g{} (redox bound {:.0} mAh/g, {} e per {} {how}; site bound {site}; limited by the {} bound)",
+        c.capacity_mah_g,
+        c.capacity_mah_cm3
+            .map(|x| format!(", {x:.0} mAh/cm^3"))
+            .unwrap_or_default(),
+        c.redox_capacity_mah_g,
+        trim_number(c.redox_electrons_per_formula_unit, 3),
+        c.formula,
+        match c.limited_by {
+            hopmap::capacity::CapacityLimit::Redox => "redox",
+            hopmap::capacity::CapacityLimit::Sites => "site",
+        }
+    ))
 }
 
 /// `hopmap rate`.
@@ -450,10 +484,7 @@ pub fn valence(v: &ValenceReport, s: &Structure, note: Option<&str>) -> String {
         v.gii,
         v.verdict.word()
     );
-    let _ = writeln!(
-        o,
-        "  (plausible below 0.1 v.u., strained 0.1-0.2 v.u., suspect above 0.2 v.u.; Salinas-Sanchez et al. 1992)"
-    );
+    let _ = writeln!(o, "  ({})", hopmap::bv::valence::VERDICT_RULE);
     if let Some(n) = note {
         let _ = writeln!(o, "  oxidation states: {n}");
     }

@@ -4,9 +4,7 @@
 //! every stage it calls takes and returns plain data.
 
 use crate::bv::model::{ModelKnobs, ModelProvenance, build_model};
-use crate::bv::{
-    ParameterTable, ValenceReport, assign_oxidation_states, valence::valence_check_with,
-};
+use crate::bv::{ParameterTable, ValenceReport, assign_oxidation_states, valence::valence_check};
 use crate::capacity::{self, CandidateSite, CapacityReport, SitePacking};
 use crate::element::Element;
 use crate::grid::Grid;
@@ -325,6 +323,9 @@ pub struct Analysis {
     pub profiles: Vec<Profile>,
     pub transport: Vec<ChannelTransport>,
     pub capacity: Option<CapacityReport>,
+    /// Why there is no capacity, in plain words, when there is none (a solid electrolyte: no
+    /// redox-active cation in the framework).
+    pub capacity_note: Option<String>,
     pub packing: Option<SitePacking>,
     pub warnings: Vec<Warning>,
     /// Seconds per stage.
@@ -529,7 +530,10 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
             warnings.push(w);
         }
     }
-    let valence = match valence_check_with(&s, &opts.table, Some(opts.ion)) {
+    other_mobile_ions_warning(&s, opts, &provenance, &mut warnings);
+    // first-shell parameters for every pair: the convention of the GII thresholds, and the same
+    // index `hopmap valence` prints for the file
+    let valence = match valence_check(&s, &opts.table) {
         Ok(v) => Some(v),
         Err(e) => {
             warnings.push(Warning::new(
@@ -585,6 +589,7 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
         profiles: vec![],
         transport: vec![],
         capacity: None,
+        capacity_note: None,
         packing: None,
         warnings,
         timings,
@@ -595,6 +600,7 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
             hop_groups: vec![],
             deeper_pocket: None,
             headline: String::new(),
+            figures: Default::default(),
         },
     };
     if opts.percolation_only {
@@ -657,7 +663,7 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
         &mut out.warnings,
     );
     let probe_charge = out.model.probe.valence.round().max(1.0) as u8;
-    let (cap, packing) = capacity_estimate(
+    let (cap, packing, cap_note) = capacity_estimate(
         &out.structure,
         opts.ion,
         probe_charge,
@@ -667,6 +673,7 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
         &mut out.warnings,
     );
     out.capacity = cap;
+    out.capacity_note = cap_note;
     out.packing = packing;
     out.network = Some(net);
     out.graph_percolation = Some(graph_perc);
@@ -950,6 +957,7 @@ fn channel_transport(
     out
 }
 
+/// Capacity estimate and the site packing behind it; when there is no capacity, why, in words.
 fn capacity_estimate(
     s: &Structure,
     ion: Element,
@@ -958,19 +966,17 @@ fn capacity_estimate(
     net: &Network,
     r: &RateOptions,
     warnings: &mut Vec<Warning>,
-) -> (Option<CapacityReport>, Option<SitePacking>) {
+) -> (Option<CapacityReport>, Option<SitePacking>, Option<String>) {
     let (z, _) = s.formula_and_z();
     let comp = s.cell_composition();
     let per_fu: capacity::Composition = comp.iter().map(|(e, n)| (*e, n / z)).collect();
     let present = per_fu.get(&ion).copied().unwrap_or(0.0);
-    let ions = r.ions_per_formula_unit.unwrap_or(present);
     // sites in the highest-dimensional network reached, at its threshold
     let packing = p.thresholds.iter().flatten().last().and_then(|t| {
         let level = t.energy;
-        let cands: Vec<CandidateSite> = net
-            .sites
+        let open: Vec<&network::Site> = net.sites.iter().filter(|x| x.energy <= level).collect();
+        let cands: Vec<CandidateSite> = open
             .iter()
-            .filter(|site| site.energy <= level)
             .map(|site| CandidateSite {
                 frac: site.frac,
                 energy_ev: Some(site.energy as f64),
@@ -979,7 +985,8 @@ fn capacity_estimate(
         if cands.is_empty() {
             return None;
         }
-        match capacity::pack_sites(&s.lattice, &cands, r.min_ion_distance_a) {
+        let groups: Vec<usize> = open.iter().map(|x| x.orbit).collect();
+        match capacity::pack_sites_best(&s.lattice, &cands, &groups, r.min_ion_distance_a) {
             Ok(pk) => Some(pk),
             Err(e) => {
                 warnings.push(Warning::new(
@@ -990,17 +997,160 @@ fn capacity_estimate(
             }
         }
     });
-    let redox_electrons = ions * charge as f64;
     let site = packing.as_ref().map(|pk| (pk, z));
-    match CapacityReport::new(&per_fu, redox_electrons, site, charge, Some(s.density())) {
-        Ok(c) => (Some(c), packing),
-        Err(e) => {
-            warnings.push(Warning::new(
-                WarningKind::Capacity,
-                format!("capacity estimate skipped: {e}"),
-            ));
-            (None, packing)
+    let skipped = |e: capacity::CapacityError, warnings: &mut Vec<Warning>| {
+        warnings.push(Warning::new(
+            WarningKind::Capacity,
+            format!("capacity estimate skipped: {e}"),
+        ));
+    };
+    // an amount set by the user: that many ions (times their charge) per formula unit
+    if let Some(ions) = r.ions_per_formula_unit {
+        return match CapacityReport::new(
+            &per_fu,
+            ions * charge as f64,
+            site,
+            charge,
+            Some(s.density()),
+        ) {
+            Ok(c) => (Some(c), packing, None),
+            Err(e) => {
+                skipped(e, warnings);
+                (None, packing, None)
+            }
+        };
+    }
+    // otherwise what the redox-active cations of the framework allow
+    let mut cations: Vec<capacity::FrameworkCation> = Vec::new();
+    // mobile ions sharing a site with a framework cation stay where they are (Li on the 16d
+    // site of Li4Ti5O12): they do not take room on the reachable sites
+    let mut pinned = 0.0;
+    for site in &s.sites {
+        let shared = site.occupants.iter().any(|o| o.species.element != ion);
+        for o in &site.occupants {
+            let q = o.species.oxidation.unwrap_or(0.0);
+            if o.species.element == ion {
+                if shared {
+                    pinned += o.occupancy / z;
+                }
+                continue;
+            }
+            if q <= 0.0 {
+                continue;
+            }
+            match cations
+                .iter_mut()
+                .find(|c| c.element == o.species.element && (c.state - q).abs() < 1e-6)
+            {
+                Some(c) => c.amount += o.occupancy / z,
+                None => cations.push(capacity::FrameworkCation {
+                    element: o.species.element,
+                    state: q,
+                    amount: o.occupancy / z,
+                }),
+            }
         }
+    }
+    let towards = |d| capacity::redox_bound_towards(&cations, present, charge, d);
+    let (Some(ext), Some(ins)) = (
+        towards(capacity::RedoxDirection::Extraction),
+        towards(capacity::RedoxDirection::Insertion),
+    ) else {
+        let mut names: Vec<String> = cations
+            .iter()
+            .map(|c| c.element.symbol().to_string())
+            .collect();
+        names.dedup();
+        let note = format!(
+            "no capacity: no framework cation can change its oxidation state ({}), so this is a solid electrolyte, not an electrode",
+            if names.is_empty() {
+                "there are no framework cations".to_string()
+            } else {
+                format!("{} only", names.join(", "))
+            }
+        );
+        return (None, packing, Some(note));
+    };
+    let site_ions = packing.as_ref().map(|pk| pk.ions_per_cell / z + pinned);
+    // the larger of the two directions (ties to extraction): a lithiated cathode gives up its
+    // ions (LiCoO2), a titanate or an empty host takes them in (Li4Ti5O12), a partly filled
+    // bronze goes the way with more room
+    let report = |b: &capacity::RedoxBound| {
+        CapacityReport::from_redox(&per_fu, b, site_ions, present, charge, Some(s.density()))
+    };
+    let chosen = match (report(&ext), report(&ins)) {
+        (Ok(e), Ok(i)) => Ok(if i.capacity_mah_g > e.capacity_mah_g + 1e-9 {
+            i
+        } else {
+            e
+        }),
+        (Ok(e), Err(_)) => Ok(e),
+        (Err(_), Ok(i)) => Ok(i),
+        (Err(e), Err(_)) => Err(e),
+    };
+    match chosen {
+        Ok(c) => {
+            let note = (c.capacity_mah_g <= 0.0).then(|| {
+                "no capacity: the framework's cations can neither be oxidised with the ions present nor reduced with room for more".to_string()
+            });
+            (Some(c), packing, note)
+        }
+        Err(e) => {
+            skipped(e, warnings);
+            (None, packing, None)
+        }
+    }
+}
+
+/// Says which other mobile ions stay in the framework when the probe is another ion (Li left
+/// in place under `--ion Mg`), and how to take them out (`--exclude`).
+fn other_mobile_ions_warning(
+    s: &Structure,
+    opts: &AnalysisOptions,
+    provenance: &ModelProvenance,
+    warnings: &mut Vec<Warning>,
+) {
+    const USUAL_MOBILE: [&str; 4] = ["Li", "Na", "K", "Ag"];
+    let excluded: Vec<&str> = provenance
+        .excluded
+        .iter()
+        .map(|(l, _)| l.as_str())
+        .collect();
+    for sym in USUAL_MOBILE {
+        let Some(e) = Element::from_symbol(sym) else {
+            continue;
+        };
+        if e == opts.ion {
+            continue;
+        }
+        let mut labels: Vec<String> = Vec::new();
+        for site in &s.sites {
+            let site_label = s
+                .asymmetric_sites
+                .get(site.asym_index)
+                .map(|a| a.label.as_str())
+                .unwrap_or(site.label());
+            for o in site.occupants.iter().filter(|o| o.species.element == e) {
+                if excluded.contains(&o.label.as_str()) || excluded.contains(&site_label) {
+                    continue;
+                }
+                if !labels.contains(&o.label) {
+                    labels.push(o.label.clone());
+                }
+            }
+        }
+        if labels.is_empty() {
+            continue;
+        }
+        warnings.push(Warning::new(
+            WarningKind::Landscape,
+            format!(
+                "{sym} ({}) stays in the framework as fixed {sym}+ ions while {} is the mobile ion; to treat those sites as empty, add --exclude {}",
+                labels.join(", "),
+                opts.ion,
+                labels.join(",")
+            ),
+        ));
     }
 }
 

@@ -126,6 +126,67 @@ pub struct Summary {
     /// The answer in one line, e.g. "Li: 1D channels along [010], barrier 0.41 ± 0.15 eV; 2D at
     /// 0.79 eV; 3D at 1.80 eV".
     pub headline: String,
+    /// The numbers a screener sorts by, for the network the answer leads with.
+    pub figures: KeyFigures,
+}
+
+/// The numbers of the network the answer leads with (the first of [`Summary::networks`]):
+/// what a screening row shows. Everything is None when nothing percolates; D and the
+/// conductivity are None when there is no bulk transport (see [`KeyFigures::bulk_transport`]).
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct KeyFigures {
+    /// Dimension of that network (0: nothing percolates below the energy cap).
+    pub dimension: u8,
+    /// Its direction `[uvw]` (1D) or plane `(hkl)` (2D); empty for 3D or none.
+    pub direction: String,
+    pub barrier_ev: Option<f64>,
+    pub barrier_uncertainty_ev: Option<f64>,
+    /// D at the temperature of the estimate (m^2/s), with its band (low, high) for the
+    /// barrier's uncertainty; None below [`crate::analysis::NO_BULK_TRANSPORT_M2_S`].
+    pub diffusion_m2_s: Option<f64>,
+    pub diffusion_band_m2_s: Option<(f64, f64)>,
+    /// Nernst-Einstein conductivity (S/cm) and its band; None without bulk transport.
+    pub conductivity_s_cm: Option<f64>,
+    pub conductivity_band_s_cm: Option<(f64, f64)>,
+    /// Temperature of D and the conductivity (K).
+    pub temperature_k: Option<f64>,
+    /// False when the network's D is below the floor of bulk transport (or was not estimated).
+    pub bulk_transport: bool,
+    /// Theoretical capacity (mAh/g); None for a solid electrolyte or when not estimated.
+    pub capacity_mah_g: Option<f64>,
+}
+
+/// The key figures of the first network of `networks` in an analysis (see [`KeyFigures`]).
+pub fn key_figures(a: &Analysis, networks: &[Network]) -> KeyFigures {
+    let Some(n) = networks.first() else {
+        return KeyFigures {
+            capacity_mah_g: a.capacity.as_ref().map(|c| c.capacity_mah_g),
+            ..Default::default()
+        };
+    };
+    let t = a.transport.iter().find(|t| t.dimension == n.dimension);
+    let bulk = t.is_some_and(|t| t.bulk_transport);
+    KeyFigures {
+        dimension: n.dimension,
+        direction: n
+            .orientations
+            .first()
+            .map(Orientation::indices)
+            .unwrap_or_default(),
+        barrier_ev: Some(n.barrier_ev),
+        barrier_uncertainty_ev: Some(n.uncertainty_ev),
+        diffusion_m2_s: t.filter(|_| bulk).map(|t| t.diffusion_m2_s),
+        diffusion_band_m2_s: t.filter(|_| bulk).and_then(|t| t.diffusion_band_m2_s),
+        conductivity_s_cm: t.filter(|_| bulk).and_then(|t| t.conductivity_s_cm),
+        conductivity_band_s_cm: t.filter(|_| bulk).and_then(|t| t.conductivity_band_s_cm),
+        temperature_k: t.map(|t| t.temperature_k),
+        bulk_transport: bulk,
+        capacity_mah_g: a
+            .capacity
+            .as_ref()
+            .map(|c| c.capacity_mah_g)
+            .filter(|q| *q > 0.0),
+    }
 }
 
 impl Summary {
@@ -232,10 +293,13 @@ pub fn hop_groups(a: &Analysis, level: f64) -> Vec<HopGroup> {
 pub fn headline(ion: Element, networks: &[Network], no_path_below_ev: Option<f64>) -> String {
     let ion = ion.symbol();
     if networks.is_empty() {
-        return format!(
-            "{ion}: no percolating path below {:.1} eV (the energy cap)",
-            no_path_below_ev.unwrap_or(f64::NAN)
-        );
+        return match no_path_below_ev {
+            Some(cap) => format!(
+                "{ion}: no percolating path below {} eV (the energy cap)",
+                crate::text::trim_number(cap, 2)
+            ),
+            None => format!("{ion}: no percolating path"),
+        };
     }
     let parts: Vec<String> = networks
         .iter()
@@ -300,6 +364,7 @@ pub fn summarise(a: &Analysis) -> Summary {
     Summary {
         ion: a.ion,
         headline: headline(a.model.probe.element, &networks, no_path_below_ev),
+        figures: key_figures(a, &networks),
         networks,
         no_path_below_ev,
         hop_groups: hop_groups(a, level),

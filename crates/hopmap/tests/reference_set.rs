@@ -24,8 +24,8 @@
 //!   leaves shallow sites only where the merge keeps them apart on purpose; on olivine and
 //!   TiNb2O7 the merged sites form complete orbits with equal energies and hops; the olivine Li
 //!   site is 4a and its step along the chain is b/2.
-//! - **Valence check.** Every structure is plausible or strained (GII <= 0.2 v.u., Salinas-
-//!   Sanchez et al. 1992), or documented below.
+//! - **Valence check.** No structure is suspect (GII <= 0.4 v.u.; `GII_SUSPECT` gives the limit
+//!   and its sources, Salinas-Sanchez et al. 1992 among them), or it is documented below.
 //!
 //! Cells above 500 A^3 use a 0.15 A grid to keep the whole test within about a minute on two
 //! shared cores; the others use the analysis default (0.1 A).

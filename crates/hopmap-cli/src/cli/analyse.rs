@@ -209,6 +209,13 @@ fn run_analysis(
 }
 
 pub fn run_paths(g: &GlobalOpts, a: PathsArgs) -> CmdResult {
+    // output paths are checked, and their folders created, before the run
+    if let Some(p) = &a.report {
+        super::prepare_output_file(p)?;
+    }
+    if let Some(dir) = &a.figures {
+        super::prepare_output_dir(dir)?;
+    }
     let opts = options(g, &a.model, &a.rate)?;
     let an = run_analysis(g, &a.input, &opts)?;
     let file = a.input.file.display().to_string();

@@ -18,10 +18,24 @@ pub fn run(g: &GlobalOpts, a: InspectArgs) -> CmdResult {
     let s = a.input.read()?;
     let file = path.display().to_string();
     if let Some(out) = &a.to_cif {
-        hopmap_report::write_cif::write_cif_p1(out, &s)
+        super::prepare_output_file(out)?;
+        // oxidation states as the help promises: the file's, or assigned as the analysis does
+        let table = hopmap::bv::ParameterTable::builtin();
+        let (with_states, note) = hopmap::analysis::with_oxidation_states(&s, &table)
+            .map_err(|e| format!("{file}: cannot assign oxidation states for --to-cif: {e}"))?;
+        hopmap_report::write_cif::write_cif_p1(out, &with_states)
             .map_err(|e| format!("cannot write {}: {e}", out.display()))?;
         if !g.quiet {
-            eprintln!("P1 CIF written to {}", out.display());
+            match &note {
+                Some(n) => eprintln!(
+                    "P1 CIF written to {} with oxidation states ({n})",
+                    out.display()
+                ),
+                None => eprintln!(
+                    "P1 CIF written to {} with the file's oxidation states",
+                    out.display()
+                ),
+            }
         }
     }
     if a.json {

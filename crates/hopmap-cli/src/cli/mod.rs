@@ -147,6 +147,30 @@ pub fn emit(s: &str) {
     }
 }
 
+/// Makes an output file writable before any computing: creates its folder (as `grid`,
+/// `--figures` and `demo` create theirs) and refuses a path that is a folder, so that a long run
+/// never fails only at the end.
+pub fn prepare_output_file(path: &std::path::Path) -> Result<(), Failure> {
+    if path.is_dir() {
+        return Err(Failure::Usage(format!(
+            "{} is a folder; give a file name for this output",
+            path.display()
+        )));
+    }
+    if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
+        std::fs::create_dir_all(dir).map_err(|e| {
+            Failure::Analysis(format!("cannot create the folder {}: {e}", dir.display()))
+        })?;
+    }
+    Ok(())
+}
+
+/// Creates an output folder before any computing.
+pub fn prepare_output_dir(dir: &std::path::Path) -> Result<(), Failure> {
+    std::fs::create_dir_all(dir)
+        .map_err(|e| Failure::Analysis(format!("cannot create the folder {}: {e}", dir.display())))
+}
+
 /// Writes `contents` to `path` atomically: a temporary file in the same folder, then a rename,
 /// so that an interrupted run never leaves a partial output.
 pub fn write_atomic(path: &std::path::Path, contents: &[u8]) -> std::io::Result<()> {

@@ -108,17 +108,30 @@ pub fn screen_one(
             }
             e => e.to_string(),
         })?;
-        let p = &a.percolation;
-        row.dimension = Some(p.dimension);
-        row.barrier_1d_ev = p.threshold(1).map(|t| t.barrier as f64);
-        row.barrier_2d_ev = p.threshold(2).map(|t| t.barrier as f64);
-        row.barrier_3d_ev = p.threshold(3).map(|t| t.barrier as f64);
-        row.direction = a
-            .summary
-            .first()
-            .and_then(|n| n.orientations.first())
-            .map(|o| o.indices())
-            .unwrap_or_default();
+        // the networks the answer reports, and the figures of the one it leads with
+        let k = &a.summary.figures;
+        let barrier = |d: u8| {
+            a.summary
+                .networks
+                .iter()
+                .find(|n| n.dimension == d)
+                .map(|n| n.barrier_ev)
+        };
+        row.dimension = Some(k.dimension);
+        row.direction = k.direction.clone();
+        row.barrier_ev = k.barrier_ev;
+        row.barrier_uncertainty_ev = k.barrier_uncertainty_ev;
+        row.barrier_1d_ev = barrier(1);
+        row.barrier_2d_ev = barrier(2);
+        row.barrier_3d_ev = barrier(3);
+        row.diffusion_298k_m2_s = k.diffusion_m2_s;
+        row.diffusion_low_m2_s = k.diffusion_band_m2_s.map(|b| b.0);
+        row.diffusion_high_m2_s = k.diffusion_band_m2_s.map(|b| b.1);
+        row.conductivity_298k_s_cm = k.conductivity_s_cm;
+        row.conductivity_low_s_cm = k.conductivity_band_s_cm.map(|b| b.0);
+        row.conductivity_high_s_cm = k.conductivity_band_s_cm.map(|b| b.1);
+        row.bulk_transport = (k.dimension > 0).then_some(k.bulk_transport);
+        row.capacity_mah_g = k.capacity_mah_g;
         row.sites = a.network.as_ref().map(|n| n.sites.len());
         if let Some(v) = &a.valence {
             row.valence_verdict = v.verdict.word().to_string();
@@ -159,6 +172,7 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
     for ion in &a.ion {
         super::analyse::parse_ion(ion)?;
     }
+    super::prepare_output_file(&a.out)?;
     let jobs = screen::shard_jobs(&files, &a.ion, a.shard);
     let base_rate = RateArgsCommon::default();
     let quiet = GlobalOpts {
@@ -272,9 +286,11 @@ fn fnv1a(bytes: &[u8]) -> u64 {
 }
 
 pub fn run_merge(g: &GlobalOpts, a: MergeArgs) -> CmdResult {
+    super::prepare_output_file(&a.out)?;
     let format = TableFormat::of(&a.out).map_err(Failure::Usage)?;
-    let rows = screen::merge_tables(&a.inputs).map_err(Failure::Usage)?;
-    let text = screen::render_table(&rows, format);
+    let merged = screen::merge_tables(&a.inputs).map_err(Failure::Usage)?;
+    let rows = &merged.rows;
+    let text = screen::render_table(rows, format);
     super::write_atomic(&a.out, text.as_bytes())
         .map_err(|e| format!("cannot write {}: {e}", a.out.display()))?;
     if !g.quiet {
@@ -284,6 +300,16 @@ pub fn run_merge(g: &GlobalOpts, a: MergeArgs) -> CmdResult {
             a.inputs.len(),
             a.out.display()
         );
+    }
+    // duplicates are said even with --quiet: rows were left out of the output
+    if !merged.dropped.is_empty() {
+        eprintln!(
+            "warning: {} duplicate row(s) dropped, keeping the first result row of each job (a row without an error wins):",
+            merged.dropped_rows()
+        );
+        for (file, ion, n) in &merged.dropped {
+            eprintln!("  {file} ({ion}): {n} dropped");
+        }
     }
     Ok(())
 }
