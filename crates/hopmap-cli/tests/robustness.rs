@@ -176,7 +176,11 @@ fn a_batch_over_every_bad_file_has_one_row_per_file_and_resumes_without_duplicat
     assert!(o.status.success(), "{}", stderr(&o));
     let rows = table_rows(&d.join("t.csv"));
     assert_eq!(rows.len(), n + fifo, "{rows:#?}");
-    let ok = rows.iter().filter(|r| r.contains(",plausible,")).count();
+    // the three rock salts get answers (valence verdict plausible or strained)
+    let ok = rows
+        .iter()
+        .filter(|r| r.contains(",plausible,") || r.contains(",strained,"))
+        .count();
     assert_eq!(ok, 3, "{rows:#?}");
     // the same folder as ./in: the same jobs, nothing duplicated; only the row over its
     // memory budget (the 1000 A cell) is tried again, and comes out the same

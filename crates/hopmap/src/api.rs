@@ -256,38 +256,6 @@ impl OptionsBuilder {
         if let Some(s) = self.spacing_a {
             crate::limits::check_spacing(s).map_err(|m| Error::options("spacing", m))?;
         }
-        let r = &self.rate;
-        let positive = |name: &str, v: f64, unit: &str| {
-            if v.is_finite() && v > 0.0 {
-                Ok(())
-            } else {
-                Err(Error::options(
-                    name,
-                    format!("{v} {unit} must be a positive number"),
-                ))
-            }
-        };
-        positive("temperature", r.temperature_k, "K")?;
-        positive("attempt frequency", r.attempt_frequency_hz, "Hz")?;
-        positive("minimum ion distance", r.min_ion_distance_a, "A")?;
-        if !(r.correlation_factor > 0.0 && r.correlation_factor <= 1.0) {
-            return Err(Error::options(
-                "correlation factor",
-                format!("{} must lie in (0, 1]", r.correlation_factor),
-            ));
-        }
-        if !(r.site_filling >= 0.0 && r.site_filling < 1.0) {
-            return Err(Error::options(
-                "site filling",
-                format!("{} must lie in [0, 1)", r.site_filling),
-            ));
-        }
-        if let Some(x) = r.ions_per_formula_unit {
-            positive("ions per formula unit", x, "per formula unit")?;
-        }
-        if let Some(d) = self.diffusivity_m2_s {
-            positive("measured diffusivity", d, "m^2/s")?;
-        }
         let mut o = AnalysisOptions::new(ion);
         if let Some(p) = &self.parameter_file {
             let ov = Overrides::read(p)?;
@@ -306,7 +274,8 @@ impl OptionsBuilder {
             measured_diffusion: self.diffusivity_m2_s.map(|d| (d, self.rate.temperature_k)),
             ..self.rate
         };
-        // the core's own ranges (crate::limits, RateOptions::validate) are the last word
+        // the physical ranges are the core's (crate::limits, RateOptions::validate), one set
+        // for the library, the command line and the bindings
         o.validate()?;
         Ok(o)
     }

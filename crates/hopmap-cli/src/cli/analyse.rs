@@ -180,9 +180,13 @@ pub fn options(
                 Some("ions per formula unit") => "--inserted",
                 Some("measured diffusivity") => "--diffusivity",
                 Some("oxidation") => "--oxidation",
-                _ => "option",
+                _ => "",
             };
-            Failure::Usage(format!("{flag}: {}", e.message))
+            if flag.is_empty() {
+                Failure::Usage(e.message)
+            } else {
+                Failure::Usage(format!("{flag}: {}", e.message))
+            }
         }
         _ => Failure::Analysis(e.to_string()),
     })
