@@ -21,6 +21,7 @@ mod element_table;
 pub mod grid;
 pub mod landscape;
 pub mod lattice;
+pub mod limits;
 pub mod neighbours;
 pub mod network;
 pub mod percolation;
