@@ -20,9 +20,11 @@
 //! nearest sites excluded keeps the k nearest distances and terms per lane (compare and blend).
 //!
 //! **Precision.** Terms and sums are f32; the grids are stored as f32 anyway. Tested against
-//! the f64 path (`compute_f64`) and against `evaluate_point`: values agree within a few 1e-6
-//! relative (1e-5 eV absolute at the energies of sites and saddles), and percolation thresholds
-//! of the reference structures within 1e-4 eV.
+//! the f64 path (`compute_f64`) on every instruction set the processor has: values agree within
+//! 1e-5 relative (1e-5 eV or v.u. near zero). Symmetry-equivalent points are evaluated relative
+//! to different block centres and may differ by a few units in the last place, which is why
+//! `compute` (the main job) keeps the f64 path: its channel profiles rely on equivalent saddles
+//! tying exactly.
 
 use super::compute::{Cancelled, ComputeStats, Progress};
 use super::model::{COULOMB_EV_A, FrameworkKind, LandscapeModel};

@@ -114,6 +114,7 @@ pub trait Lanes: Copy {
 /// argument is clamped to [-87, 87] (the range of normal f32 results). Relative error within a
 /// few f32 rounding steps (tested against `f64::exp`).
 #[inline(always)]
+#[allow(clippy::excessive_precision)] // the split of ln 2 is written out in full
 pub fn exp<V: Lanes>(y: V) -> V {
     const LOG2E: f32 = std::f32::consts::LOG2_E;
     // ln 2 split so that n * LN2_HI is exact for |n| < 2^9
@@ -145,6 +146,7 @@ pub fn exp<V: Lanes>(y: V) -> V {
 /// `erfc(z) = t exp(-z^2 + P(t))`, `t = 1 / (1 + z/2)`, fractional error below 1.2e-7 for
 /// z >= 0. Returns `P(t)`.
 #[inline(always)]
+#[allow(clippy::excessive_precision)] // the coefficients as published
 pub fn erfc_poly<V: Lanes>(t: V) -> V {
     let mut p = V::splat(0.170_872_77);
     for c in [
