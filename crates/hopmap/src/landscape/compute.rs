@@ -397,7 +397,7 @@ impl Images {
                 }
             }
             // Pad the kind to whole lanes with empty images far away (occupancy 0).
-            while (self.len() - self.start[k]) % LANES != 0 {
+            while !(self.len() - self.start[k]).is_multiple_of(LANES) {
                 self.push([FAR; 3], 0.0);
             }
         }

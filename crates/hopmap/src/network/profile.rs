@@ -217,7 +217,7 @@ const SOURCE: u8 = 6;
 /// Unit step of face direction `dir` (0: +a, 1: -a, 2: +b, 3: -b, 4: +c, 5: -c).
 fn step(dir: usize) -> [i64; 3] {
     let mut d = [0; 3];
-    d[dir / 2] = if dir % 2 == 0 { 1 } else { -1 };
+    d[dir / 2] = if dir.is_multiple_of(2) { 1 } else { -1 };
     d
 }
 

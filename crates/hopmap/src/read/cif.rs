@@ -193,6 +193,26 @@ pub fn blocks_with_atoms(doc: &Document) -> Vec<&Block> {
 pub fn read_cif(path: &Path, block: Option<&str>) -> Result<Structure, InputError> {
     let file = path.display().to_string();
     let doc = cif::parse_file(path)?;
+    structure_from_document(&doc, &file, block)
+}
+
+/// As [`read_cif`], from the text of a CIF held in memory; `file` names it in messages.
+pub fn read_cif_text(
+    text: &[u8],
+    file: &str,
+    block: Option<&str>,
+) -> Result<Structure, InputError> {
+    let doc = cif::parse(text).map_err(|e| e.into_input_error(file))?;
+    structure_from_document(&doc, file, block)
+}
+
+/// The structure of one data block of a parsed document (see [`read_cif`]).
+pub fn structure_from_document(
+    doc: &cif::Document,
+    file: &str,
+    block: Option<&str>,
+) -> Result<Structure, InputError> {
+    let file = file.to_string();
     let names = || {
         let v: Vec<String> = doc
             .blocks
@@ -213,7 +233,7 @@ pub fn read_cif(path: &Path, block: Option<&str>) -> Result<Structure, InputErro
                 format!("there is no data block '{name}'; the file has: {}", names()),
             )
         })?,
-        None => *blocks_with_atoms(&doc).first().ok_or_else(|| {
+        None => *blocks_with_atoms(doc).first().ok_or_else(|| {
             InputError::new(
                 file.clone(),
                 format!(
@@ -708,7 +728,10 @@ pub fn read_symbol(s: &str) -> Option<SymbolReading> {
         None if lower.starts_with('d') => (Element::from_symbol("H")?, 1),
         None => return None,
     };
-    Some(SymbolReading::Atom(element, read_charge(&s[used..])))
+    Some(SymbolReading::Atom(
+        element,
+        crate::structure::read_charge(&s[used..]),
+    ))
 }
 
 /// Reads the element from a site label, for sites without a type symbol: as
@@ -728,28 +751,6 @@ pub fn read_label(label: &str) -> Option<SymbolReading> {
         return Some(SymbolReading::Atom(Element::from_symbol("O")?, None));
     }
     read_symbol(l)
-}
-
-/// `2+`, `+2`, `+`, `2.5+`, `-2` -> signed charge; anything else (a label's digits) -> None.
-fn read_charge(rest: &str) -> Option<f64> {
-    let (sign, mag) = if let Some(m) = rest.strip_suffix('+') {
-        (1.0, m)
-    } else if let Some(m) = rest.strip_suffix('-') {
-        (-1.0, m)
-    } else if let Some(m) = rest.strip_prefix('+') {
-        (1.0, m)
-    } else if let Some(m) = rest.strip_prefix('-') {
-        (-1.0, m)
-    } else {
-        return None;
-    };
-    if mag.is_empty() {
-        return Some(sign);
-    }
-    if !mag.bytes().all(|b| b.is_ascii_digit() || b == b'.') {
-        return None;
-    }
-    mag.parse::<f64>().ok().map(|m| sign * m)
 }
 
 fn read_site_rows(
