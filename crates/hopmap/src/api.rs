@@ -20,11 +20,6 @@ use std::fmt;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
-/// Smallest and largest grid spacing accepted, A (both included): the bounds of
-/// [`crate::limits::check_spacing`].
-pub const SPACING_RANGE_A: (f64, f64) =
-    (crate::limits::MIN_SPACING_A, crate::limits::MAX_SPACING_A);
-
 /// What went wrong, so that a program can react without reading the sentence.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum ErrorKind {
@@ -36,6 +31,9 @@ pub enum ErrorKind {
     Model,
     /// The structure cannot host the analysis (no framework, no site of the ion, ...).
     Structure,
+    /// The structure's grid would exceed the memory or time budget ([`crate::limits`]); the
+    /// message gives the estimate and a spacing that would fit.
+    OverBudget,
     /// The caller's progress callback asked to stop.
     Cancelled,
 }
@@ -47,6 +45,7 @@ impl ErrorKind {
             ErrorKind::Options => "options",
             ErrorKind::Model => "model",
             ErrorKind::Structure => "structure",
+            ErrorKind::OverBudget => "over budget",
             ErrorKind::Cancelled => "cancelled",
         }
     }
@@ -130,11 +129,9 @@ impl From<AnalysisError> for Error {
                 Some(format!("structure '{structure}'")),
                 message,
             ),
-            AnalysisError::Options(m) => (ErrorKind::Options, None, m),
-            // a grid over the memory or time budget (crate::limits): this structure, at this
-            // spacing, cannot be analysed within the budget
+            AnalysisError::Options(message) => (ErrorKind::Options, None, message),
             AnalysisError::OverBudget { structure, message } => (
-                ErrorKind::Structure,
+                ErrorKind::OverBudget,
                 Some(format!("structure '{structure}'")),
                 message,
             ),
@@ -256,17 +253,41 @@ impl OptionsBuilder {
                 format!("'{}' is not an element symbol (e.g. Li, Na, Mg)", self.ion),
             )
         })?;
-        // one definition of every range: the spacing in crate::limits, the rest in
-        // RateOptions::check
         if let Some(s) = self.spacing_a {
             crate::limits::check_spacing(s).map_err(|m| Error::options("spacing", m))?;
         }
-        let rate = RateOptions {
-            measured_diffusion: self.diffusivity_m2_s.map(|d| (d, self.rate.temperature_k)),
-            ..self.rate.clone()
+        let r = &self.rate;
+        let positive = |name: &str, v: f64, unit: &str| {
+            if v.is_finite() && v > 0.0 {
+                Ok(())
+            } else {
+                Err(Error::options(
+                    name,
+                    format!("{v} {unit} must be a positive number"),
+                ))
+            }
         };
-        rate.check()
-            .map_err(|(place, m)| Error::options(place, m))?;
+        positive("temperature", r.temperature_k, "K")?;
+        positive("attempt frequency", r.attempt_frequency_hz, "Hz")?;
+        positive("minimum ion distance", r.min_ion_distance_a, "A")?;
+        if !(r.correlation_factor > 0.0 && r.correlation_factor <= 1.0) {
+            return Err(Error::options(
+                "correlation factor",
+                format!("{} must lie in (0, 1]", r.correlation_factor),
+            ));
+        }
+        if !(r.site_filling >= 0.0 && r.site_filling < 1.0) {
+            return Err(Error::options(
+                "site filling",
+                format!("{} must lie in [0, 1)", r.site_filling),
+            ));
+        }
+        if let Some(x) = r.ions_per_formula_unit {
+            positive("ions per formula unit", x, "per formula unit")?;
+        }
+        if let Some(d) = self.diffusivity_m2_s {
+            positive("measured diffusivity", d, "m^2/s")?;
+        }
         let mut o = AnalysisOptions::new(ion);
         if let Some(p) = &self.parameter_file {
             let ov = Overrides::read(p)?;
@@ -281,7 +302,12 @@ impl OptionsBuilder {
         o.exclude_labels = self.exclude_labels;
         o.progress = self.progress;
         o.percolation_only = self.percolation_only;
-        o.rate = rate;
+        o.rate = RateOptions {
+            measured_diffusion: self.diffusivity_m2_s.map(|d| (d, self.rate.temperature_k)),
+            ..self.rate
+        };
+        // the core's own ranges (crate::limits, RateOptions::validate) are the last word
+        o.validate()?;
         Ok(o)
     }
 }
