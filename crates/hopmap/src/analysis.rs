@@ -134,67 +134,94 @@ impl RateOptions {
     /// above 0, correlation factor in (0, 1], site filling in [0, 1), a measured D above 0,
     /// C-rates above 0, the minimum ion distance in (0, 10] A, inserted ions at least 0.
     pub fn validate(&self) -> Result<(), AnalysisError> {
+        self.check().map_err(|(_, m)| AnalysisError::Options(m))
+    }
+
+    /// As [`RateOptions::validate`], with the name of the option at fault (`temperature`,
+    /// `attempt frequency`, `correlation factor`, `site filling`, `measured diffusivity`,
+    /// `C-rate`, `minimum ion distance`, `ions per formula unit`).
+    pub fn check(&self) -> Result<(), (&'static str, String)> {
         use crate::limits::short_number as n;
-        let bad = |m: String| Err(AnalysisError::Options(m));
         let t = self.temperature_k;
         if !(t > 0.0 && t <= 5000.0) {
-            return bad(format!(
-                "temperature {} K must lie above 0 K and at most 5000 K",
-                n(t)
+            return Err((
+                "temperature",
+                format!(
+                    "temperature {} K must lie above 0 K and at most 5000 K",
+                    n(t)
+                ),
             ));
         }
         let f = self.attempt_frequency_hz;
         if !(f > 0.0 && f.is_finite()) {
-            return bad(format!(
-                "attempt frequency {} Hz must be a positive number",
-                n(f)
+            return Err((
+                "attempt frequency",
+                format!("attempt frequency {} Hz must be a positive number", n(f)),
             ));
         }
         let c = self.correlation_factor;
         if !(c > 0.0 && c <= 1.0) {
-            return bad(format!(
-                "correlation factor {} must lie above 0 and at most 1",
-                n(c)
+            return Err((
+                "correlation factor",
+                format!("correlation factor {} must lie above 0 and at most 1", n(c)),
             ));
         }
         let x = self.site_filling;
         if !(0.0..1.0).contains(&x) {
-            return bad(format!(
-                "site filling {} must lie in [0, 1) (0 = dilute; a full lattice has no vacancy to hop into)",
-                n(x)
+            return Err((
+                "site filling",
+                format!(
+                    "site filling {} must lie in [0, 1) (0 = dilute; a full lattice has no vacancy to hop into)",
+                    n(x)
+                ),
             ));
         }
         if let Some((d, tk)) = self.measured_diffusion {
             if !(d > 0.0 && d.is_finite()) {
-                return bad(format!(
-                    "measured diffusion coefficient {} m^2/s must be a positive number",
-                    n(d)
+                return Err((
+                    "measured diffusivity",
+                    format!(
+                        "measured diffusion coefficient {} m^2/s must be a positive number",
+                        n(d)
+                    ),
                 ));
             }
             if !(tk > 0.0 && tk <= 5000.0) {
-                return bad(format!(
-                    "temperature of the measured diffusion coefficient {} K must lie above 0 K and at most 5000 K",
-                    n(tk)
+                return Err((
+                    "measured diffusivity",
+                    format!(
+                        "temperature of the measured diffusion coefficient {} K must lie above 0 K and at most 5000 K",
+                        n(tk)
+                    ),
                 ));
             }
         }
         if let Some(r) = self.c_rates.iter().find(|r| !(**r > 0.0 && r.is_finite())) {
-            return bad(format!("C-rate {} must be a positive number", n(*r)));
+            return Err((
+                "C-rate",
+                format!("C-rate {} must be a positive number", n(*r)),
+            ));
         }
         let m = self.min_ion_distance_a;
         if !(m > 0.0 && m <= Self::MAX_MIN_ION_DISTANCE_A) {
-            return bad(format!(
-                "minimum ion distance {} A must lie above 0 and at most {} A",
-                n(m),
-                Self::MAX_MIN_ION_DISTANCE_A
+            return Err((
+                "minimum ion distance",
+                format!(
+                    "minimum ion distance {} A must lie above 0 and at most {} A",
+                    n(m),
+                    Self::MAX_MIN_ION_DISTANCE_A
+                ),
             ));
         }
         if let Some(x) = self.ions_per_formula_unit
             && !(x >= 0.0 && x.is_finite())
         {
-            return bad(format!(
-                "inserted ions per formula unit {} must be a number at least 0",
-                n(x)
+            return Err((
+                "ions per formula unit",
+                format!(
+                    "inserted ions per formula unit {} must be a number at least 0",
+                    n(x)
+                ),
             ));
         }
         Ok(())
