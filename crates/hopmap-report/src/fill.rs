@@ -14,8 +14,39 @@ use std::fmt::Write;
 /// The version of the JSON document.
 pub const SCHEMA: &str = "hopmap.fill/1";
 
+/// A number in plain scientific notation for the terminal (HTML uses [`sci`]).
+fn num(x: f64, digits: usize) -> String {
+    if !x.is_finite() {
+        "-".into()
+    } else if x == 0.0 {
+        "0".into()
+    } else {
+        format!("{:.*e}", digits.saturating_sub(1), x)
+    }
+}
+
 fn pm(e: &Estimate) -> String {
-    format!("{} ± {}", sci(e.mean, 2), sci(e.stderr, 1))
+    if !e.mean.is_finite() {
+        return "-".into();
+    }
+    format!("{} ± {}", num(e.mean, 3), num(e.stderr, 2))
+}
+
+fn pm_html(e: &Estimate) -> String {
+    if !e.mean.is_finite() {
+        return "-".into();
+    }
+    if e.mean == 0.0 {
+        return "0".into();
+    }
+    format!("{} ± {}", sci(e.mean, 3), sci(e.stderr, 2))
+}
+
+fn fixed(e: &Estimate) -> String {
+    if !e.mean.is_finite() {
+        return "-".into();
+    }
+    format!("{:.3} ± {:.3}", e.mean, e.stderr)
 }
 
 fn limit_text(l: &ParticleLimit) -> String {
@@ -55,7 +86,7 @@ fn settings_lines(s: &FillStudy) -> Vec<String> {
         format!(
             "T = {} K, attempt frequency {} Hz shared over the 2d = {} directions of the {}D network",
             k.temperature_k,
-            sci(k.attempt_frequency_hz, 2),
+            num(k.attempt_frequency_hz, 2),
             2 * s.dimension,
             s.dimension
         ),
@@ -86,7 +117,7 @@ pub fn terminal(s: &FillStudy, file: &str) -> String {
             o,
             "  dilute limit of the analysis (hopping model, {}D): D = {} m^2/s",
             s.dimension,
-            sci(d, 2)
+            num(d, 2)
         );
     }
     let _ = writeln!(o);
@@ -116,12 +147,9 @@ pub fn terminal(s: &FillStudy, file: &str) -> String {
                         p.direction[1].abs(),
                         p.direction[2].abs()
                     ),
-                    format!(
-                        "{:.3} ± {:.3}",
-                        p.correlation_factor.mean, p.correlation_factor.stderr
-                    ),
+                    fixed(&p.correlation_factor),
                     pm(&p.conductivity_s_cm),
-                    sci(p.time_s, 2)
+                    num(p.time_s, 2)
                 );
             }
             Err(e) => {
@@ -167,10 +195,7 @@ pub fn terminal(s: &FillStudy, file: &str) -> String {
                 r.law_limit_a
                     .map(|d| format!("{:.1} nm", d / 10.0))
                     .unwrap_or_else(|| "-".into()),
-                format!(
-                    "{:.3} ± {:.3}",
-                    r.share_at_particle.mean, r.share_at_particle.stderr
-                ),
+                fixed(&r.share_at_particle),
                 r.share_law
                     .map(|v| format!("{v:.3}"))
                     .unwrap_or_else(|| "-".into())
@@ -382,13 +407,12 @@ pub fn html(s: &FillStudy, file: &str) -> String {
             Ok(p) => {
                 let _ = writeln!(
                     b,
-                    "<tr><td>{:.2}</td><td>{:.3}</td><td>{}</td><td>{:.3} ± {:.3}</td><td>{}</td><td>{}</td></tr>",
+                    "<tr><td>{:.2}</td><td>{:.3}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
                     r.x_per_formula_unit,
                     r.site_fraction,
-                    esc(&pm(&p.diffusion_m2_s)),
-                    p.correlation_factor.mean,
-                    p.correlation_factor.stderr,
-                    esc(&pm(&p.conductivity_s_cm)),
+                    pm_html(&p.diffusion_m2_s),
+                    fixed(&p.correlation_factor),
+                    pm_html(&p.conductivity_s_cm),
                     sci(p.time_s, 2)
                 );
             }
@@ -428,14 +452,13 @@ pub fn html(s: &FillStudy, file: &str) -> String {
             for r in &f.rows {
                 let _ = writeln!(
                     b,
-                    "<tr><td>{}</td><td>{}</td><td>{}</td><td>{:.3} ± {:.3}</td><td>{}</td></tr>",
+                    "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
                     r.defect_fraction,
                     esc(&limit_text(&r.limit)),
                     r.law_limit_a
                         .map(|d| format!("{:.1} nm", d / 10.0))
                         .unwrap_or_else(|| "-".into()),
-                    r.share_at_particle.mean,
-                    r.share_at_particle.stderr,
+                    fixed(&r.share_at_particle),
                     r.share_law
                         .map(|v| format!("{v:.3}"))
                         .unwrap_or_else(|| "-".into())

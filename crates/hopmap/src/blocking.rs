@@ -256,7 +256,8 @@ pub fn sample_particle_at(
     }
 }
 
-/// The mean capacity share over particles of one size, sampled until at least `min_sites`
+/// The capacity share of particles of one size (reachable over defect-free sites, pooled over
+/// particles, with the standard error of a ratio estimate), sampled until at least `min_sites`
 /// sites (and at least 4 particles) have been seen; samples in parallel.
 pub fn particle_share(
     net: &HopNetwork,
@@ -268,15 +269,39 @@ pub fn particle_share(
     let first = sample_particle(net, diameter_a, p, stream_seed(seed, 0));
     let per = first.sites.max(1);
     let count = (min_sites.div_ceil(per)).clamp(4, 256);
-    let shares: Vec<f64> = std::iter::once(first.share())
+    let samples: Vec<ParticleSample> = std::iter::once(first)
         .chain(
             (1..count)
                 .into_par_iter()
-                .map(|i| sample_particle(net, diameter_a, p, stream_seed(seed, i as u64)).share())
+                .map(|i| sample_particle(net, diameter_a, p, stream_seed(seed, i as u64)))
                 .collect::<Vec<_>>(),
         )
         .collect();
-    Estimate::of(&shares)
+    let n = samples.len() as f64;
+    let free: Vec<f64> = samples
+        .iter()
+        .map(|s| (s.sites - s.defects) as f64)
+        .collect();
+    let reach: Vec<f64> = samples.iter().map(|s| s.reachable as f64).collect();
+    let total_free: f64 = free.iter().sum();
+    if total_free <= 0.0 {
+        return Estimate {
+            mean: f64::NAN,
+            stderr: f64::NAN,
+        };
+    }
+    let ratio = reach.iter().sum::<f64>() / total_free;
+    let mean_free = total_free / n;
+    let var = reach
+        .iter()
+        .zip(&free)
+        .map(|(r, f)| (r - ratio * f).powi(2))
+        .sum::<f64>()
+        / (n - 1.0).max(1.0);
+    Estimate {
+        mean: ratio,
+        stderr: (var / n).sqrt() / mean_free,
+    }
 }
 
 /// The largest particle of a family at one defect fraction.
@@ -301,13 +326,14 @@ pub fn largest_particle(
 ) -> ParticleLimit {
     let min_sites = 20_000;
     let ok = |d: f64, k: u64| particle_share(net, d, p, min_sites, stream_seed(seed, k)).mean >= share;
+    // the smallest particle: a few hops across
     let lo0 = net
-        .lattice
-        .perpendicular_widths()
+        .hops
         .iter()
-        .copied()
-        .fold(f64::INFINITY, f64::min)
-        .max(5.0);
+        .map(|h| net.hop_vector(h).norm())
+        .fold(0.0f64, f64::max)
+        .max(3.0)
+        * 3.0;
     if ok(max_diameter_a, 1) {
         return ParticleLimit::NoLimitUpTo(max_diameter_a);
     }

@@ -121,6 +121,10 @@ pub enum FillError {
     Kmc(#[from] kmc::KmcError),
 }
 
+/// Hops whose lower barrier exceeds the channel barrier by more than this many kT are left out
+/// of the KMC network: at 20 kT they are 2e9 times slower than the channel's hops.
+pub const SKIP_HOP_KT: f64 = 20.0;
+
 /// Single-file caution for 1D networks.
 pub const SINGLE_FILE_NOTE: &str = "In one-dimensional channels ions cannot pass each other: the \
     tracer's mean-square displacement grows as the square root of time, so its D falls with the \
@@ -139,7 +143,16 @@ pub fn study(a: &Analysis, opts: &FillOptions) -> Result<FillStudy, FillError> {
     let distinct = analysis::distinct_thresholds(&a.percolation);
     let first = distinct.first().ok_or(FillError::NoChannels)?;
     let lattice = &a.structure.lattice;
-    let hops = HopNetwork::from_network(net, lattice, f64::INFINITY, first.dimension);
+    let mut hops = HopNetwork::from_network(net, lattice, f64::INFINITY, first.dimension);
+    // hops dearer than the channel's barrier by more than SKIP_HOP_KT kT both ways never fire
+    // within a run
+    let kt = crate::transport::BOLTZMANN_EV_PER_K * opts.kmc.temperature_k;
+    let dearest = first.barrier as f64 + SKIP_HOP_KT * kt;
+    hops.hops.retain(|h| {
+        let e_from = hops.sites[h.from].energy_ev;
+        let e_to = hops.sites[h.to].energy_ev;
+        h.saddle_ev - e_from.max(e_to) <= dearest
+    });
     let (z, formula) = a.structure.formula_and_z();
     let sites = hops.sites.len();
     let sites_per_fu = sites as f64 / z;

@@ -831,6 +831,9 @@ struct State<'a> {
     kt: f64,
     disp: Vec<[f64; 3]>,
     hop_sq: Vec<f64>,
+    /// Event stamp per ion, so that one event recomputes each ion's rate once.
+    stamp: Vec<u64>,
+    event: u64,
     /// Last hops of each ion (ring of CORRELATION_WINDOW) and how many were recorded.
     history: Vec<[[f64; 3]; CORRELATION_WINDOW]>,
     recorded: Vec<usize>,
@@ -888,7 +891,8 @@ impl<'a> State<'a> {
         let sc = self.sc;
         for &k in &sc.infl[sc.infl_start[s]..sc.infl_start[s + 1]] {
             let ion = self.occ[k as usize];
-            if ion != EMPTY {
+            if ion != EMPTY && self.stamp[ion as usize] != self.event {
+                self.stamp[ion as usize] = self.event;
                 let r = self.ion_rate(ion as usize);
                 self.rates.set(ion as usize, r);
             }
@@ -941,6 +945,7 @@ impl<'a> State<'a> {
         ring[n % CORRELATION_WINDOW] = h.vector;
         self.recorded[ion] = n + 1;
         self.rates.set(ion, 0.0);
+        self.event += 1;
         self.refresh_around(s);
         self.refresh_around(t);
     }
@@ -998,6 +1003,8 @@ fn run_on(
         kt,
         disp: vec![[0.0; 3]; ions],
         hop_sq: vec![0.0; ions],
+        stamp: vec![0; ions],
+        event: 0,
         history: vec![[[0.0; 3]; CORRELATION_WINDOW]; ions],
         recorded: vec![0; ions],
         cross: 0.0,
