@@ -141,12 +141,16 @@ pub fn terminal(s: &FillStudy, file: &str) -> String {
                     r.x_per_formula_unit,
                     r.site_fraction,
                     pm(&p.diffusion_m2_s),
-                    format!(
-                        "{:.2},{:.2},{:.2}",
-                        p.direction[0].abs(),
-                        p.direction[1].abs(),
-                        p.direction[2].abs()
-                    ),
+                    if p.diffusion_m2_s.mean > 0.0 {
+                        format!(
+                            "{:.2},{:.2},{:.2}",
+                            p.direction[0].abs(),
+                            p.direction[1].abs(),
+                            p.direction[2].abs()
+                        )
+                    } else {
+                        "-".to_string()
+                    },
                     fixed(&p.correlation_factor),
                     pm(&p.conductivity_s_cm),
                     num(p.time_s, 2)
@@ -170,9 +174,18 @@ pub fn terminal(s: &FillStudy, file: &str) -> String {
         let _ = writeln!(o);
         let _ = writeln!(
             o,
-            "  blocking, {}D family (barrier {:.2} eV; {} sites, {} hops per cell, hop {:.2} A): \
+            "  blocking, {}D family (barrier {:.2} eV; {} sites, {} hops per cell, hop {:.2} A; {}): \
              immobile defects on a fraction p of its sites",
-            f.dimension, f.barrier_ev, f.sites_per_cell, f.hops_per_cell, f.spacing_a
+            f.dimension,
+            f.barrier_ev,
+            f.sites_per_cell,
+            f.hops_per_cell,
+            f.spacing_a,
+            if f.single_file {
+                "isolated channels, single file"
+            } else {
+                "cross-linked"
+            }
         );
         let _ = writeln!(
             o,
@@ -220,13 +233,14 @@ fn est(e: &Estimate, digits: i32) -> Value {
     json!({ "mean": r(e.mean), "stderr": r(e.stderr) })
 }
 
-/// Rounds to `digits` significant digits.
+/// Rounds to `digits` significant digits (through the decimal text, so no binary residue).
 fn sig(x: f64, digits: i32) -> f64 {
     if x == 0.0 || !x.is_finite() {
         return x;
     }
-    let e = x.abs().log10().floor() as i32;
-    round(x, digits - 1 - e)
+    format!("{:.*e}", (digits - 1).max(0) as usize, x)
+        .parse()
+        .unwrap_or(x)
 }
 
 /// The JSON document of `hopmap fill --json`.
@@ -268,6 +282,7 @@ pub fn json(s: &FillStudy, file: &str) -> Value {
                 "sites_per_cell": f.sites_per_cell,
                 "hops_per_cell": f.hops_per_cell,
                 "hop_length_a": round(f.spacing_a, 3),
+                "single_file": f.single_file,
                 "rows": f.rows.iter().map(|r| {
                     let (kind, d) = match r.limit {
                         ParticleLimit::Diameter(d) => ("diameter", d),
@@ -441,12 +456,17 @@ pub fn html(s: &FillStudy, file: &str) -> String {
         for f in &s.families {
             let _ = writeln!(
                 b,
-                "<h3>{}D family, barrier {:.2} eV ({} sites, {} hops per cell)</h3>\n<table>\n\
+                "<h3>{}D family, barrier {:.2} eV ({} sites, {} hops per cell; {})</h3>\n<table>\n\
                  <tr><th>p</th><th>largest particle</th><th>1D law</th><th>share at {:.0} nm</th><th>1D law share</th></tr>",
                 f.dimension,
                 f.barrier_ev,
                 f.sites_per_cell,
                 f.hops_per_cell,
+                if f.single_file {
+                    "isolated channels, single file"
+                } else {
+                    "cross-linked"
+                },
                 s.options.particle_diameter_a / 10.0
             );
             for r in &f.rows {

@@ -67,11 +67,12 @@ pub struct BlockingRow {
     pub defect_fraction: f64,
     /// Largest spherical particle keeping the share, simulated on the family's network.
     pub limit: ParticleLimit,
-    /// For a 1D family: the largest sphere by the exact channel law averaged over its chords, A.
+    /// For a single-file family: the largest sphere by the exact channel law averaged over its
+    /// chords, A.
     pub law_limit_a: Option<f64>,
     /// Mean capacity share of particles of the table's diameter (simulated).
     pub share_at_particle: Estimate,
-    /// For a 1D family: the same share by the channel law.
+    /// For a single-file family: the same share by the channel law.
     pub share_law: Option<f64>,
 }
 
@@ -85,6 +86,9 @@ pub struct FamilyBlocking {
     pub hops_per_cell: usize,
     /// Mean hop length of the family, A.
     pub spacing_a: f64,
+    /// Every site of the family has exactly two hops: isolated straight channels, where ions
+    /// move in single file and the exact 1D law applies.
+    pub single_file: bool,
     pub rows: Vec<BlockingRow>,
 }
 
@@ -245,6 +249,12 @@ fn family_blocking(
     let spacing = fam.hops.iter().map(|h| fam.hop_vector(h).norm()).sum::<f64>()
         / fam.hops.len() as f64;
     let seed = opts.kmc.seed;
+    let mut degree = vec![0usize; fam.sites.len()];
+    for h in &fam.hops {
+        degree[h.from] += 1;
+        degree[h.to] += 1;
+    }
+    let single_file = dimension == 1 && degree.iter().all(|&d| d == 2);
     let rows = opts
         .defect_fractions
         .iter()
@@ -254,7 +264,7 @@ fn family_blocking(
             let limit = blocking::largest_particle(fam, p, opts.share, opts.max_diameter_a, s);
             let share_at_particle =
                 blocking::particle_share(fam, opts.particle_diameter_a, p, 20_000, s ^ 1);
-            let (law_limit_a, share_law) = if dimension == 1 {
+            let (law_limit_a, share_law) = if single_file {
                 (
                     sphere_law_limit(spacing, p, opts.share),
                     Some(blocking::sphere_chain_share(
@@ -282,6 +292,7 @@ fn family_blocking(
         sites_per_cell: fam.sites.len(),
         hops_per_cell: fam.hops.len(),
         spacing_a: spacing,
+        single_file,
         rows,
     }
 }
