@@ -215,7 +215,20 @@ pub fn study(a: &Analysis, opts: &FillOptions) -> Result<FillStudy, FillError> {
             .collect()
     };
     let mut notes = vec![KMC_CAUTION.to_string()];
-    if first.dimension == 1 {
+    // single file: the first family's sites each have exactly two hops
+    let first_family = HopNetwork::from_network(
+        net,
+        lattice,
+        first.energy as f64 + opts.family_slack_ev,
+        first.dimension,
+    )
+    .connected_part();
+    let mut degree = vec![0usize; first_family.sites.len()];
+    for h in &first_family.hops {
+        degree[h.from] += 1;
+        degree[h.to] += 1;
+    }
+    if first.dimension == 1 && degree.iter().all(|&d| d == 2) {
         notes.push(SINGLE_FILE_NOTE.to_string());
     }
     Ok(FillStudy {

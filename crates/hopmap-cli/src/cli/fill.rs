@@ -44,6 +44,10 @@ pub struct FillArgs {
     /// Hops per ion measured in each run (after a warm-up of a fifth as many)
     #[arg(long, default_value_t = 100.0)]
     pub hops_per_ion: f64,
+    /// Each side of the simulated supercell is at least this wide, A (longer channels show
+    /// single-file slowing more fully; cost grows with the volume)
+    #[arg(long, default_value_t = 18.0, value_name = "A")]
+    pub supercell: f64,
     /// Seed of the random numbers: the same seed gives the same numbers
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
@@ -113,6 +117,12 @@ pub fn run(g: &GlobalOpts, a: FillArgs) -> CmdResult {
     if !(a.particle > 0.0 && a.particle.is_finite()) {
         return Err(Failure::Usage(format!("--particle {} nm must be positive", a.particle)));
     }
+    if !(a.supercell > 0.0 && a.supercell <= 200.0) {
+        return Err(Failure::Usage(format!(
+            "--supercell {} A must lie in (0, 200]",
+            a.supercell
+        )));
+    }
     if a.defects.iter().any(|p| !(*p > 0.0 && *p < 1.0)) {
         return Err(Failure::Usage("--defects: fractions lie in (0, 1)".into()));
     }
@@ -138,6 +148,7 @@ pub fn run(g: &GlobalOpts, a: FillArgs) -> CmdResult {
             }),
             runs: a.runs,
             seed: a.seed,
+            min_supercell_a: a.supercell,
             warmup_hops_per_ion: a.hops_per_ion / 5.0,
             length: RunLength::HopsPerIon(a.hops_per_ion),
             ..KmcOptions::default()
