@@ -54,13 +54,18 @@ fn olivine_fills_along_b_and_its_channels_block_by_the_1d_law() {
     assert_eq!(rows.len(), 2);
     let d = |i: usize| rows[i]["diffusion_m2_s"]["mean"].as_f64().unwrap();
     let e = |i: usize| rows[i]["diffusion_m2_s"]["stderr"].as_f64().unwrap();
-    for i in 0..2 {
+    for (i, row) in rows.iter().enumerate() {
         assert!(d(i) > 0.0 && e(i) > 0.0 && e(i) < d(i));
         // along b: y of the orthorhombic cell
-        assert!(rows[i]["direction_cartesian"][1].as_f64().unwrap().abs() > 0.99);
+        assert!(row["direction_cartesian"][1].as_f64().unwrap().abs() > 0.99);
     }
     // ions in single file slow each other down (the two D differ by many standard errors)
-    assert!(d(1) + 3.0 * e(1) < d(0) - 3.0 * e(0), "{} vs {}", d(1), d(0));
+    assert!(
+        d(1) + 3.0 * e(1) < d(0) - 3.0 * e(0),
+        "{} vs {}",
+        d(1),
+        d(0)
+    );
     let dilute = j["dilute_reference_diffusion_m2_s"].as_f64().unwrap();
     assert!(d(0) < dilute * 1.2);
     let fam = &j["blocking"][0];

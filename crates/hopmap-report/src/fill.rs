@@ -2,7 +2,7 @@
 //! document (schema `hopmap.fill/1`, documented in the README) and the HTML page with the
 //! figure of D against the filling.
 
-use crate::html::{esc, page, scope_ids, sci};
+use crate::html::{esc, page, sci, scope_ids};
 use crate::json::round;
 use hopmap::blocking::ParticleLimit;
 use hopmap::filling::FillStudy;
@@ -191,10 +191,7 @@ pub fn terminal(s: &FillStudy, file: &str) -> String {
             o,
             "    {:>6}  {:>28}  {:>16}  {:>22}  {:>14}",
             "p",
-            format!(
-                "largest particle ({:.0}% kept)",
-                s.options.share * 100.0
-            ),
+            format!("largest particle ({:.0}% kept)", s.options.share * 100.0),
             "1D law",
             format!("share at {:.0} nm", s.options.particle_diameter_a / 10.0),
             "1D law share"
@@ -358,9 +355,12 @@ pub fn figure(s: &FillStudy) -> String {
         Axis::log("Tracer D (fast direction)", "m²/s"),
     );
     plot.series.push(
-        Series::line("KMC, mean of runs", pts.iter().map(|p| (p.0, p.1)).collect())
-            .with_marker(MarkerShape::Circle)
-            .with_colour(hopmap_plot::colormap::categorical(0)),
+        Series::line(
+            "KMC, mean of runs",
+            pts.iter().map(|p| (p.0, p.1)).collect(),
+        )
+        .with_marker(MarkerShape::Circle)
+        .with_colour(hopmap_plot::colormap::categorical(0)),
     );
     for &(x, d, e) in &pts {
         // one standard error; a bar reaching zero is cut at a tenth of the mean

@@ -157,7 +157,7 @@ pub fn sample_particle_at(
         defects: 0,
         reachable: 0,
     };
-    if ns == 0 || !(diameter_a > 0.0) {
+    if ns == 0 || diameter_a.is_nan() || diameter_a <= 0.0 {
         return empty;
     }
     let lat = &net.lattice;
@@ -172,8 +172,7 @@ pub fn sample_particle_at(
     let mut index = vec![OUT; cells * ns];
     let mut inside = 0usize;
     let pos = |c: [i64; 3], s: usize| -> Vector3<f64> {
-        lat.matrix()
-            * (net.sites[s].frac.0 + Vector3::new(c[0] as f64, c[1] as f64, c[2] as f64))
+        lat.matrix() * (net.sites[s].frac.0 + Vector3::new(c[0] as f64, c[1] as f64, c[2] as f64))
     };
     let flat = |c: [i64; 3], s: usize| -> Option<usize> {
         let mut id = 0usize;
@@ -232,9 +231,7 @@ pub fn sample_particle_at(
     }
     // breadth-first search from the free surface sites over free sites
     let mut seen = vec![false; inside];
-    let mut queue: Vec<usize> = (0..inside)
-        .filter(|&i| surface[i] && !defect[i])
-        .collect();
+    let mut queue: Vec<usize> = (0..inside).filter(|&i| surface[i] && !defect[i]).collect();
     for &i in &queue {
         seen[i] = true;
     }
@@ -325,7 +322,8 @@ pub fn largest_particle(
     seed: u64,
 ) -> ParticleLimit {
     let min_sites = 20_000;
-    let ok = |d: f64, k: u64| particle_share(net, d, p, min_sites, stream_seed(seed, k)).mean >= share;
+    let ok =
+        |d: f64, k: u64| particle_share(net, d, p, min_sites, stream_seed(seed, k)).mean >= share;
     // the smallest particle: a few hops across
     let lo0 = net
         .hops

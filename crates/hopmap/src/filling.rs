@@ -210,7 +210,13 @@ pub fn study(a: &Analysis, opts: &FillOptions) -> Result<FillStudy, FillError> {
                 if fam.hops.is_empty() {
                     return None;
                 }
-                Some(family_blocking(&fam, t.dimension, t.barrier as f64, t.energy as f64, opts))
+                Some(family_blocking(
+                    &fam,
+                    t.dimension,
+                    t.barrier as f64,
+                    t.energy as f64,
+                    opts,
+                ))
             })
             .collect()
     };
@@ -259,7 +265,11 @@ fn family_blocking(
     threshold_ev: f64,
     opts: &FillOptions,
 ) -> FamilyBlocking {
-    let spacing = fam.hops.iter().map(|h| fam.hop_vector(h).norm()).sum::<f64>()
+    let spacing = fam
+        .hops
+        .iter()
+        .map(|h| fam.hop_vector(h).norm())
+        .sum::<f64>()
         / fam.hops.len() as f64;
     let seed = opts.kmc.seed;
     let mut degree = vec![0usize; fam.sites.len()];

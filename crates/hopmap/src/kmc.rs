@@ -159,12 +159,9 @@ impl HopNetwork {
         let basis: Vec<[f64; 3]> = match kind {
             CubicLattice::Simple => vec![[0.0; 3]],
             CubicLattice::BodyCentred => vec![[0.0; 3], [0.5; 3]],
-            CubicLattice::FaceCentred => vec![
-                [0.0; 3],
-                [0.5, 0.5, 0.0],
-                [0.5, 0.0, 0.5],
-                [0.0, 0.5, 0.5],
-            ],
+            CubicLattice::FaceCentred => {
+                vec![[0.0; 3], [0.5, 0.5, 0.0], [0.5, 0.0, 0.5], [0.0, 0.5, 0.5]]
+            }
         };
         let lattice = Lattice::from_vectors([a, 0.0, 0.0], [0.0, a, 0.0], [0.0, 0.0, a])
             .expect("a cubic cell is a lattice");
@@ -188,8 +185,8 @@ impl HopNetwork {
                     for y in -1..=1 {
                         for z in -1..=1 {
                             let im = [x, y, z];
-                            let d = sj.frac.0 + Vector3::new(x as f64, y as f64, z as f64)
-                                - si.frac.0;
+                            let d =
+                                sj.frac.0 + Vector3::new(x as f64, y as f64, z as f64) - si.frac.0;
                             let len = (d * a).norm();
                             // each undirected hop once
                             let forward = (j, im) > (i, [0, 0, 0]);
@@ -469,8 +466,7 @@ pub struct FillPoint {
 /// Splits a seed into independent stream seeds (SplitMix64 finaliser, Steele, Lea and Flood,
 /// OOPSLA 2014).
 pub fn stream_seed(seed: u64, stream: u64) -> u64 {
-    let mut z = seed
-        .wrapping_add(0x9E37_79B9_7F4A_7C15u64.wrapping_mul(stream.wrapping_add(1)));
+    let mut z = seed.wrapping_add(0x9E37_79B9_7F4A_7C15u64.wrapping_mul(stream.wrapping_add(1)));
     z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
     z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
     z ^ (z >> 31)
@@ -646,9 +642,8 @@ impl Supercell {
                 for (a, list) in unit.iter().enumerate() {
                     let ia = index(c, a);
                     for &(b, off, len) in list {
-                        let tc = [0, 1, 2].map(|k| {
-                            (c[k] as i64 + off[k]).rem_euclid(repeats[k] as i64) as usize
-                        });
+                        let tc = [0, 1, 2]
+                            .map(|k| (c[k] as i64 + off[k]).rem_euclid(repeats[k] as i64) as usize);
                         let ib = index(tc, b);
                         if ib != ia {
                             out[ia].push((ib as u32, len));
@@ -916,7 +911,7 @@ impl<'a> State<'a> {
             sum += self.hop_rate(s, h);
             self.scratch.push(sum);
         }
-        if !(sum > 0.0) {
+        if sum.is_nan() || sum <= 0.0 {
             // the tree's value was stale by rounding: correct it; no hop this time
             self.rates.set(ion, 0.0);
             return;
@@ -931,9 +926,8 @@ impl<'a> State<'a> {
         let t = h.to as usize;
         self.remove(s);
         self.place(ion, t);
-        let d = &mut self.disp[ion];
-        for a in 0..3 {
-            d[a] += h.vector[a];
+        for (d, v) in self.disp[ion].iter_mut().zip(h.vector) {
+            *d += v;
         }
         self.hop_sq[ion] += h.vector.iter().map(|v| v * v).sum::<f64>();
         let n = self.recorded[ion];
@@ -1042,7 +1036,7 @@ fn run_on(
     let warm_events = ((opts.warmup_hops_per_ion * ions as f64) as u64).min(opts.max_events);
     let mut frozen = false;
     for e in 0..warm_events {
-        if e % rebuild_every == 0 {
+        if e.is_multiple_of(rebuild_every) {
             st.rates.rebuild();
         }
         match st.wait(&mut rng) {
@@ -1081,7 +1075,7 @@ fn run_on(
             if done || events >= opts.max_events {
                 break;
             }
-            if events % rebuild_every == 0 {
+            if events.is_multiple_of(rebuild_every) {
                 st.rates.rebuild();
             }
             let Some((dt, total)) = st.wait(&mut rng) else {
@@ -1100,12 +1094,12 @@ fn run_on(
                     next_sample += 1;
                 }
             }
-            if let RunLength::Time(t) = opts.length {
-                if t_after > t {
-                    // the next hop comes after the end of the run (waiting times forget)
-                    time = t;
-                    break;
-                }
+            if let RunLength::Time(t) = opts.length
+                && t_after > t
+            {
+                // the next hop comes after the end of the run (waiting times forget)
+                time = t;
+                break;
             }
             st.hop(&mut rng, total);
             time = t_after;
@@ -1153,7 +1147,10 @@ pub fn fill_curve(
         return ions_per_cell.iter().map(|_| Err(e.clone())).collect();
     }
     if net.sites.is_empty() {
-        return ions_per_cell.iter().map(|_| Err(KmcError::NoSites)).collect();
+        return ions_per_cell
+            .iter()
+            .map(|_| Err(KmcError::NoSites))
+            .collect();
     }
     let sc = Supercell::build(net, opts);
     let cells = (sc.repeats[0] * sc.repeats[1] * sc.repeats[2]) as f64;
@@ -1185,8 +1182,12 @@ fn summarise(runs: Vec<RunResult>, x: f64, cell_volume_a3: f64, opts: &KmcOption
     let eig = SymmetricEigen::new(mean);
     let k = eig.eigenvalues.imax();
     let dir = eig.eigenvectors.column(k).into_owned();
-    let along: Vec<f64> = tensors.iter().map(|t| (dir.transpose() * t * dir)[0]).collect();
-    let axes = [0, 1, 2].map(|a| Estimate::of(&tensors.iter().map(|t| t[(a, a)]).collect::<Vec<_>>()));
+    let along: Vec<f64> = tensors
+        .iter()
+        .map(|t| (dir.transpose() * t * dir)[0])
+        .collect();
+    let axes =
+        [0, 1, 2].map(|a| Estimate::of(&tensors.iter().map(|t| t[(a, a)]).collect::<Vec<_>>()));
     let f: Vec<f64> = runs.iter().filter_map(|r| r.correlation_factor()).collect();
     let carriers = ions as f64 / (cell_volume_a3 * cells * 1e-30);
     let sigma: Vec<f64> = along

@@ -11,14 +11,14 @@ pub use hopmap_cif as cif;
 pub use hopmap_cif::error;
 
 pub mod analysis;
+pub mod blocking;
 pub mod bv;
 pub mod calibrate;
 pub mod capacity;
 pub mod csv_record;
 pub mod element;
-pub mod filling;
 mod element_table;
-pub mod blocking;
+pub mod filling;
 pub mod grid;
 pub mod kmc;
 pub mod landscape;

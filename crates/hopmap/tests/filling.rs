@@ -127,7 +127,10 @@ fn dilute_walker_on_a_chain_has_the_exact_chain_diffusion() {
         * analysis::chain_diffusion_per_attempt(&[0.0, 0.05], &[0.30, 0.36], period, kt).unwrap();
     println!("two-site chain: KMC D = {d:.4e} +/- {se:.2e} A^2/s, exact {exact:.4e}");
     assert!((d - exact).abs() < 4.0 * se, "{d} +/- {se} vs {exact}");
-    assert!(se < 0.06 * exact, "the check must be able to fail: {se} vs {exact}");
+    assert!(
+        se < 0.06 * exact,
+        "the check must be able to fail: {se} vs {exact}"
+    );
 }
 
 /// The dilute limit on a real network: one Li on the site network of olivine LiFePO4 (the
@@ -138,7 +141,11 @@ fn dilute_lithium_in_olivine_matches_the_analysis_hopping_model() {
     let path = Path::new(env!("CARGO_MANIFEST_DIR"))
         .join("../../structures/reference/LiFePO4_olivine.cif");
     let s = hopmap::read::read_structure(&path, None).unwrap();
-    let a = analysis::analyse(&s, &AnalysisOptions::new(Element::from_symbol("Li").unwrap())).unwrap();
+    let a = analysis::analyse(
+        &s,
+        &AnalysisOptions::new(Element::from_symbol("Li").unwrap()),
+    )
+    .unwrap();
     let t = a
         .transport
         .iter()
@@ -221,7 +228,10 @@ fn single_file_msd_grows_as_the_square_root_of_time() {
         .sum::<f64>()
         / lx.iter().map(|x| (x - mx).powi(2)).sum::<f64>();
     let law = |t: f64| (1.0 - c) / c * 2.0 * (t / std::f64::consts::PI).sqrt();
-    println!("single file: MSD {msd:?}, slope {slope:.3}, law at 400 s {:.2}", law(400.0));
+    println!(
+        "single file: MSD {msd:?}, slope {slope:.3}, law at 400 s {:.2}",
+        law(400.0)
+    );
     // free diffusion would give slope 1; the exponent 1/2 within 0.08 (the walk approaches
     // the law from above at early times)
     assert!((slope - 0.5).abs() < 0.08, "slope {slope}");
@@ -365,4 +375,3 @@ fn cross_linked_networks_tolerate_far_more_defects_than_channels() {
         other => panic!("1D channels must have a limit: {other:?}"),
     }
 }
-

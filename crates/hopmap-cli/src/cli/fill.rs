@@ -15,7 +15,12 @@ pub struct FillArgs {
     #[command(flatten)]
     pub model: ModelArgs,
     /// Fillings in ions per formula unit, as START:STOP:STEP or a comma-separated list
-    #[arg(long, value_name = "X", default_value = "0.1:2.0:0.1", conflicts_with = "fraction")]
+    #[arg(
+        long,
+        value_name = "X",
+        default_value = "0.1:2.0:0.1",
+        conflicts_with = "fraction"
+    )]
     pub x: String,
     /// Fillings as fractions of the network's sites (0-1), START:STOP:STEP or a list
     #[arg(long, value_name = "F")]
@@ -52,7 +57,11 @@ pub struct FillArgs {
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
     /// Defect fractions of the blocking tables (comma-separated)
-    #[arg(long, value_delimiter = ',', default_value = "0.001,0.003,0.01,0.03,0.1")]
+    #[arg(
+        long,
+        value_delimiter = ',',
+        default_value = "0.001,0.003,0.01,0.03,0.1"
+    )]
     pub defects: Vec<f64>,
     /// Particle diameter of the share column of the blocking tables, nm
     #[arg(long, default_value_t = 20.0, value_name = "NM")]
@@ -84,7 +93,7 @@ pub fn parse_range(s: &str, flag: &str) -> Result<Vec<f64>, Failure> {
             return Err(bad("expected START:STOP:STEP"));
         }
         let (a, b, step) = (num(parts[0])?, num(parts[1])?, num(parts[2])?);
-        if !(step > 0.0) || b < a {
+        if step.is_nan() || step <= 0.0 || b < a {
             return Err(bad("STEP must be positive and STOP at least START"));
         }
         let n = ((b - a) / step + 1e-9).floor() as usize;
@@ -115,7 +124,10 @@ pub fn run(g: &GlobalOpts, a: FillArgs) -> CmdResult {
         None => Fillings::PerFormulaUnit(parse_range(&a.x, "--x")?),
     };
     if !(a.particle > 0.0 && a.particle.is_finite()) {
-        return Err(Failure::Usage(format!("--particle {} nm must be positive", a.particle)));
+        return Err(Failure::Usage(format!(
+            "--particle {} nm must be positive",
+            a.particle
+        )));
     }
     if !(a.supercell > 0.0 && a.supercell <= 200.0) {
         return Err(Failure::Usage(format!(
@@ -162,7 +174,8 @@ pub fn run(g: &GlobalOpts, a: FillArgs) -> CmdResult {
     if !g.quiet {
         eprintln!("running kinetic Monte Carlo and blocking tables ...");
     }
-    let study = filling::study(&an, &fill).map_err(|e| Failure::Analysis(format!("{file}: {e}")))?;
+    let study =
+        filling::study(&an, &fill).map_err(|e| Failure::Analysis(format!("{file}: {e}")))?;
     if a.json {
         outln!(
             "{}",
