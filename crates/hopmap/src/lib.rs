@@ -24,6 +24,7 @@ pub mod grid;
 pub mod kmc;
 pub mod landscape;
 pub mod lattice;
+pub mod limits;
 pub mod neighbours;
 pub mod network;
 pub mod percolation;
