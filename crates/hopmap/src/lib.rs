@@ -12,13 +12,16 @@ pub use hopmap_cif::error;
 
 pub mod analysis;
 pub mod api;
+pub mod blocking;
 pub mod bv;
 pub mod calibrate;
 pub mod capacity;
 pub mod csv_record;
 pub mod element;
 mod element_table;
+pub mod filling;
 pub mod grid;
+pub mod kmc;
 pub mod landscape;
 pub mod lattice;
 pub mod limits;

@@ -11,6 +11,7 @@ macro_rules! outln {
 mod analyse;
 mod calibrate;
 mod demo;
+mod fill;
 mod grid;
 mod inspect;
 mod progress;
@@ -61,6 +62,8 @@ pub enum Command {
     Paths(analyse::PathsArgs),
     /// Rate capability and capacity of a structure (from its barrier or a measured D)
     Rate(analyse::RateArgs),
+    /// Transport as the host fills (kinetic Monte Carlo) and what blocked channels cost
+    Fill(fill::FillArgs),
     /// Fit the energy-scale parameters of the model to a list of reference barriers
     Calibrate(calibrate::CalibrateArgs),
     /// Screen many structures in parallel into a CSV or JSON-lines table (resumable, shardable)
@@ -115,6 +118,7 @@ pub fn run() -> ExitCode {
         Command::Grid(a) => grid::run(&g, a),
         Command::Paths(a) => analyse::run_paths(&g, a),
         Command::Rate(a) => analyse::run_rate(&g, a),
+        Command::Fill(a) => fill::run(&g, a),
         Command::Calibrate(a) => calibrate::run(&g, a),
         Command::Screen(a) => screen::run(&g, a),
         Command::Merge(a) => screen::run_merge(&g, a),
