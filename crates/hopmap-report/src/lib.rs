@@ -3,6 +3,7 @@
 //! Nothing upstream knows these formats exist.
 
 pub mod figures;
+pub mod handoff;
 pub mod html;
 pub mod json;
 pub mod output;

@@ -18,6 +18,7 @@ pub mod csv_record;
 pub mod element;
 mod element_table;
 pub mod grid;
+pub mod handoff;
 pub mod landscape;
 pub mod lattice;
 pub mod neighbours;
