@@ -436,6 +436,17 @@ fn walk_to_target(
     None
 }
 
+/// The hop chosen: its voxel path (unwrapped fractional points), its ends and how it was chosen.
+struct Chosen {
+    voxels: Vec<Vector3<f64>>,
+    p_start: Vector3<f64>,
+    p_end: Vector3<f64>,
+    chosen_by: String,
+    dimension: Option<u8>,
+    hop_index: Option<usize>,
+    lab: (Option<String>, Option<String>),
+}
+
 /// The NEB geometry of one hop of `a` (see the module notes).
 pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError> {
     let net = a
@@ -491,15 +502,15 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
     };
 
     // the voxel path (unwrapped fractional points) and its two ends
-    let (voxels, p_start, p_end, chosen_by, dimension, hop_index, lab): (
-        Vec<Vector3<f64>>,
-        Vector3<f64>,
-        Vector3<f64>,
-        String,
-        Option<u8>,
-        Option<usize>,
-        (Option<String>, Option<String>),
-    ) = match o.choice {
+    let Chosen {
+        voxels,
+        p_start,
+        p_end,
+        chosen_by,
+        dimension,
+        hop_index,
+        lab,
+    } = match o.choice {
         HopChoice::Channel(d) => {
             let d = match d {
                 Some(d) => d,
@@ -575,15 +586,15 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
                     }
                 })
                 .unwrap_or_default();
-            (
-                pts,
-                c0,
-                c1,
-                format!("the rate-limiting pass of the {d}D channel network{words}"),
-                Some(d),
-                hop,
-                (targets[t0].label.clone(), targets[t1].label.clone()),
-            )
+            Chosen {
+                voxels: pts,
+                p_start: c0,
+                p_end: c1,
+                chosen_by: format!("the rate-limiting pass of the {d}D channel network{words}"),
+                dimension: Some(d),
+                hop_index: hop,
+                lab: (targets[t0].label.clone(), targets[t1].label.clone()),
+            }
         }
         HopChoice::Hop(index) => {
             let hop = net.hops.get(index).ok_or(HandoffError::HopIndex {
@@ -621,10 +632,10 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
                         .iter()
                         .map(|t| (near_target(lat, f, t), t))
                         .min_by(|x, y| x.0.1.total_cmp(&y.0.1));
-                    if let Some(((c, d), t)) = best {
-                        if d <= ON_SITE_A {
-                            return (c, t.label.clone());
-                        }
+                    if let Some(((c, d), t)) = best
+                        && d <= ON_SITE_A
+                    {
+                        return (c, t.label.clone());
                     }
                 }
                 (f, None)
@@ -636,18 +647,18 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
                     "hop {index} does not run between two sites the file's {ion} occupies, so there is no vacancy hop; use interstitial mode"
                 )));
             }
-            (
-                pts,
-                c0,
-                c1,
-                format!(
+            Chosen {
+                voxels: pts,
+                p_start: c0,
+                p_end: c1,
+                chosen_by: format!(
                     "hop {index} of the site network (site {} to site {}, image [{} {} {}])",
                     hop.from, hop.to, hop.image[0], hop.image[1], hop.image[2]
                 ),
-                None,
-                Some(index),
-                (l0, l1),
-            )
+                dimension: None,
+                hop_index: Some(index),
+                lab: (l0, l1),
+            }
         }
     };
     let grid_saddle_ev = voxels
@@ -1050,11 +1061,11 @@ fn format_x(x: f64) -> String {
 /// Sites by increasing energy, each taken when it keeps clear of those taken, up to `count`.
 fn greedy(e: &[f64], conflict: &[Vec<bool>], count: usize) -> Vec<usize> {
     let mut chosen: Vec<usize> = Vec::new();
-    for i in 0..e.len() {
+    for (i, row) in conflict.iter().enumerate().take(e.len()) {
         if chosen.len() == count {
             break;
         }
-        if chosen.iter().all(|&j| !conflict[i][j]) {
+        if chosen.iter().all(|&j| !row[j]) {
             chosen.push(i);
         }
     }
@@ -1091,10 +1102,10 @@ fn choose_sites(e: &[f64], conflict: &[Vec<bool>], count: usize) -> (Option<Vec<
                 break;
             }
             let bound = sum + s.e[i..i + need].iter().sum::<f64>();
-            if let Some((b, _)) = &s.best {
-                if bound >= *b - 1e-12 {
-                    break; // energies increase: later starts are no better
-                }
+            if let Some((b, _)) = &s.best
+                && bound >= *b - 1e-12
+            {
+                break; // energies increase: later starts are no better
             }
             if s.chosen.iter().any(|&j| s.conflict[i][j]) {
                 continue;
