@@ -11,6 +11,7 @@ pub use hopmap_cif as cif;
 pub use hopmap_cif::error;
 
 pub mod analysis;
+pub mod api;
 pub mod bv;
 pub mod calibrate;
 pub mod capacity;
@@ -33,3 +34,6 @@ pub mod summary;
 pub mod symmetry;
 pub mod text;
 pub mod transport;
+
+pub use analysis::{Analysis, AnalysisOptions, Warning, WarningKind};
+pub use api::{Error, ErrorKind, OptionsBuilder, analyse_file, analyse_structure};

@@ -2,12 +2,12 @@
 
 use super::{CmdResult, Failure, GlobalOpts, InputArgs};
 use clap::Args;
-use hopmap::analysis::{self, Analysis, AnalysisOptions, RateOptions};
+use hopmap::ErrorKind;
+use hopmap::analysis::{self, Analysis, AnalysisOptions};
 use hopmap::bv::model::ModelKnobs;
 use hopmap::bv::overrides::Overrides;
 use hopmap::bv::{OxidationSetting, ParameterTable};
 use hopmap::element::Element;
-use hopmap::landscape::Progress;
 use std::path::{Path, PathBuf};
 
 /// Options shared by every command that computes a landscape.
@@ -135,42 +135,57 @@ pub fn parse_ion(s: &str) -> Result<Element, Failure> {
     })
 }
 
-/// Analysis options from the command line.
+/// Analysis options from the command line, checked by the library's builder (one set of
+/// ranges for the command line and the library).
 pub fn options(
     g: &GlobalOpts,
     m: &ModelArgs,
     r: &RateArgsCommon,
 ) -> Result<AnalysisOptions, Failure> {
-    let ion = parse_ion(&m.ion)?;
+    let mut b = AnalysisOptions::builder(&m.ion)
+        .exclude_labels(&m.exclude)
+        .temperature_k(r.temperature)
+        .attempt_frequency_hz(r.attempt_frequency)
+        .correlation_factor(r.correlation_factor)
+        .site_filling(r.site_filling)
+        .min_ion_distance_a(r.min_ion_distance);
     if let Some(s) = m.spacing {
-        if !(s > 0.01 && s <= 2.0) {
-            return Err(Failure::Usage(format!(
-                "--spacing {s} A must lie between 0.01 and 2 A"
-            )));
-        }
+        b = b.spacing_a(s);
     }
-    let (table, knobs) = load_parameters(m.params.as_deref(), m.oxidation.as_deref())?;
-    let mut o = AnalysisOptions::new(ion);
-    o.spacing_a = m.spacing;
-    o.table = table;
-    o.knobs = knobs;
-    o.exclude_labels = m.exclude.clone();
-    o.progress = if g.quiet {
-        Progress::Silent
-    } else {
-        Progress::Report(std::sync::Arc::new(super::progress::Bar::default()))
-    };
-    o.rate = RateOptions {
-        temperature_k: r.temperature,
-        attempt_frequency_hz: r.attempt_frequency,
-        correlation_factor: r.correlation_factor,
-        site_filling: r.site_filling,
-        measured_diffusion: r.diffusivity.map(|d| (d, r.temperature)),
-        ions_per_formula_unit: r.inserted,
-        min_ion_distance_a: r.min_ion_distance,
-        ..RateOptions::default()
-    };
-    Ok(o)
+    if let Some(p) = &m.params {
+        b = b.parameter_file(p);
+    }
+    if let Some(o) = &m.oxidation {
+        b = b.oxidation(o);
+    }
+    if let Some(d) = r.diffusivity {
+        b = b.measured_diffusivity_m2_s(d);
+    }
+    if let Some(x) = r.inserted {
+        b = b.ions_per_formula_unit(x);
+    }
+    if !g.quiet {
+        b = b.progress(std::sync::Arc::new(super::progress::Bar::default()));
+    }
+    b.build().map_err(|e| match e.kind {
+        ErrorKind::Options => {
+            let flag = match e.place.as_deref() {
+                Some("ion") => "--ion",
+                Some("spacing") => "--spacing",
+                Some("temperature") => "--temperature",
+                Some("attempt frequency") => "--attempt-frequency",
+                Some("correlation factor") => "--correlation-factor",
+                Some("site filling") => "--site-filling",
+                Some("minimum ion distance") => "--min-ion-distance",
+                Some("ions per formula unit") => "--inserted",
+                Some("measured diffusivity") => "--diffusivity",
+                Some("oxidation") => "--oxidation",
+                _ => "option",
+            };
+            Failure::Usage(format!("{flag}: {}", e.message))
+        }
+        _ => Failure::Analysis(e.to_string()),
+    })
 }
 
 fn run_analysis(

@@ -172,6 +172,26 @@ pub fn blocks_with_atoms(doc: &Document) -> Vec<&Block> {
 pub fn read_cif(path: &Path, block: Option<&str>) -> Result<Structure, InputError> {
     let file = path.display().to_string();
     let doc = cif::parse_file(path)?;
+    structure_from_document(&doc, &file, block)
+}
+
+/// As [`read_cif`], from the text of a CIF held in memory; `file` names it in messages.
+pub fn read_cif_text(
+    text: &[u8],
+    file: &str,
+    block: Option<&str>,
+) -> Result<Structure, InputError> {
+    let doc = cif::parse(text).map_err(|e| e.into_input_error(file))?;
+    structure_from_document(&doc, file, block)
+}
+
+/// The structure of one data block of a parsed document (see [`read_cif`]).
+pub fn structure_from_document(
+    doc: &cif::Document,
+    file: &str,
+    block: Option<&str>,
+) -> Result<Structure, InputError> {
+    let file = file.to_string();
     let names = || {
         let v: Vec<String> = doc
             .blocks

@@ -1,8 +1,11 @@
 //! Structure files in: CIF (through [`crate::cif`]), VASP POSCAR/CONTCAR, extended XYZ.
 
 pub mod cif;
+pub mod parts;
 pub mod poscar;
 pub mod xyz;
+
+pub use parts::{Parts, structure_from_parts};
 
 use crate::error::InputError;
 use crate::structure::Structure;
@@ -74,6 +77,27 @@ pub fn read_structure_as_written(
         Format::Poscar => poscar::read_poscar(path),
         Format::ExtXyz => xyz::read_extxyz(path),
     }
+}
+
+/// Reads one structure from text held in memory, in the given format; `file` names it in
+/// messages (and gives the structure its name for POSCAR and extended XYZ). As
+/// [`read_structure`], a P 1 structure gets the symmetry found in it.
+pub fn read_str(
+    text: &str,
+    format: Format,
+    file: &str,
+    block: Option<&str>,
+) -> Result<Structure, InputError> {
+    let stem = Path::new(file)
+        .file_stem()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| file.to_string());
+    let s = match format {
+        Format::Cif => cif::read_cif_text(text.as_bytes(), file, block)?,
+        Format::Poscar => poscar::parse_poscar(text, file, &stem)?,
+        Format::ExtXyz => xyz::parse_extxyz(text, file, &stem)?,
+    };
+    Ok(crate::symmetry::complete_symmetry(s, false))
 }
 
 /// Names of the data blocks of a CIF file (for listing them to the user).
