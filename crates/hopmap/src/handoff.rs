@@ -213,12 +213,13 @@ pub enum HandoffError {
     #[error("{0}")]
     Mode(String),
     #[error(
-        "the hop is longer than the cell allows: its ends are {length_a:.2} A apart, more than half the shortest translation of the {multiples} supercell ({shortest_a:.2} A), so the moving ion would meet its own periodic image; raise the image distance"
+        "the hop is longer than the cell allows: its ends are {length_a:.2} A apart, more than half the shortest translation of the {multiples} supercell ({shortest_a:.2} A), so the moving ion would meet its own periodic image; raise the image distance to at least {need_a:.1} A"
     )]
     HopTooLong {
         length_a: f64,
         shortest_a: f64,
         multiples: String,
+        need_a: f64,
     },
     #[error("the supercell would hold {atoms} atoms (more than {max}); lower the image distance")]
     TooLarge { atoms: usize, max: usize },
@@ -436,6 +437,19 @@ fn walk_to_target(
     None
 }
 
+/// The landscape's own sites that are not shallow, as end points.
+fn landscape_targets(net: &crate::network::Network) -> Vec<Target> {
+    net.sites
+        .iter()
+        .enumerate()
+        .filter(|(_, s)| s.depth >= MERGE_DEPTH_EV)
+        .map(|(i, s)| Target {
+            frac: s.frac,
+            label: Some(format!("site {i}")),
+        })
+        .collect()
+}
+
 /// The hop chosen: its voxel path (unwrapped fractional points), its ends and how it was chosen.
 struct Chosen {
     voxels: Vec<Vector3<f64>>,
@@ -490,16 +504,9 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
             })
             .collect()
     } else {
-        net.sites
-            .iter()
-            .enumerate()
-            .filter(|(_, s)| s.depth >= MERGE_DEPTH_EV)
-            .map(|(i, s)| Target {
-                frac: s.frac,
-                label: Some(format!("site {i}")),
-            })
-            .collect()
+        landscape_targets(net)
     };
+    let mut late_notes: Vec<String> = Vec::new();
 
     // the voxel path (unwrapped fractional points) and its two ends
     let Chosen {
@@ -542,11 +549,22 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
                 .max_by(|x, y| x.1.energy.total_cmp(&y.1.energy).then(y.0.cmp(&x.0)))
                 .map(|(i, _)| i)
                 .ok_or_else(|| HandoffError::NoHop("the channel profile is empty".into()))?;
-            let back = walk_to_target(lat, profile, k, -1, &targets);
-            let fwd = walk_to_target(lat, profile, k, 1, &targets);
+            let mut targets = targets.clone();
+            let mut back = walk_to_target(lat, profile, k, -1, &targets);
+            let mut fwd = walk_to_target(lat, profile, k, 1, &targets);
+            if (back.is_none() || fwd.is_none()) && has_ion && mode == Mode::Interstitial {
+                // the path misses the file's sites: end on the landscape's own sites
+                targets = landscape_targets(net);
+                back = walk_to_target(lat, profile, k, -1, &targets);
+                fwd = walk_to_target(lat, profile, k, 1, &targets);
+                late_notes.push(format!(
+                    "the channel's path does not pass the file's {ion} sites on both sides of its highest point: the ends are minima of the landscape"
+                ));
+            }
             let (Some((i0, c0, t0)), Some((i1, c1, t1))) = (back, fwd) else {
                 return Err(HandoffError::NoHop(format!(
-                    "no site of {ion} on both sides of the channel's highest point"
+                    "the channel's lowest path does not pass within {ON_SITE_A} A of a site of {ion}{} on both sides of its highest point; try interstitial mode or a hop by index",
+                    if has_ion { " the file occupies" } else { "" }
                 )));
             };
             let n = profile.points.len() as i64 - 1;
@@ -702,6 +720,7 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
             length_a: end_to_end_a,
             shortest_a: sc.shortest_translation_a,
             multiples: multiples_text(sc.multiples),
+            need_a: (2.0 * end_to_end_a * 10.0).ceil() / 10.0,
         });
     }
     let mult = Vector3::new(
@@ -722,7 +741,7 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
     // host atoms
     let mut host = Vec::new();
     let mut removed = Vec::new();
-    let mut notes = Vec::new();
+    let mut notes = late_notes;
     let partial = a
         .structure
         .sites
