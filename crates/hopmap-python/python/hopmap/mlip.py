@@ -3,8 +3,8 @@
 Optional extra of the hopmap Python package: it needs ``chgnet`` (a universal machine-learned
 interatomic potential whose pretrained weights ship inside the PyPI package; Deng et al., Nat.
 Mach. Intell. 5 (2023) 1031) and ``ase`` (relaxations and the climbing-image NEB of Henkelman,
-Uberuaga & Jonsson, J. Chem. Phys. 113 (2000) 9901). Install with ``pip install chgnet`` (it
-brings torch and ase). Nothing else in hopmap imports this module; it runs on the CPU, one
+Uberuaga & Jonsson, J. Chem. Phys. 113 (2000) 9901). Install with ``pip install "hopmap[mlip]"``
+(or ``pip install chgnet``, which brings torch and ase). Nothing else in hopmap imports this module; it runs on the CPU, one
 thread, and only when called.
 
     from hopmap.mlip import refine
