@@ -1109,7 +1109,40 @@ def cmd_summary(args):
         verdict = r["lowest_site_verdict"].split(":")[0] if r["lowest_site_verdict"] else ""
         print(f"| {r['file']} | {r['ion']} | {r['mode']} | {r['atoms']} | {r['barrier_ev']} | "
               f"{r['hopmap_barrier_ev']} | {r['converged']} | {r['wall_s']} | {verdict} |")
+    pairs = [(float(r["barrier_ev"]), float(r["hopmap_barrier_ev"]), r["file"], r["ion"])
+             for r in rows
+             if r["barrier_ev"] and r["hopmap_barrier_ev"] and r["converged"] == "yes"]
+    if len(pairs) >= 3:
+        rho = spearman([p[0] for p in pairs], [p[1] for p in pairs])
+        print(f"\nrank correlation (Spearman) of hopmap's barrier with the oracle's, converged "
+              f"rows: {rho:.2f} over {len(pairs)} rows")
+    verdicts = [r["lowest_site_verdict"] for r in rows if r["lowest_site_verdict"]]
+    agree = sum(v.startswith("agrees") for v in verdicts)
+    if verdicts:
+        print(f"lowest site: hopmap and the oracle agree on {agree} of {len(verdicts)} hosts")
     return 0
+
+
+def spearman(x, y):
+    """Spearman's rank correlation with average ranks for ties."""
+    def ranks(v):
+        order = sorted(range(len(v)), key=lambda i: v[i])
+        r = [0.0] * len(v)
+        i = 0
+        while i < len(order):
+            j = i
+            while j + 1 < len(order) and v[order[j + 1]] == v[order[i]]:
+                j += 1
+            for k in range(i, j + 1):
+                r[order[k]] = (i + j) / 2 + 1
+            i = j + 1
+        return r
+    rx, ry = ranks(x), ranks(y)
+    mx, my = sum(rx) / len(rx), sum(ry) / len(ry)
+    cov = sum((a - mx) * (b - my) for a, b in zip(rx, ry))
+    vx = sum((a - mx) ** 2 for a in rx) ** 0.5
+    vy = sum((b - my) ** 2 for b in ry) ** 0.5
+    return cov / (vx * vy) if vx and vy else float("nan")
 
 
 def cmd_ci(args):

@@ -387,13 +387,14 @@ impl<'a> Lexer<'a> {
         }
         self.check_control(body_start, content);
         self.pos = body_start + end + 2;
-        if let Some(c) = self.rest().chars().next() {
-            if !is_ws(c) && c != '#' {
-                self.warn(
-                    self.pos,
-                    "the ';' closing a text field should be followed by white space",
-                );
-            }
+        if let Some(c) = self.rest().chars().next()
+            && !is_ws(c)
+            && c != '#'
+        {
+            self.warn(
+                self.pos,
+                "the ';' closing a text field should be followed by white space",
+            );
         }
         Ok(Tok::Quoted(Cow::Borrowed(content)))
     }
@@ -511,7 +512,7 @@ fn describe(tok: &Tok) -> String {
     match tok {
         Tok::Tag(t) => format!("the tag '{t}'"),
         Tok::Data(n) => format!("the data block header 'data_{n}'"),
-        Tok::Save(n) if n.is_empty() => "'save_'".into(),
+        Tok::Save("") => "'save_'".into(),
         Tok::Save(n) => format!("the save frame header 'save_{n}'"),
         Tok::Loop => "'loop_'".into(),
         Tok::Global => "'global_'".into(),

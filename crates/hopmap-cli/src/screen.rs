@@ -308,10 +308,10 @@ pub fn read_table(path: &Path) -> std::io::Result<Vec<ScreenRow>> {
                 pending.push_str(line);
                 match split_csv_record(&pending) {
                     Some(fields) => {
-                        if !(n == 0 && fields.first().map(|s| s.as_str()) == Some("file")) {
-                            if let Some(r) = ScreenRow::from_fields(&fields) {
-                                rows.push(r);
-                            }
+                        if !(n == 0 && fields.first().map(|s| s.as_str()) == Some("file"))
+                            && let Some(r) = ScreenRow::from_fields(&fields)
+                        {
+                            rows.push(r);
                         }
                         pending.clear();
                     }

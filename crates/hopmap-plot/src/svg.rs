@@ -348,10 +348,10 @@ impl Svg {
     /// file of its own and inline in HTML (no XML declaration, which HTML would not accept).
     pub fn finish(self) -> String {
         let mut s = String::new();
-        let _ = write!(
+        let _ = writeln!(
             s,
             "<svg xmlns=\"http://www.w3.org/2000/svg\" version=\"1.1\" width=\"{w}\" \
-             height=\"{h}\" viewBox=\"0 0 {w} {h}\" font-family=\"Helvetica, Arial, sans-serif\">\n",
+             height=\"{h}\" viewBox=\"0 0 {w} {h}\" font-family=\"Helvetica, Arial, sans-serif\">",
             w = num(self.width),
             h = num(self.height)
         );

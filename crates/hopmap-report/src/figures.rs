@@ -213,12 +213,11 @@ pub fn slice_planes(a: &Analysis) -> Vec<SlicePlane> {
             break;
         }
     }
-    if let Some(Span::Line { direction, .. }) = first.map(|t| &t.channel.span) {
-        if let Some((u, v)) = cross_section(a, *direction) {
-            if !keys.contains(&plane_key(u, v)) {
-                planes.push(oriented(a, origin, u, v));
-            }
-        }
+    if let Some(Span::Line { direction, .. }) = first.map(|t| &t.channel.span)
+        && let Some((u, v)) = cross_section(a, *direction)
+        && !keys.contains(&plane_key(u, v))
+    {
+        planes.push(oriented(a, origin, u, v));
     }
     planes
 }

@@ -382,17 +382,17 @@ fn rate_section(o: &mut String, a: &Analysis, particle_um: Option<f64>) {
                 );
             }
         }
-        if let Some(um) = particle_um {
-            if let Ok(c) = hopmap::transport::max_c_rate_for_particle(
+        if let Some(um) = particle_um
+            && let Ok(c) = hopmap::transport::max_c_rate_for_particle(
                 t.diffusion_m2_s,
                 t.dimension,
                 um * 1000.0,
-            ) {
-                let _ = writeln!(
-                    o,
-                    "    a {um} um particle charges by bulk diffusion at up to {c:.3}C"
-                );
-            }
+            )
+        {
+            let _ = writeln!(
+                o,
+                "    a {um} um particle charges by bulk diffusion at up to {c:.3}C"
+            );
         }
     }
     if let Some(c) = &a.capacity {

@@ -444,9 +444,12 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     let ceiling = model.energy_cap as f32;
     let mobile = mobile_sites(&s, opts.ion);
     let marks = occupied_wells(&land.energy, &mobile);
-    let percolation = percolation::percolate_marked(&land.energy, ceiling, &marks);
+    // the two percolations are independent: one on each core
+    let (percolation, mismatch_percolation) = rayon::join(
+        || percolation::percolate_marked(&land.energy, ceiling, &marks),
+        || percolation::percolate(&land.mismatch, model.mismatch_cap as f32),
+    );
     deeper_void_warning(&percolation, &land.energy, &mut warnings);
-    let mismatch_percolation = percolation::percolate(&land.mismatch, model.mismatch_cap as f32);
     timings.push(("percolation", t.elapsed().as_secs_f64()));
 
     let mut out = Analysis {
@@ -482,7 +485,6 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
         return Ok(out);
     }
 
-    let t = Instant::now();
     let framework = framework_ions(&out.model);
     let mobile = mobile_sites(&out.structure, opts.ion);
     let input = NetworkInput {
@@ -495,8 +497,21 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
         ceiling,
         ..Default::default()
     };
-    let net = network::build(&out.landscape.energy, &input, &net_opts);
-    let graph_perc = net.percolate(&out.landscape.energy);
+    // The site network and the channel profiles read the same grid and percolation and
+    // nothing of each other: they run side by side (each records its own wall time).
+    let ((net, graph_perc, net_s), (found_profiles, profiles_s)) = rayon::join(
+        || {
+            let t = Instant::now();
+            let net = network::build(&out.landscape.energy, &input, &net_opts);
+            let graph_perc = net.percolate(&out.landscape.energy);
+            (net, graph_perc, t.elapsed().as_secs_f64())
+        },
+        || {
+            let t = Instant::now();
+            let p = profiles(&out.landscape.energy, &out.percolation, ceiling);
+            (p, t.elapsed().as_secs_f64())
+        },
+    );
     for d in 1..=3u8 {
         let (g, v) = (out.percolation.energy(d), graph_perc.energy(d));
         if g != v {
@@ -508,11 +523,9 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
             ));
         }
     }
-    timings_push(&mut out, "site network", t);
-
-    let t = Instant::now();
-    out.profiles = profiles(&out.landscape.energy, &out.percolation, ceiling);
-    timings_push(&mut out, "profiles", t);
+    out.timings.push(("site network", net_s));
+    out.profiles = found_profiles;
+    out.timings.push(("profiles", profiles_s));
 
     let carriers = carriers_per_m3(&out.structure, opts.ion, opts.rate.ions_per_formula_unit);
     let charge = out.model.probe.valence;
@@ -552,10 +565,6 @@ fn profiles(grid: &Grid, p: &Percolation, ceiling: f32) -> Vec<Profile> {
         ..Default::default()
     };
     network::profile::channel_profiles(grid, p, &o)
-}
-
-fn timings_push(a: &mut Analysis, name: &'static str, t: Instant) {
-    a.timings.push((name, t.elapsed().as_secs_f64()));
 }
 
 /// Diffusion along a periodic chain of sites, exactly: sites `i` with energies `E_i` (eV) and the
@@ -705,7 +714,7 @@ fn carriers_per_m3(s: &Structure, ion: Element, inserted: Option<f64>) -> Option
     let present = s.cell_composition().get(&ion).copied().unwrap_or(0.0);
     let (z, _) = s.formula_and_z();
     let per_cell = match inserted {
-        Some(x) => x * z as f64,
+        Some(x) => x * z,
         None => present,
     };
     transport::carrier_density_per_cell(per_cell, s.volume()).ok()
@@ -781,7 +790,7 @@ fn channel_transport(
             let at = |ea: f64| {
                 HoppingModel {
                     barrier_ev: ea.max(0.0),
-                    ..m.clone()
+                    ..*m
                 }
                 .diffusion_coefficient(temperature_k)
             };
@@ -835,7 +844,7 @@ fn capacity_estimate(
 ) -> (Option<CapacityReport>, Option<SitePacking>) {
     let (z, _) = s.formula_and_z();
     let comp = s.cell_composition();
-    let per_fu: capacity::Composition = comp.iter().map(|(e, n)| (*e, n / z as f64)).collect();
+    let per_fu: capacity::Composition = comp.iter().map(|(e, n)| (*e, n / z)).collect();
     let present = per_fu.get(&ion).copied().unwrap_or(0.0);
     let ions = r.ions_per_formula_unit.unwrap_or(present);
     // sites in the highest-dimensional network reached, at its threshold
@@ -865,7 +874,7 @@ fn capacity_estimate(
         }
     });
     let redox_electrons = ions * charge as f64;
-    let site = packing.as_ref().map(|pk| (pk, z as f64));
+    let site = packing.as_ref().map(|pk| (pk, z));
     match CapacityReport::new(&per_fu, redox_electrons, site, charge, Some(s.density())) {
         Ok(c) => (Some(c), packing),
         Err(e) => {

@@ -26,12 +26,12 @@ impl Element {
             .take_while(|c| c.is_ascii_alphabetic())
             .take(2)
             .collect();
-        if letters.len() == 2 {
-            if let Some(e) = Element::from_symbol(&letters) {
-                // "Oa", "Ob" style labels: prefer the one-letter element when the second letter
-                // is lower case and the pair is not a real symbol; real pairs ("Os") win.
-                return Some(e);
-            }
+        if letters.len() == 2
+            && let Some(e) = Element::from_symbol(&letters)
+        {
+            // "Oa", "Ob" style labels: prefer the one-letter element when the second letter
+            // is lower case and the pair is not a real symbol; real pairs ("Os") win.
+            return Some(e);
         }
         letters.get(..1).and_then(Element::from_symbol)
     }

@@ -91,7 +91,7 @@ pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
     let n = items.len();
     let mut src_is_items = true;
     for p in 0..3 {
-        if hist[p].iter().any(|&c| c == n) {
+        if hist[p].contains(&n) {
             continue; // every item has the same digit: the pass would not move anything
         }
         let mut start = [0usize; 2048];

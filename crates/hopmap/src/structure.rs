@@ -20,6 +20,27 @@ impl Species {
     pub fn new(element: Element, oxidation: Option<f64>) -> Self {
         Species { element, oxidation }
     }
+
+    /// Reads a species as chemists write it: an element symbol, then an optional charge, sign
+    /// last or first: `Li`, `Li+`, `Fe2+`, `O2-`, `Mn3.5+`, `O-2`, `Fe+3`. The one reader of
+    /// species for every option and parameter file (CIF type symbols, which may carry label
+    /// digits, go through `read::cif::read_symbol`, which uses the same charge rules).
+    pub fn parse(text: &str) -> Result<Species, String> {
+        let t = text.trim();
+        let sym: String = t.chars().take_while(|c| c.is_ascii_alphabetic()).collect();
+        let element = Element::from_symbol(&sym)
+            .ok_or_else(|| format!("'{t}' does not start with an element symbol"))?;
+        let rest = &t[sym.len()..];
+        if rest.is_empty() {
+            return Ok(Species::new(element, None));
+        }
+        match read_charge(rest) {
+            Some(q) if q.is_finite() => Ok(Species::new(element, Some(q))),
+            _ => Err(format!(
+                "'{t}': a charge is a number with its sign, e.g. Nb5+, O2-, Li+"
+            )),
+        }
+    }
     /// "Nb5+", "O2-", "Li+", "Mn3.5+", or the bare symbol when the state is unknown.
     pub fn name(&self) -> String {
         match self.oxidation {
@@ -196,7 +217,7 @@ impl Structure {
             .iter()
             .map(|(e, n)| e.atomic_mass() * n)
             .sum::<f64>()
-            / z as f64
+            / z
     }
 
     /// Density in g/cm^3.
@@ -252,4 +273,27 @@ pub fn write_formula(amounts: impl IntoIterator<Item = (Element, f64)>) -> Strin
 
 fn gcd_u64(a: u64, b: u64) -> u64 {
     if b == 0 { a } else { gcd_u64(b, a % b) }
+}
+
+/// A charge written after a symbol: `2+`, `+2`, `+`, `2.5+`, `-2` -> signed charge; anything
+/// else (a label's digits) -> None.
+pub(crate) fn read_charge(rest: &str) -> Option<f64> {
+    let (sign, mag) = if let Some(m) = rest.strip_suffix('+') {
+        (1.0, m)
+    } else if let Some(m) = rest.strip_suffix('-') {
+        (-1.0, m)
+    } else if let Some(m) = rest.strip_prefix('+') {
+        (1.0, m)
+    } else if let Some(m) = rest.strip_prefix('-') {
+        (-1.0, m)
+    } else {
+        return None;
+    };
+    if mag.is_empty() {
+        return Some(sign);
+    }
+    if !mag.bytes().all(|b| b.is_ascii_digit() || b == b'.') {
+        return None;
+    }
+    mag.parse::<f64>().ok().map(|m| sign * m)
 }

@@ -15,32 +15,9 @@ pub struct Substitution {
     pub to: Vec<(Species, f64)>,
 }
 
-/// Reads "Nb", "Nb5+", "O2-", "Mn3.5+" into an element and an optional oxidation state.
+/// Reads "Nb", "Nb5+", "O2-", "Mn3.5+" ([`Species::parse`]).
 pub fn parse_species(s: &str) -> Result<Species, String> {
-    let s = s.trim();
-    let sym: String = s.chars().take_while(|c| c.is_ascii_alphabetic()).collect();
-    let element = Element::from_symbol(&sym)
-        .ok_or_else(|| format!("'{s}' does not start with an element symbol"))?;
-    let rest = &s[sym.len()..];
-    if rest.is_empty() {
-        return Ok(Species::new(element, None));
-    }
-    let (num, sign) = match rest.chars().last() {
-        Some('+') => (&rest[..rest.len() - 1], 1.0),
-        Some('-') => (&rest[..rest.len() - 1], -1.0),
-        _ => {
-            return Err(format!(
-                "'{s}': a charge must end with + or -, e.g. Nb5+ or O2-"
-            ));
-        }
-    };
-    let mag: f64 = if num.is_empty() {
-        1.0
-    } else {
-        num.parse()
-            .map_err(|_| format!("'{s}': cannot read the charge '{num}'"))?
-    };
-    Ok(Species::new(element, Some(sign * mag)))
+    Species::parse(s)
 }
 
 impl std::str::FromStr for Substitution {

@@ -148,7 +148,7 @@ fn separable() -> Grid {
     grid_from(
         cell(6.0, 5.0, 4.0, 90.0, 90.0, 90.0),
         [na, nb, nc],
-        |i, j, k| -1.0 * ca[i] - 0.6 * cb[j] - 0.3 * cc[k],
+        |i, j, k| -ca[i] - 0.6 * cb[j] - 0.3 * cc[k],
     )
 }
 

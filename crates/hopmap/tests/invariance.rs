@@ -50,7 +50,7 @@ fn thresholds_closer_than_the_tolerance_are_one_network_of_the_higher_dimension(
         .collect();
     assert_eq!(d, vec![2]);
     // 50 meV apart (more than CHANNEL_MERGE_EV = 20 meV): two networks
-    assert!(0.05 > CHANNEL_MERGE_EV);
+    const { assert!(0.05 > CHANNEL_MERGE_EV) };
     let p = percolate(&crossed_lines(1.05), 5.0);
     assert!(!folded_into_higher(&p, p.threshold(1).unwrap()));
     let d: Vec<u8> = distinct_thresholds(&p)
@@ -350,7 +350,7 @@ fn every_reference_structure_gives_the_same_answer_in_every_cell() {
         .map(|(file, ion)| {
             let conv = hopmap::read::read_structure(&folder().join(file), None).unwrap();
             let as_p1 = p1("conventional", conv.lattice.clone(), conv.sites.clone());
-            let cells = vec![
+            let cells = [
                 ("file".to_string(), conv.clone()),
                 ("conventional".to_string(), complete_symmetry(as_p1, false)),
                 (

@@ -589,23 +589,24 @@ fn symbols_in_the_shared_cif_corpus_resolve_consistently() {
             match found {
                 Some(g) => {
                     resolved += 1;
-                    if let Some(n) = number {
-                        if n != g.number && !inconsistent.contains(&name.as_str()) {
-                            problems.push(format!(
-                                "{name}: {sym:?} is No. {}, file says {n}",
-                                g.number
-                            ));
-                        }
+                    if let Some(n) = number
+                        && n != g.number
+                        && !inconsistent.contains(&name.as_str())
+                    {
+                        problems.push(format!(
+                            "{name}: {sym:?} is No. {}, file says {n}",
+                            g.number
+                        ));
                     }
                 }
                 None if unresolvable.contains(&sym) => {}
                 None => problems.push(format!("{name}: {sym:?} not resolved")),
             }
         }
-        if let (Some((h1, Some(a))), Some((h2, Some(b)))) = (by_hm, by_hall) {
-            if a.number != b.number {
-                problems.push(format!("{name}: H-M {h1:?} and Hall {h2:?} differ"));
-            }
+        if let (Some((h1, Some(a))), Some((h2, Some(b)))) = (by_hm, by_hall)
+            && a.number != b.number
+        {
+            problems.push(format!("{name}: H-M {h1:?} and Hall {h2:?} differ"));
         }
     }
     eprintln!("corpus: {resolved} of {seen} space-group symbols resolved");

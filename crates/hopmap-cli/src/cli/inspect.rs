@@ -32,16 +32,17 @@ pub fn run(g: &GlobalOpts, a: InspectArgs) -> CmdResult {
         );
     } else {
         out!("{}", hopmap_report::terminal::structure(&s, &file));
-        if let Ok(names) = hopmap::read::cif_block_names(path) {
-            if names.len() > 1 && !g.quiet {
-                eprintln!(
-                    "note: {} holds {} data blocks ({}); read '{}' (pick another with --block NAME)",
-                    file,
-                    names.len(),
-                    names.join(", "),
-                    s.name
-                );
-            }
+        if let Ok(names) = hopmap::read::cif_block_names(path)
+            && names.len() > 1
+            && !g.quiet
+        {
+            eprintln!(
+                "note: {} holds {} data blocks ({}); read '{}' (pick another with --block NAME)",
+                file,
+                names.len(),
+                names.join(", "),
+                s.name
+            );
         }
     }
     Ok(())

@@ -137,30 +137,12 @@ fn line_col(text: &str, offset: usize) -> (usize, usize) {
     (line, col)
 }
 
-/// "Li+" -> (Li, Some(1)), "O2-" -> (O, Some(-2)), "Mn3.5+" -> (Mn, Some(3.5)), "Li" -> (Li, None).
+/// "Li+" -> (Li, Some(1)), "O2-" -> (O, Some(-2)), "Mn3.5+" -> (Mn, Some(3.5)), "Li" -> (Li, None)
+/// ([`crate::structure::Species::parse`]); a negative magnitude or junk -> None.
 pub fn parse_species(text: &str) -> Option<(Element, Option<f64>)> {
-    let t = text.trim();
-    let sym: String = t.chars().take_while(|c| c.is_ascii_alphabetic()).collect();
-    let e = Element::from_symbol(&sym)?;
-    let rest = &t[sym.len()..];
-    if rest.is_empty() {
-        return Some((e, None));
-    }
-    let sign = match rest.chars().last()? {
-        '+' => 1.0,
-        '-' => -1.0,
-        _ => return None,
-    };
-    let num = &rest[..rest.len() - 1];
-    let mag = if num.is_empty() {
-        1.0
-    } else {
-        num.parse::<f64>().ok()?
-    };
-    if !(mag.is_finite() && mag >= 0.0) {
-        return None;
-    }
-    Some((e, Some(sign * mag)))
+    crate::structure::Species::parse(text)
+        .ok()
+        .map(|s| (s.element, s.oxidation))
 }
 
 impl Overrides {

@@ -351,7 +351,7 @@ impl ParameterTable {
         let av_i = av.round() as i8;
         if (cv - cv.round()).abs() < 1e-6 {
             let row = self.pick(cation, cv.round() as i8, anion, av_i, role)?;
-            return Some(self.from_row(row.0, cv, av, row.1));
+            return Some(self.params_of_row(row.0, cv, av, row.1));
         }
         // fractional average valence: interpolate between the neighbouring integers
         let (lo, hi) = (cv.floor(), cv.ceil());
@@ -360,8 +360,8 @@ impl ParameterTable {
         let ph = self.pick(cation, hi as i8, anion, av_i, role);
         match (pl, ph) {
             (Some((rl, nl)), Some((rh, nh))) => {
-                let mut p = self.from_row(rl, cv, av, nl);
-                let ph = self.from_row(rh, cv, av, nh);
+                let mut p = self.params_of_row(rl, cv, av, nl);
+                let ph = self.params_of_row(rh, cv, av, nh);
                 p.r0 = (1.0 - w) * p.r0 + w * ph.r0;
                 p.b = (1.0 - w) * p.b + w * ph.b;
                 if rl.ref_id != rh.ref_id {
@@ -388,7 +388,7 @@ impl ParameterTable {
                 Some(p)
             }
             (Some((r, n)), None) | (None, Some((r, n))) => {
-                let mut p = self.from_row(r, cv, av, n);
+                let mut p = self.params_of_row(r, cv, av, n);
                 p.notes.push(format!(
                     "average valence {cv}: only valence {} has a row, used as it is",
                     r.cation_valence
@@ -443,7 +443,7 @@ impl ParameterTable {
         None
     }
 
-    fn from_row(&self, r: &Row, cv: f64, av: f64, unspecified: bool) -> BondParams {
+    fn params_of_row(&self, r: &Row, cv: f64, av: f64, unspecified: bool) -> BondParams {
         let (convention, cutoff_a) = match r.stated_cutoff {
             Some(c) => (CutoffConvention::Stated, c),
             None => (CutoffConvention::FirstShell, first_shell_cutoff(r.r0, r.b)),

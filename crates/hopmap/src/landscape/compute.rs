@@ -38,7 +38,9 @@
 //! [`evaluate_point`] calls `libm::erfc` directly. Fields are stored as f32 (4 bytes per point
 //! per field).
 
+use super::kernel::{ERFC_NEGLIGIBLE, Fields, compute_simd};
 use super::model::{COULOMB_EV_A, FrameworkKind, LandscapeModel};
+pub use super::simd::Isa;
 use crate::grid::Grid;
 use crate::lattice::{Frac, Lattice};
 use nalgebra::{Matrix3, Vector3};
@@ -102,8 +104,6 @@ pub struct Landscape {
 const BLOCK: usize = 4;
 /// Smallest distance used in a formula (A): a point on an atom is evaluated at this distance.
 const R_GUARD: f64 = 1e-6;
-/// The cation term of a kind is dropped beyond this many screening lengths (erfc(6.5) = 3.8e-20).
-const ERFC_NEGLIGIBLE: f64 = 6.5;
 /// Images are processed in groups of this many (one or two SIMD registers of f64).
 const LANES: usize = 8;
 /// Position of the empty images that pad a kind's list to whole lanes (A).
@@ -397,7 +397,7 @@ impl Images {
                 }
             }
             // Pad the kind to whole lanes with empty images far away (occupancy 0).
-            while (self.len() - self.start[k]) % LANES != 0 {
+            while !(self.len() - self.start[k]).is_multiple_of(LANES) {
                 self.push([FAR; 3], 0.0);
             }
         }
@@ -554,28 +554,9 @@ struct Kernel<'a> {
     mismatch_cap: f64,
 }
 
-/// Which instruction set the block loop is compiled for, detected once per run.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-enum Simd {
-    Baseline,
-    #[cfg(target_arch = "x86_64")]
-    Avx2Fma,
-}
-
-impl Simd {
-    fn detect() -> Simd {
-        #[cfg(target_arch = "x86_64")]
-        if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
-            return Simd::Avx2Fma;
-        }
-        Simd::Baseline
-    }
-}
-
 impl Kernel<'_> {
     /// Evaluates the points of block `b` (a, then b, then c order) into `dv` and `en`; returns
     /// the contributions evaluated.
-    #[inline(always)]
     fn block(&self, b: &Block, lists: &Scratch, dv: &mut Vec<f32>, en: &mut Vec<f32>) -> u64 {
         let mut count = 0u64;
         for i in b.lo[0]..b.hi[0] {
@@ -596,29 +577,6 @@ impl Kernel<'_> {
             }
         }
         count
-    }
-
-    /// The same loop compiled with AVX2 and FMA, so that the anion lanes run four at a time.
-    #[cfg(target_arch = "x86_64")]
-    #[target_feature(enable = "avx2,fma")]
-    fn block_avx2(&self, b: &Block, lists: &Scratch, dv: &mut Vec<f32>, en: &mut Vec<f32>) -> u64 {
-        self.block(b, lists, dv, en)
-    }
-
-    fn block_with(
-        &self,
-        simd: Simd,
-        b: &Block,
-        lists: &Scratch,
-        dv: &mut Vec<f32>,
-        en: &mut Vec<f32>,
-    ) -> u64 {
-        match simd {
-            Simd::Baseline => self.block(b, lists, dv, en),
-            // SAFETY: only chosen when the processor reports AVX2 and FMA.
-            #[cfg(target_arch = "x86_64")]
-            Simd::Avx2Fma => unsafe { self.block_avx2(b, lists, dv, en) },
-        }
     }
 }
 
@@ -672,14 +630,55 @@ pub fn compute(
     dims: [usize; 3],
     progress: &Progress,
 ) -> Result<Landscape, Cancelled> {
-    compute_with(model, dims, progress, Simd::detect())
+    compute_with_isa(model, dims, progress, Isa::detect())
 }
 
-fn compute_with(
+/// [`compute`] with the kernel compiled for a given instruction set (one of
+/// [`Isa::available`]; tests compare them).
+pub fn compute_with_isa(
     model: &LandscapeModel,
     dims: [usize; 3],
     progress: &Progress,
-    simd: Simd,
+    isa: Isa,
+) -> Result<Landscape, Cancelled> {
+    assert!(
+        dims.iter().all(|&n| n > 0),
+        "grid dimensions must be positive"
+    );
+    check_kinds(model);
+    let (mismatch, energy, stats) = compute_simd(model, dims, progress, isa, Fields::Both)?;
+    let energy = energy.expect("both fields were asked for");
+    Ok(Landscape {
+        mismatch,
+        energy,
+        stats,
+    })
+}
+
+/// The valence-mismatch field alone (v.u.), with the same kernel: the bond-valence sums without
+/// the Morse and Coulomb terms (for comparisons with other programs that compute only this
+/// field). Returns the grid and the statistics.
+pub fn compute_mismatch(
+    model: &LandscapeModel,
+    dims: [usize; 3],
+    progress: &Progress,
+) -> Result<(Grid, ComputeStats), Cancelled> {
+    assert!(
+        dims.iter().all(|&n| n > 0),
+        "grid dimensions must be positive"
+    );
+    check_kinds(model);
+    let (mismatch, _, stats) =
+        compute_simd(model, dims, progress, Isa::detect(), Fields::MismatchOnly)?;
+    Ok((mismatch, stats))
+}
+
+/// Both landscapes evaluated in f64 by a plain loop per point (the reference the f32 kernel
+/// is tested against; several times slower).
+pub fn compute_f64(
+    model: &LandscapeModel,
+    dims: [usize; 3],
+    progress: &Progress,
 ) -> Result<Landscape, Cancelled> {
     let started = Instant::now();
     assert!(
@@ -750,7 +749,7 @@ fn compute_with(
             let n = (b.hi[0] - b.lo[0]) * (b.hi[1] - b.lo[1]) * (b.hi[2] - b.lo[2]);
             let mut dv = Vec::with_capacity(n);
             let mut en = Vec::with_capacity(n);
-            let count = kernel.block_with(simd, b, scratch, &mut dv, &mut en);
+            let count = kernel.block(b, scratch, &mut dv, &mut en);
             if let Some(sink) = sink {
                 let k = done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
                 if !sink.update("landscape grid", k, total, points as u64) {
@@ -934,25 +933,29 @@ mod tests {
             mismatch_cap: 10.0,
         };
         let dims = [9, 11, 13];
-        let base = compute_with(&model, dims, &Progress::Silent, Simd::Baseline).unwrap();
-        let best = compute_with(&model, dims, &Progress::Silent, Simd::detect()).unwrap();
-        assert_eq!(
-            base.stats.neighbour_evaluations,
-            best.stats.neighbour_evaluations
-        );
-        for (a, b) in [
-            (&base.energy, &best.energy),
-            (&base.mismatch, &best.mismatch),
-        ] {
-            for (x, y) in a.values.iter().zip(&b.values) {
-                assert!((x - y).abs() <= 1e-6 * x.abs().max(1e-3), "{x} vs {y}");
-            }
-        }
-        // And both agree with the plain single-point evaluation.
+        let base = compute_f64(&model, dims, &Progress::Silent).unwrap();
+        // And the f64 path agrees with the plain single-point evaluation.
         for idx in [0, 17, 400, 1286] {
             let (dv, e) = evaluate_point(&model, base.energy.frac(base.energy.ijk(idx)));
             assert!((base.energy.values[idx] as f64 - e).abs() <= 1e-6 * e.abs().max(1e-3));
             assert!((base.mismatch.values[idx] as f64 - dv).abs() <= 1e-6 * dv.abs().max(1e-3));
+        }
+        // The f32 kernel on every instruction set this processor has: the same pairs, and values
+        // within 1e-5 relative of the f64 path (1e-5 eV, 1e-5 v.u. near zero).
+        for isa in Isa::available() {
+            let got = compute_with_isa(&model, dims, &Progress::Silent, isa).unwrap();
+            assert_eq!(
+                base.stats.neighbour_evaluations, got.stats.neighbour_evaluations,
+                "{isa:?}"
+            );
+            for (a, b) in [(&base.energy, &got.energy), (&base.mismatch, &got.mismatch)] {
+                for (x, y) in a.values.iter().zip(&b.values) {
+                    assert!(
+                        (x - y).abs() <= 1e-5 * x.abs().max(1.0),
+                        "{isa:?}: {x} vs {y}"
+                    );
+                }
+            }
         }
     }
 

@@ -5,9 +5,12 @@
 //! points); the volumetric files (cube, XSF, `.npy`) are written by `hopmap-report`.
 
 pub mod compute;
+mod kernel;
 pub mod model;
+mod simd;
 
 pub use compute::{
-    Cancelled, ComputeStats, Landscape, Progress, ProgressSink, compute, evaluate_point,
+    Cancelled, ComputeStats, Isa, Landscape, Progress, ProgressSink, compute, compute_f64,
+    compute_mismatch, compute_with_isa, evaluate_point,
 };
 pub use model::*;

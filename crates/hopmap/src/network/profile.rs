@@ -21,6 +21,7 @@ use crate::grid::Grid;
 use crate::lattice::Frac;
 use crate::percolation::{FastMap, Percolation, face_neighbours, hnf, in_lattice, total_key};
 use nalgebra::Vector3;
+use rayon::prelude::*;
 use std::cmp::Reverse;
 use std::collections::BinaryHeap;
 
@@ -100,20 +101,26 @@ pub fn channel_profiles(
     percolation: &Percolation,
     options: &ProfileOptions,
 ) -> Vec<Profile> {
-    let mut out: Vec<Profile> = Vec::new();
-    let mut done: Vec<(usize, [i32; 3], Option<Profile>)> = Vec::new();
+    // the distinct searches, in order of first use, run in parallel
+    let mut jobs: Vec<(usize, [i32; 3])> = Vec::new();
     for t in percolation.thresholds.iter().flatten() {
-        let start = t.channel.lowest_point;
         for tr in t.channel.span.translations() {
-            let p = match done.iter().find(|(s, x, _)| *s == start && *x == tr) {
-                Some((_, _, p)) => p.clone(),
-                None => {
-                    let p = channel_profile(grid, start, tr, options);
-                    done.push((start, tr, p.clone()));
-                    p
-                }
-            };
-            if let Some(mut p) = p {
+            let job = (t.channel.lowest_point, tr);
+            if !jobs.contains(&job) {
+                jobs.push(job);
+            }
+        }
+    }
+    let found: Vec<Option<Profile>> = jobs
+        .par_iter()
+        .map(|&(start, tr)| channel_profile(grid, start, tr, options))
+        .collect();
+    let mut out: Vec<Profile> = Vec::new();
+    for t in percolation.thresholds.iter().flatten() {
+        for tr in t.channel.span.translations() {
+            let job = (t.channel.lowest_point, tr);
+            let k = jobs.iter().position(|j| *j == job).expect("listed above");
+            if let Some(mut p) = found[k].clone() {
                 p.dimension = t.dimension;
                 out.push(p);
             }
@@ -217,7 +224,7 @@ const SOURCE: u8 = 6;
 /// Unit step of face direction `dir` (0: +a, 1: -a, 2: +b, 3: -b, 4: +c, 5: -c).
 fn step(dir: usize) -> [i64; 3] {
     let mut d = [0; 3];
-    d[dir / 2] = if dir % 2 == 0 { 1 } else { -1 };
+    d[dir / 2] = if dir.is_multiple_of(2) { 1 } else { -1 };
     d
 }
 

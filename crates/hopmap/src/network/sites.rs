@@ -175,6 +175,7 @@ pub fn find_sites(
         cell_of_basin: vec![[0; 3]; nb],
     };
     let mut sites = Vec::with_capacity(merging.groups.len());
+    let anion_images = AnionImages::new(&grid.lattice, framework, options.max_neighbour_distance);
     for (id, g) in merging.groups.iter().enumerate() {
         let voxel = basins.minima[g.members[0].0];
         let (frac, shift) = site_position(grid, basins, g);
@@ -183,7 +184,7 @@ pub fn find_sites(
             assignment.cell_of_basin[b] =
                 [cell[0] + shift[0], cell[1] + shift[1], cell[2] + shift[2]];
         }
-        let coordination = coordination(&grid.lattice, frac, framework, options);
+        let coordination = coordination(&grid.lattice, frac, framework, &anion_images, options);
         let (label, label_distance) =
             nearest_label(&grid.lattice, frac, mobile, options.label_distance);
         sites.push(Site {
@@ -465,34 +466,170 @@ fn orbits(
     out
 }
 
-fn coordination(
-    lattice: &Lattice,
-    p: Frac,
-    framework: &[FrameworkIon],
-    options: &SiteOptions,
-) -> Coordination {
-    let cutoff = options.max_neighbour_distance;
-    let widths = lattice.perpendicular_widths();
-    let reach = widths.map(|w| (cutoff / w).ceil() as i32 + 1);
-    let mut near: Vec<(f64, usize, Vector3<f64>)> = Vec::new();
-    for (idx, ion) in framework.iter().enumerate() {
-        if !ion.is_anion {
-            continue;
+/// The images of the framework anions that lie within a distance of the cell, binned once in
+/// Cartesian cubes as wide as that distance, so that the neighbours of a site are found among
+/// the 27 cubes around it: the cost per site does not grow with the cell.
+struct AnionImages {
+    /// Lower corner of the binned box (A) and side of a cube (A).
+    lo: Vector3<f64>,
+    side: f64,
+    bins: [usize; 3],
+    /// CSR: the images of cube `c` are `entries[start[c]..start[c + 1]]`, each the index of
+    /// the anion in the framework and its Cartesian position.
+    start: Vec<usize>,
+    entries: Vec<(usize, Vector3<f64>)>,
+}
+
+impl AnionImages {
+    fn new(lattice: &Lattice, framework: &[FrameworkIon], cutoff: f64) -> Self {
+        let m = lattice.matrix();
+        let side = cutoff.max(0.5);
+        // the cell's bounding box, widened by the cutoff
+        let mut lo = Vector3::repeat(f64::INFINITY);
+        let mut hi = Vector3::repeat(f64::NEG_INFINITY);
+        for c in 0..8 {
+            let v = m * Vector3::new((c & 1) as f64, ((c >> 1) & 1) as f64, ((c >> 2) & 1) as f64);
+            lo = lo.inf(&v);
+            hi = hi.sup(&v);
         }
-        let d0 = ion.frac.min_image_delta(p);
-        for i in -reach[0]..=reach[0] {
-            for j in -reach[1]..=reach[1] {
-                for k in -reach[2]..=reach[2] {
-                    let v = lattice.matrix() * (d0 + Vector3::new(i as f64, j as f64, k as f64));
-                    let d = v.norm();
-                    if d <= cutoff && d > 1e-9 {
-                        near.push((d, idx, v));
+        let pad = Vector3::repeat(cutoff + 1e-6);
+        let (lo, hi) = (lo - pad, hi + pad);
+        let widths = lattice.perpendicular_widths();
+        // a fractional coordinate is at most |v| / width: the box's diagonal bounds the shifts
+        let reach = widths.map(|w| ((hi - lo).norm() / w).ceil() as i32 + 1);
+        let mut found = Vec::new();
+        for (idx, ion) in framework.iter().enumerate() {
+            if !ion.is_anion {
+                continue;
+            }
+            let f = ion.frac.wrapped().0;
+            for i in -reach[0]..=reach[0] {
+                for j in -reach[1]..=reach[1] {
+                    for k in -reach[2]..=reach[2] {
+                        let v = m * (f + Vector3::new(i as f64, j as f64, k as f64));
+                        if (0..3).all(|a| v[a] >= lo[a] && v[a] <= hi[a]) {
+                            found.push((idx, v));
+                        }
                     }
                 }
             }
         }
+        let bins = [0, 1, 2].map(|a| (((hi[a] - lo[a]) / side).floor() as usize).max(1));
+        let cube = |v: &Vector3<f64>| {
+            let b = [0, 1, 2].map(|a| (((v[a] - lo[a]) / side) as usize).min(bins[a] - 1));
+            (b[0] * bins[1] + b[1]) * bins[2] + b[2]
+        };
+        let mut start = vec![0usize; bins[0] * bins[1] * bins[2] + 1];
+        for e in &found {
+            start[cube(&e.1) + 1] += 1;
+        }
+        for c in 1..start.len() {
+            start[c] += start[c - 1];
+        }
+        let mut fill = start.clone();
+        let mut entries = vec![(0, Vector3::zeros()); found.len()];
+        for e in found {
+            let c = cube(&e.1);
+            entries[fill[c]] = e;
+            fill[c] += 1;
+        }
+        AnionImages {
+            lo,
+            side,
+            bins,
+            start,
+            entries,
+        }
     }
+
+    /// Anion images within `cutoff` (A, at most the cutoff the images were built for) of the
+    /// Cartesian point `c` of the cell, and perhaps a few farther ones.
+    fn candidates(&self, c: Vector3<f64>, out: &mut Vec<usize>) {
+        let b = [0, 1, 2].map(|a| ((c[a] - self.lo[a]) / self.side).floor() as i64);
+        for i in b[0] - 1..=b[0] + 1 {
+            for j in b[1] - 1..=b[1] + 1 {
+                for k in b[2] - 1..=b[2] + 1 {
+                    let (n0, n1, n2) = (
+                        self.bins[0] as i64,
+                        self.bins[1] as i64,
+                        self.bins[2] as i64,
+                    );
+                    if i < 0 || j < 0 || k < 0 || i >= n0 || j >= n1 || k >= n2 {
+                        continue;
+                    }
+                    let cube = ((i * n1 + j) * n2 + k) as usize;
+                    out.extend(self.start[cube]..self.start[cube + 1]);
+                }
+            }
+        }
+    }
+}
+
+fn coordination(
+    lattice: &Lattice,
+    p: Frac,
+    framework: &[FrameworkIon],
+    images: &AnionImages,
+    options: &SiteOptions,
+) -> Coordination {
+    let mut near = near_anions(
+        lattice,
+        p,
+        framework,
+        images,
+        options.max_neighbour_distance,
+    );
     near.sort_by(|a, b| a.0.total_cmp(&b.0));
+    shell_of(near, framework, options)
+}
+
+/// (distance, anion, displacement) of every anion image within `cutoff` (A) of `p`.
+fn near_anions(
+    lattice: &Lattice,
+    p: Frac,
+    framework: &[FrameworkIon],
+    images: &AnionImages,
+    cutoff: f64,
+) -> Vec<(f64, usize, Vector3<f64>)> {
+    // Every image of an anion within the cutoff of the site: the displacement `d0 + s` from
+    // the site (d0 the minimum-image displacement, s a whole translation), in the order of
+    // (anion, s) and computed as `M (d0 + s)`, so that ties sort the same whatever the bins.
+    let m = lattice.matrix();
+    let wrapped = p.wrapped();
+    let mut idxs = Vec::new();
+    images.candidates(m * wrapped.0, &mut idxs);
+    let mut found: Vec<(usize, [i64; 3], Vector3<f64>)> = idxs
+        .into_iter()
+        .map(|e| {
+            let (idx, v) = images.entries[e];
+            let ion = &framework[idx];
+            let d0 = ion.frac.min_image_delta(p);
+            // fractional displacement of this image from the site, and its whole part past d0
+            // (from the site's position in the cell, where the bins were searched)
+            let f = lattice.inverse() * v - wrapped.0;
+            let s = [0, 1, 2].map(|a| (f[a] - d0[a]).round() as i64);
+            (idx, s, d0)
+        })
+        .collect();
+    found.sort_by(|a, b| a.0.cmp(&b.0).then(a.1.cmp(&b.1)));
+    found.dedup_by(|a, b| a.0 == b.0 && a.1 == b.1);
+    let mut near: Vec<(f64, usize, Vector3<f64>)> = Vec::new();
+    for (idx, s, d0) in found {
+        let v = m * (d0 + Vector3::new(s[0] as f64, s[1] as f64, s[2] as f64));
+        let d = v.norm();
+        if d <= cutoff && d > 1e-9 {
+            near.push((d, idx, v));
+        }
+    }
+    near
+}
+
+/// The first shell of a sorted neighbour list, counted and classified.
+fn shell_of(
+    near: Vec<(f64, usize, Vector3<f64>)>,
+    framework: &[FrameworkIon],
+    options: &SiteOptions,
+) -> Coordination {
     let shell: Vec<&(f64, usize, Vector3<f64>)> = match near.first() {
         Some(&(rmin, _, _)) => near
             .iter()
@@ -564,6 +701,74 @@ fn nearest_label(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The anion images found through the bins are exactly those of a loop over every anion
+    /// and every translation (the direct method), in the same order, in a small oblique cell
+    /// where one anion has several images within the cutoff and in a larger one.
+    #[test]
+    fn binned_anion_neighbours_equal_the_direct_loop() {
+        for (params, cutoff) in [
+            ((4.1, 4.6, 5.3, 71.0, 97.0, 112.0), 4.0),
+            ((9.0, 11.0, 7.5, 90.0, 101.0, 90.0), 4.0),
+        ] {
+            let lattice = Lattice::from_parameters(crate::lattice::CellParameters {
+                a: params.0,
+                b: params.1,
+                c: params.2,
+                alpha: params.3,
+                beta: params.4,
+                gamma: params.5,
+            })
+            .unwrap();
+            let mut seed = 12345u64;
+            let mut rnd = || {
+                seed = seed
+                    .wrapping_mul(6364136223846793005)
+                    .wrapping_add(1442695040888963407);
+                ((seed >> 11) as f64 / (1u64 << 53) as f64) * 1.6 - 0.3
+            };
+            let framework: Vec<FrameworkIon> = (0..7)
+                .map(|i| FrameworkIon {
+                    label: format!("O{i}"),
+                    element: "O".into(),
+                    frac: Frac::new(rnd(), rnd(), rnd()),
+                    charge: -2.0,
+                    radius: 1.4,
+                    is_anion: i != 3,
+                })
+                .collect();
+            let images = AnionImages::new(&lattice, &framework, cutoff);
+            let mut found = 0;
+            for _ in 0..50 {
+                let p = Frac::new(rnd(), rnd(), rnd());
+                let got = near_anions(&lattice, p, &framework, &images, cutoff);
+                let widths = lattice.perpendicular_widths();
+                let reach = widths.map(|w| (cutoff / w).ceil() as i32 + 1);
+                let mut want = Vec::new();
+                for (idx, ion) in framework.iter().enumerate() {
+                    if !ion.is_anion {
+                        continue;
+                    }
+                    let d0 = ion.frac.min_image_delta(p);
+                    for i in -reach[0]..=reach[0] {
+                        for j in -reach[1]..=reach[1] {
+                            for k in -reach[2]..=reach[2] {
+                                let v = lattice.matrix()
+                                    * (d0 + Vector3::new(i as f64, j as f64, k as f64));
+                                let d = v.norm();
+                                if d <= cutoff && d > 1e-9 {
+                                    want.push((d, idx, v));
+                                }
+                            }
+                        }
+                    }
+                }
+                found += want.len();
+                assert_eq!(got, want);
+            }
+            assert!(found > 50, "too few neighbours to compare: {found}");
+        }
+    }
 
     #[test]
     fn shells_are_classified_by_angles() {

@@ -212,7 +212,7 @@ pub fn structure_from_document(
                 format!("there is no data block '{name}'; the file has: {}", names()),
             )
         })?,
-        None => *blocks_with_atoms(&doc).first().ok_or_else(|| {
+        None => *blocks_with_atoms(doc).first().ok_or_else(|| {
             InputError::new(
                 file.clone(),
                 format!(
@@ -457,22 +457,22 @@ fn read_symmetry(
             None => tried.push(format!("the Hall symbol '{h}' is not in the table")),
         }
     }
-    if found.is_none() {
-        if let Some(h) = &hm {
-            match spacegroup::from_hm(h) {
-                Some(sg) => found = Some((sg, format!("Hermann-Mauguin symbol '{h}'"))),
-                None => tried.push(format!(
-                    "the Hermann-Mauguin symbol '{h}' is not in the table"
-                )),
-            }
+    if found.is_none()
+        && let Some(h) = &hm
+    {
+        match spacegroup::from_hm(h) {
+            Some(sg) => found = Some((sg, format!("Hermann-Mauguin symbol '{h}'"))),
+            None => tried.push(format!(
+                "the Hermann-Mauguin symbol '{h}' is not in the table"
+            )),
         }
     }
-    if found.is_none() {
-        if let Some(n) = number {
-            match spacegroup::from_number(n) {
-                Some(sg) => found = Some((sg, format!("space-group number {n}"))),
-                None => tried.push(format!("space-group number {n} is not in the table")),
-            }
+    if found.is_none()
+        && let Some(n) = number
+    {
+        match spacegroup::from_number(n) {
+            Some(sg) => found = Some((sg, format!("space-group number {n}"))),
+            None => tried.push(format!("space-group number {n} is not in the table")),
         }
     }
     let Some((sg, source)) = found else {
@@ -505,13 +505,13 @@ fn read_symmetry(
         .at_line(block.line)
         .context(ctx.to_string()));
     };
-    if let Some(n) = number {
-        if n != sg.number {
-            warnings.push(format!(
-                "the file gives space group number {n}, but the {source} is No. {}; the symbol is used",
-                sg.number
-            ));
-        }
+    if let Some(n) = number
+        && n != sg.number
+    {
+        warnings.push(format!(
+            "the file gives space group number {n}, but the {source} is No. {}; the symbol is used",
+            sg.number
+        ));
     }
     info.number = Some(sg.number);
     info.hm_symbol.get_or_insert(sg.hm);
@@ -667,7 +667,10 @@ pub fn read_symbol(s: &str) -> Option<SymbolReading> {
         None if lower.starts_with('d') => (Element::from_symbol("H")?, 1),
         None => return None,
     };
-    Some(SymbolReading::Atom(element, read_charge(&s[used..])))
+    Some(SymbolReading::Atom(
+        element,
+        crate::structure::read_charge(&s[used..]),
+    ))
 }
 
 /// Reads the element from a site label, for sites without a type symbol: as
@@ -687,28 +690,6 @@ pub fn read_label(label: &str) -> Option<SymbolReading> {
         return Some(SymbolReading::Atom(Element::from_symbol("O")?, None));
     }
     read_symbol(l)
-}
-
-/// `2+`, `+2`, `+`, `2.5+`, `-2` -> signed charge; anything else (a label's digits) -> None.
-fn read_charge(rest: &str) -> Option<f64> {
-    let (sign, mag) = if let Some(m) = rest.strip_suffix('+') {
-        (1.0, m)
-    } else if let Some(m) = rest.strip_suffix('-') {
-        (-1.0, m)
-    } else if let Some(m) = rest.strip_prefix('+') {
-        (1.0, m)
-    } else if let Some(m) = rest.strip_prefix('-') {
-        (-1.0, m)
-    } else {
-        return None;
-    };
-    if mag.is_empty() {
-        return Some(sign);
-    }
-    if !mag.bytes().all(|b| b.is_ascii_digit() || b == b'.') {
-        return None;
-    }
-    mag.parse::<f64>().ok().map(|m| sign * m)
 }
 
 fn read_site_rows(
@@ -809,13 +790,13 @@ fn read_site_rows(
         };
         let site_ctx = || format!("{ctx}, site '{label}'");
         let line = xs[i].line().unwrap_or(block.line);
-        if let Some(flag) = text_at(&flags) {
-            if flag.eq_ignore_ascii_case("dum") {
-                warnings.push(format!(
-                    "site '{label}' is a dummy site (calc flag 'dum'); left out"
-                ));
-                continue;
-            }
+        if let Some(flag) = text_at(&flags)
+            && flag.eq_ignore_ascii_case("dum")
+        {
+            warnings.push(format!(
+                "site '{label}' is a dummy site (calc flag 'dum'); left out"
+            ));
+            continue;
         }
         let symbol = type_symbol.unwrap_or(&label);
         let reading = match type_symbol {

@@ -4,7 +4,6 @@
 
 use crate::error::InputError;
 use crate::lattice::{Frac, Lattice};
-use crate::read::cif::{SymbolReading, read_symbol};
 use crate::spacegroup::SymOp;
 use crate::structure::{AsymmetricSite, Occupant, Species, Structure, SymmetryInfo};
 
@@ -60,16 +59,10 @@ pub fn structure_from_parts(parts: &Parts, keep_cell: bool) -> Result<Structure,
     for i in 0..n {
         let entry = || format!("entry {i}");
         let symbol = parts.species[i].trim();
-        let (element, oxidation) = match read_symbol(symbol) {
-            Some(SymbolReading::Atom(e, q)) => (e, q),
-            _ => {
-                return Err(InputError::new(
-                    file,
-                    format!("'{symbol}' is not an element symbol (e.g. Li, Fe2+, O2-)"),
-                )
-                .context(entry()));
-            }
-        };
+        let species = Species::parse(symbol).map_err(|e| {
+            InputError::new(file, format!("{e} (e.g. Li, Fe2+, O2-)")).context(entry())
+        })?;
+        let (element, oxidation) = (species.element, species.oxidation);
         let f = parts.frac[i];
         if f.iter().any(|x| !x.is_finite()) {
             return Err(InputError::new(

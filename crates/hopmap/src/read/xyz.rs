@@ -86,7 +86,7 @@ fn key_values(line: &str) -> Result<Vec<(String, String, usize)>, (usize, String
 /// Where the species and position columns are, from a `Properties` value.
 fn columns(props: &str) -> Result<(usize, bool, usize, usize), String> {
     let parts: Vec<&str> = props.split(':').collect();
-    if parts.len() % 3 != 0 {
+    if !parts.len().is_multiple_of(3) {
         return Err(format!(
             "Properties '{props}' must be name:type:width triples"
         ));

@@ -1,0 +1,296 @@
+//! Where `paths` spends its CPU, stage by stage, and how it scales with the size of the cell.
+//!
+//! Run: `cargo bench --bench paths_stages` (add `-- --quick` to skip the 3x3x3 supercell).
+//!
+//! Part 1: olivine LiFePO4, TiNb2O7 and garnet LLZO from `structures/reference/` (sources in
+//! each file), Li+ probe, default grid spacing. Each stage is run on its own, one after the
+//! other, and its CPU seconds (all threads) and wall seconds are printed; then the whole
+//! `analyse` call, whose wall time shows how much of it runs on several cores at once
+//! (the percolations side by side, the site network beside the profiles, the grid and the
+//! profiles' searches over threads).
+//!
+//! Part 2: olivine in 1x1x1, 2x2x2 and 3x3x3 P 1 supercells at 0.1 A (the cells as written,
+//! no symmetry search), CPU seconds per stage and per grid point: a stage linear in size keeps
+//! its seconds per point.
+//!
+//! CPU seconds come from the scheduler's per-thread counters (Linux); on a shared machine they
+//! are the figure to compare, wall seconds are not. Repeat runs and take the smaller figures.
+
+#[path = "support/cpu.rs"]
+mod cpu;
+
+use cpu::measure;
+use hopmap::analysis::{
+    self, AnalysisOptions, framework_ions, mobile_sites, model_and_landscape, occupied_wells,
+};
+use hopmap::element::Element;
+use hopmap::lattice::{CellParameters, Frac, Lattice};
+use hopmap::network::profile::{ProfileOptions, channel_profiles};
+use hopmap::network::{self, NetworkInput, NetworkOptions};
+use hopmap::percolation;
+use hopmap::read::read_structure;
+use hopmap::spacegroup::SymOp;
+use hopmap::structure::{AsymmetricSite, Site, Structure, SymmetryInfo};
+use std::alloc::{GlobalAlloc, Layout, System};
+use std::path::PathBuf;
+use std::sync::atomic::{AtomicUsize, Ordering::Relaxed};
+
+/// Counts live heap bytes and their peak, for the memory per grid point of each stage.
+struct Counting;
+static LIVE: AtomicUsize = AtomicUsize::new(0);
+static PEAK: AtomicUsize = AtomicUsize::new(0);
+
+// SAFETY: forwards to the system allocator unchanged; only counts sizes.
+unsafe impl GlobalAlloc for Counting {
+    unsafe fn alloc(&self, l: Layout) -> *mut u8 {
+        let p = unsafe { System.alloc(l) };
+        if !p.is_null() {
+            let now = LIVE.fetch_add(l.size(), Relaxed) + l.size();
+            PEAK.fetch_max(now, Relaxed);
+        }
+        p
+    }
+    unsafe fn dealloc(&self, p: *mut u8, l: Layout) {
+        unsafe { System.dealloc(p, l) };
+        LIVE.fetch_sub(l.size(), Relaxed);
+    }
+    unsafe fn realloc(&self, p: *mut u8, l: Layout, new: usize) -> *mut u8 {
+        let q = unsafe { System.realloc(p, l, new) };
+        if !q.is_null() {
+            if new > l.size() {
+                let now = LIVE.fetch_add(new - l.size(), Relaxed) + new - l.size();
+                PEAK.fetch_max(now, Relaxed);
+            } else {
+                LIVE.fetch_sub(l.size() - new, Relaxed);
+            }
+        }
+        q
+    }
+}
+
+#[global_allocator]
+static ALLOC: Counting = Counting;
+
+/// [`measure`] plus the peak of live heap bytes during `f` above what was live before it.
+fn stage<T>(f: impl FnOnce() -> T) -> (T, f64, f64, usize) {
+    let base = LIVE.load(Relaxed);
+    PEAK.store(base, Relaxed);
+    let (out, wall, cpu) = measure(f);
+    (out, wall, cpu, PEAK.load(Relaxed).saturating_sub(base))
+}
+
+fn reference(name: &str) -> Structure {
+    let path = PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+        .join("../../structures/reference")
+        .join(name);
+    read_structure(&path, None).unwrap_or_else(|e| panic!("{e}"))
+}
+
+/// The n x n x n supercell as a P 1 structure (every site its own asymmetric site).
+fn supercell(s: &Structure, n: usize) -> Structure {
+    let p = s.lattice.parameters();
+    let lattice = Lattice::from_parameters(CellParameters {
+        a: p.a * n as f64,
+        b: p.b * n as f64,
+        c: p.c * n as f64,
+        ..p
+    })
+    .expect("a scaled cell is a cell");
+    let mut sites = Vec::new();
+    let mut asym = Vec::new();
+    for i in 0..n {
+        for j in 0..n {
+            for k in 0..n {
+                for site in &s.sites {
+                    let f = site.frac.0;
+                    let frac = Frac::new(
+                        (f.x + i as f64) / n as f64,
+                        (f.y + j as f64) / n as f64,
+                        (f.z + k as f64) / n as f64,
+                    );
+                    sites.push(Site {
+                        frac,
+                        occupants: site.occupants.clone(),
+                        asym_index: asym.len(),
+                    });
+                    asym.push(AsymmetricSite {
+                        label: site.label().to_string(),
+                        frac,
+                        occupants: site.occupants.clone(),
+                        multiplicity: 1,
+                        wyckoff: None,
+                    });
+                }
+            }
+        }
+    }
+    Structure {
+        name: format!("{} {n}x{n}x{n}", s.name),
+        lattice,
+        symmetry: SymmetryInfo {
+            number: Some(1),
+            hm_symbol: Some("P 1".into()),
+            hall_symbol: Some("P 1".into()),
+            ops: vec![SymOp::identity()],
+            source: "supercell built by the bench".into(),
+            transformation: None,
+        },
+        asymmetric_sites: asym,
+        sites,
+        warnings: vec![],
+        oxidation_states_assigned: s.oxidation_states_assigned,
+    }
+}
+
+struct Row {
+    points: usize,
+    atoms: usize,
+    /// (stage, wall s, cpu s, peak heap bytes above the start of the stage)
+    stages: Vec<(&'static str, f64, f64, usize)>,
+    whole_wall: f64,
+    whole_cpu: f64,
+    whole_peak: usize,
+}
+
+fn run(s: &Structure, spacing: Option<f64>) -> Row {
+    let ion = Element::from_symbol("Li").unwrap();
+    let mut opts = AnalysisOptions::new(ion);
+    opts.spacing_a = spacing;
+    let mut stages = Vec::new();
+    let (out, w, c, m) = stage(|| model_and_landscape(s, &opts).expect("model"));
+    stages.push(("model and grids", w, c, m));
+    let (s2, _, model, _, land) = out;
+    let ceiling = model.energy_cap as f32;
+    let mobile = mobile_sites(&s2, ion);
+    let marks = occupied_wells(&land.energy, &mobile);
+    let (perc, w, c, m) = stage(|| percolation::percolate_marked(&land.energy, ceiling, &marks));
+    stages.push(("energy percolation", w, c, m));
+    let (_, w, c, m) = stage(|| percolation::percolate(&land.mismatch, model.mismatch_cap as f32));
+    stages.push(("mismatch percolation", w, c, m));
+    let framework = framework_ions(&model);
+    let input = NetworkInput {
+        ops: &s2.symmetry.ops,
+        framework: &framework,
+        mobile_sites: &mobile,
+        mobile_radius: model.probe.radius,
+    };
+    let net_opts = NetworkOptions {
+        ceiling,
+        ..Default::default()
+    };
+    let (_, w, c, m) = stage(|| {
+        let net = network::build(&land.energy, &input, &net_opts);
+        net.percolate(&land.energy)
+    });
+    stages.push(("site network", w, c, m));
+    let popts = ProfileOptions {
+        ceiling,
+        ..Default::default()
+    };
+    let (_, w, c, m) = stage(|| channel_profiles(&land.energy, &perc, &popts));
+    stages.push(("profiles", w, c, m));
+    let points = land.energy.len();
+    drop(land);
+    let (_, whole_wall, whole_cpu, whole_peak) =
+        stage(|| analysis::analyse(s, &opts).expect("analysis"));
+    Row {
+        points,
+        atoms: s.sites.len(),
+        stages,
+        whole_wall,
+        whole_cpu,
+        whole_peak,
+    }
+}
+
+fn print_row(name: &str, r: &Row) {
+    let total_cpu: f64 = r.stages.iter().map(|s| s.2).sum();
+    println!("\n{name}: {} sites, {} grid points", r.atoms, r.points);
+    println!(
+        "  {:<22} {:>9} {:>9} {:>7} {:>12} {:>12}",
+        "stage", "cpu (s)", "wall (s)", "share", "cpu us/point", "peak B/point"
+    );
+    for (n, w, c, m) in &r.stages {
+        println!(
+            "  {:<22} {:>9.3} {:>9.3} {:>6.1}% {:>12.3} {:>12.1}",
+            n,
+            c,
+            w,
+            100.0 * c / total_cpu,
+            c * 1e6 / r.points as f64,
+            *m as f64 / r.points as f64
+        );
+    }
+    println!(
+        "  whole analyse: {:.3} cpu s, {:.3} wall s, {:.2} cores busy on average, peak heap {:.1} B/point",
+        r.whole_cpu,
+        r.whole_wall,
+        r.whole_cpu / r.whole_wall,
+        r.whole_peak as f64 / r.points as f64
+    );
+}
+
+fn main() {
+    let quick = std::env::args().any(|a| a == "--quick");
+    println!(
+        "paths, stage by stage ({} threads; CPU seconds summed over threads)",
+        rayon::current_num_threads()
+    );
+    for name in [
+        "LiFePO4_olivine.cif",
+        "TiNb2O7_block.cif",
+        "Li7La3Zr2O12_garnet.cif",
+    ] {
+        let s = reference(name);
+        let r = run(&s, None);
+        print_row(name, &r);
+    }
+
+    println!("\nScaling: olivine LiFePO4 P 1 supercells at 0.1 A");
+    let olivine = reference("LiFePO4_olivine.cif");
+    let sizes: &[usize] = if quick { &[1, 2] } else { &[1, 2, 3] };
+    let mut rows = Vec::new();
+    for &n in sizes {
+        let s = supercell(&olivine, n);
+        let r = run(&s, Some(0.1));
+        print_row(&s.name, &r);
+        rows.push((n, r));
+    }
+    println!(
+        "\n  {:<8} {:>7} {:>10} {:>12} {:>12} {:>12} {:>12} {:>12} {:>10}",
+        "cell",
+        "sites",
+        "points",
+        "grid us/pt",
+        "perc us/pt",
+        "net us/pt",
+        "prof us/pt",
+        "all cpu s",
+        "x 1x1x1"
+    );
+    let base: f64 = rows[0].1.stages.iter().map(|s| s.2).sum();
+    for (n, r) in &rows {
+        let per = |names: &[&str]| {
+            r.stages
+                .iter()
+                .filter(|s| names.contains(&s.0))
+                .map(|s| s.2)
+                .sum::<f64>()
+                * 1e6
+                / r.points as f64
+        };
+        let all: f64 = r.stages.iter().map(|s| s.2).sum();
+        println!(
+            "  {:<8} {:>7} {:>10} {:>12.3} {:>12.3} {:>12.3} {:>12.3} {:>12.2} {:>10.1}",
+            format!("{n}x{n}x{n}"),
+            r.atoms,
+            r.points,
+            per(&["model and grids"]),
+            per(&["energy percolation", "mismatch percolation"]),
+            per(&["site network"]),
+            per(&["profiles"]),
+            all,
+            all / base
+        );
+    }
+}
