@@ -41,9 +41,10 @@ impl InputError {
 }
 
 impl fmt::Display for InputError {
-    /// `file:line:column: context: message`, leaving out what is unknown.
+    /// `file:line:column: context: message`, leaving out what is unknown. Control characters
+    /// (terminal escape codes from a file's names or values) are shown escaped, never sent.
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(f, "{}", self.file)?;
+        write!(f, "{}", printable(&self.file))?;
         if let Some(l) = self.line {
             write!(f, ":{l}")?;
             if let Some(c) = self.column {
@@ -51,10 +52,29 @@ impl fmt::Display for InputError {
             }
         }
         if let Some(c) = &self.context {
-            write!(f, ": {c}")?;
+            write!(f, ": {}", printable(c))?;
         }
-        write!(f, ": {}", self.message)
+        write!(f, ": {}", printable(&self.message))
     }
+}
+
+/// The text with every control character (C0, DEL, C1: terminal escape codes among them)
+/// written as a `\u{..}` escape, so that names read from a file cannot drive a terminal.
+pub fn printable(s: &str) -> std::borrow::Cow<'_, str> {
+    if !s.chars().any(char::is_control) {
+        return std::borrow::Cow::Borrowed(s);
+    }
+    std::borrow::Cow::Owned(
+        s.chars()
+            .map(|c| {
+                if c.is_control() {
+                    format!("\\u{{{:x}}}", c as u32)
+                } else {
+                    c.to_string()
+                }
+            })
+            .collect(),
+    )
 }
 
 impl std::error::Error for InputError {}
@@ -62,6 +82,11 @@ impl std::error::Error for InputError {}
 #[cfg(test)]
 mod tests {
     use super::*;
+    #[test]
+    fn escape_codes_are_shown_not_sent() {
+        let e = InputError::new("a.cif", "no cell").context("data block 'x\u{1b}[2Jy'");
+        assert_eq!(e.to_string(), "a.cif: data block 'x\\u{1b}[2Jy': no cell");
+    }
     #[test]
     fn names_file_line_column_and_context() {
         let e = InputError::new("a.cif", "expected a value after the tag")

@@ -52,9 +52,91 @@ use std::path::Path;
 /// problem is in the text.
 pub fn parse_file(path: &Path) -> Result<Document, InputError> {
     let file = path.display().to_string();
-    let bytes = std::fs::read(path)
-        .map_err(|e| InputError::new(file.clone(), format!("cannot read the file: {e}")))?;
+    let bytes = read_input_file(path)?;
     parse(&bytes).map_err(|e| e.into_input_error(&file))
+}
+
+/// Largest input file read (bytes): 64 MiB, about 1.5 million atom lines of a P 1 CIF.
+pub const MAX_FILE_BYTES: u64 = 64 << 20;
+
+/// Reads a whole input file, after checking that it is a regular file (a FIFO, a device or a
+/// folder would block or never end) of at most [`MAX_FILE_BYTES`]. Errors name the file.
+pub fn read_input_file(path: &Path) -> Result<Vec<u8>, InputError> {
+    use std::io::Read;
+    let file = path.display().to_string();
+    let meta = std::fs::metadata(path)
+        .map_err(|e| InputError::new(file.clone(), format!("cannot read the file: {e}")))?;
+    if !meta.is_file() {
+        let what = if meta.is_dir() {
+            "a folder"
+        } else {
+            "not a regular file (a pipe, socket or device)"
+        };
+        return Err(InputError::new(
+            file,
+            format!("cannot read the file: it is {what}"),
+        ));
+    }
+    if meta.len() > MAX_FILE_BYTES {
+        return Err(InputError::new(
+            file,
+            format!(
+                "the file is {:.0} MB, larger than the {} MB hopmap reads",
+                meta.len() as f64 / 1e6,
+                MAX_FILE_BYTES >> 20
+            ),
+        ));
+    }
+    let mut bytes = Vec::with_capacity(meta.len() as usize);
+    std::fs::File::open(path)
+        .and_then(|f| f.take(MAX_FILE_BYTES + 1).read_to_end(&mut bytes))
+        .map_err(|e| InputError::new(file.clone(), format!("cannot read the file: {e}")))?;
+    if bytes.len() as u64 > MAX_FILE_BYTES {
+        return Err(InputError::new(
+            file,
+            format!(
+                "the file grew past the {} MB hopmap reads",
+                MAX_FILE_BYTES >> 20
+            ),
+        ));
+    }
+    Ok(bytes)
+}
+
+/// As [`read_input_file`], as UTF-8 text.
+pub fn read_input_text(path: &Path) -> Result<String, InputError> {
+    let bytes = read_input_file(path)?;
+    String::from_utf8(bytes).map_err(|e| {
+        InputError::new(
+            path.display().to_string(),
+            format!(
+                "cannot read the file: it is not UTF-8 text (byte {} is invalid)",
+                e.utf8_error().valid_up_to()
+            ),
+        )
+    })
+}
+
+/// Replaces the Unicode minus sign and dashes (U+2010-U+2015, U+2212, U+FE63, U+FF0D) by the
+/// ASCII hyphen-minus, so that `−0.25` and `−P 4n 2n` read as `-0.25` and `-P 4n 2n`: real
+/// files carry typographic characters pasted from word processors and PDFs where the grammar
+/// expects ASCII.
+pub fn ascii_minus(s: &str) -> std::borrow::Cow<'_, str> {
+    let is_dash = |c: char| {
+        matches!(
+            c,
+            '\u{2010}'..='\u{2015}' | '\u{2212}' | '\u{FE63}' | '\u{FF0D}'
+        )
+    };
+    if s.chars().any(is_dash) {
+        std::borrow::Cow::Owned(
+            s.chars()
+                .map(|c| if is_dash(c) { '-' } else { c })
+                .collect(),
+        )
+    } else {
+        std::borrow::Cow::Borrowed(s)
+    }
 }
 
 /// Reads a CIF number with its standard uncertainty in parentheses, in units of the last digit
@@ -62,7 +144,15 @@ pub fn parse_file(path: &Path) -> Result<Document, InputError> {
 /// `0.42E3(15)` is 420 with s.u. 150, `-.5(5)` is -0.5 with s.u. 0.5. Numbers without
 /// parentheses give `None` for the s.u. Anything that is not a CIF number (`?`, `12..3`, `e5`,
 /// `1,5`, `inf`) gives `None`.
+///
+/// A typographic minus sign or dash pasted from a PDF (`−0.25`, `1.2e−3`) reads as `-`.
 pub fn parse_number_with_su(s: &str) -> Option<(f64, Option<f64>)> {
+    if !s.is_ascii() {
+        return match ascii_minus(s) {
+            std::borrow::Cow::Owned(t) => parse_number_with_su(&t),
+            std::borrow::Cow::Borrowed(_) => None,
+        };
+    }
     let (num, su_digits) = match s.strip_suffix(')') {
         Some(head) => {
             let open = head.rfind('(')?;

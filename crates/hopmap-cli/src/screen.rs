@@ -6,7 +6,7 @@
 //! interrupted run loses nothing), resuming (jobs already in the output are skipped), and
 //! merging shard outputs. A bad file becomes an error row; the batch goes on.
 
-use hopmap_report::output::write_atomic;
+use hopmap_report::output::{remove_stale_temporaries, write_atomic};
 use rayon::prelude::*;
 use std::collections::BTreeSet;
 use std::fs::OpenOptions;
@@ -63,16 +63,206 @@ pub enum TableFormat {
 }
 
 impl TableFormat {
-    pub fn from_path(p: &Path) -> TableFormat {
+    /// The format of a table file: `.csv`; `.jsonl` or `.ndjson` for JSON lines. Any other
+    /// name (`x.json`, `x.txt`) is an error rather than a silent CSV.
+    pub fn of(p: &Path) -> Result<TableFormat, String> {
         match p
             .extension()
             .and_then(|e| e.to_str())
             .map(|e| e.to_ascii_lowercase())
             .as_deref()
         {
-            Some("jsonl") | Some("ndjson") => TableFormat::JsonLines,
-            _ => TableFormat::Csv,
+            Some("jsonl") | Some("ndjson") => Ok(TableFormat::JsonLines),
+            Some("csv") => Ok(TableFormat::Csv),
+            _ => Err(format!(
+                "{}: a screening table must end in .csv, or .jsonl (or .ndjson) for JSON lines",
+                p.display()
+            )),
         }
+    }
+
+    /// As [`TableFormat::of`], CSV for a name it does not know (tests and internal use).
+    pub fn from_path(p: &Path) -> TableFormat {
+        Self::of(p).unwrap_or(TableFormat::Csv)
+    }
+}
+
+/// The path a job is matched by on resume: the canonical path when the file exists (so
+/// `in/a.cif`, `./in/a.cif` and a symlink to it are one job), else the path as written.
+pub fn job_key(file: &str) -> String {
+    std::fs::canonicalize(file)
+        .map(|p| p.display().to_string())
+        .unwrap_or_else(|_| file.to_string())
+}
+
+/// As [`check_table`], for the output of a run: the advice says the file is left untouched.
+pub fn check_resumable(out: &Path, format: TableFormat) -> Result<(), String> {
+    check_table(out, format).map_err(|e| {
+        format!(
+            "{e}; it is left untouched: choose another --out, or remove the file to start afresh"
+        )
+    })
+}
+
+/// Says whether an existing file can be resumed as a table of this format: an empty file can; a
+/// CSV must start with the hopmap header, a JSON-lines file must hold only hopmap rows. Any other
+/// file (a user's CSV, a CIF) is refused so that it is never overwritten.
+pub fn check_table(out: &Path, format: TableFormat) -> Result<(), String> {
+    let Ok(meta) = std::fs::metadata(out) else {
+        return Ok(());
+    };
+    if !meta.is_file() {
+        return Err(format!(
+            "{} exists and is not a regular file",
+            out.display()
+        ));
+    }
+    if meta.len() == 0 {
+        return Ok(());
+    }
+    let bytes = std::fs::read(out).map_err(|e| format!("cannot read {}: {e}", out.display()))?;
+    let text = String::from_utf8_lossy(&bytes);
+    let refuse = |why: String| {
+        Err(format!(
+            "{} is not a hopmap screening table ({why})",
+            out.display()
+        ))
+    };
+    match format {
+        TableFormat::Csv => {
+            let first = text.lines().next().unwrap_or("");
+            if first.trim_end_matches('\r') != COLUMNS.join(",") {
+                let shown: String = first.chars().take(60).collect();
+                return refuse(format!("its first line is '{shown}'"));
+            }
+        }
+        TableFormat::JsonLines => {
+            let complete = match text.rfind('\n') {
+                Some(i) => &text[..=i],
+                None => "",
+            };
+            for (n, line) in complete.lines().enumerate() {
+                if line.trim().is_empty() {
+                    continue;
+                }
+                let ok = serde_json::from_str::<serde_json::Value>(line)
+                    .ok()
+                    .as_ref()
+                    .and_then(ScreenRow::from_json)
+                    .is_some();
+                if !ok {
+                    return refuse(format!("line {} is not a row of hopmap screen", n + 1));
+                }
+            }
+        }
+    }
+    Ok(())
+}
+
+/// The settings of a screening run that change its rows (grid spacing, parameter file,
+/// oxidation states, substitutions, cell handling, version), recorded beside the table in
+/// `<table>.run.json` so that a resume with other settings is refused instead of mixing rows.
+pub type RunSettings = std::collections::BTreeMap<String, String>;
+
+/// Where the settings of a table are recorded.
+pub fn settings_path(out: &Path) -> PathBuf {
+    let mut name = out.file_name().unwrap_or_default().to_os_string();
+    name.push(".run.json");
+    out.with_file_name(name)
+}
+
+/// Compares the settings of this run with those recorded for an existing table; records them
+/// for a new one. A difference is an error that names each setting.
+pub fn check_settings(
+    out: &Path,
+    settings: &RunSettings,
+    table_has_rows: bool,
+) -> Result<(), String> {
+    let sp = settings_path(out);
+    if table_has_rows && let Ok(text) = std::fs::read_to_string(&sp) {
+        let v: serde_json::Value = serde_json::from_str(&text).map_err(|e| {
+            format!(
+                "{}: not a settings record of hopmap screen: {e}",
+                sp.display()
+            )
+        })?;
+        let old: RunSettings = v
+            .get("settings")
+            .and_then(|s| s.as_object())
+            .map(|m| {
+                m.iter()
+                    .map(|(k, v)| (k.clone(), v.as_str().unwrap_or("").to_string()))
+                    .collect()
+            })
+            .unwrap_or_default();
+        let diffs: Vec<String> = old
+            .keys()
+            .chain(settings.keys())
+            .collect::<BTreeSet<_>>()
+            .into_iter()
+            .filter(|k| old.get(*k) != settings.get(*k))
+            .map(|k| {
+                format!(
+                    "{k}: table '{}', this run '{}'",
+                    old.get(k).map(String::as_str).unwrap_or("-"),
+                    settings.get(k).map(String::as_str).unwrap_or("-")
+                )
+            })
+            .collect();
+        if !diffs.is_empty() {
+            return Err(format!(
+                "{} was computed with other settings ({}); resuming would mix rows of two runs: \
+                 rerun with the same settings or choose another --out",
+                out.display(),
+                diffs.join("; ")
+            ));
+        }
+        return Ok(());
+    }
+    let doc = serde_json::json!({ "schema": "hopmap.screen-run/1", "settings": settings });
+    write_atomic(
+        &sp,
+        (serde_json::to_string_pretty(&doc).unwrap() + "\n").as_bytes(),
+    )
+    .map_err(|e| format!("cannot write {}: {e}", sp.display()))
+}
+
+/// An exclusive lock on a table for the time of a run (`.<table>.lock` beside it; the
+/// operating system releases it when the process ends, however it ends).
+pub struct TableLock {
+    _file: std::fs::File,
+    path: PathBuf,
+}
+
+impl TableLock {
+    /// Takes the lock, or says that another run holds it.
+    pub fn take(out: &Path) -> Result<TableLock, String> {
+        let name = out.file_name().and_then(|n| n.to_str()).unwrap_or("table");
+        let path = out.with_file_name(format!(".{name}.lock"));
+        let file = OpenOptions::new()
+            .create(true)
+            .truncate(false)
+            .write(true)
+            .open(&path)
+            .map_err(|e| format!("cannot create the lock {}: {e}", path.display()))?;
+        match file.try_lock() {
+            Ok(()) => Ok(TableLock { _file: file, path }),
+            Err(std::fs::TryLockError::WouldBlock) => Err(format!(
+                "another hopmap run is writing {} (it holds {}); two runs on one table would \
+                 lose rows: give each run its own --out and join them with `hopmap merge`",
+                out.display(),
+                path.display()
+            )),
+            Err(std::fs::TryLockError::Error(e)) => {
+                Err(format!("cannot lock {}: {e}", path.display()))
+            }
+        }
+    }
+}
+
+impl Drop for TableLock {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_file(&self.path);
     }
 }
 
@@ -123,7 +313,15 @@ pub fn collect_files(inputs: &[PathBuf]) -> std::io::Result<Vec<PathBuf>> {
             || name.starts_with("poscar")
             || name.starts_with("contcar")
     }
-    fn walk(dir: &Path, out: &mut BTreeSet<PathBuf>) -> std::io::Result<()> {
+    // folders are entered once each by canonical path, so a symlink loop ends
+    fn walk(
+        dir: &Path,
+        out: &mut BTreeSet<PathBuf>,
+        seen: &mut BTreeSet<PathBuf>,
+    ) -> std::io::Result<()> {
+        if !seen.insert(std::fs::canonicalize(dir)?) {
+            return Ok(());
+        }
         let mut entries: Vec<_> = std::fs::read_dir(dir)?
             .filter_map(|e| e.ok())
             .map(|e| e.path())
@@ -131,7 +329,7 @@ pub fn collect_files(inputs: &[PathBuf]) -> std::io::Result<Vec<PathBuf>> {
         entries.sort();
         for p in entries {
             if p.is_dir() {
-                walk(&p, out)?;
+                walk(&p, out, seen)?;
             } else if is_structure(&p) {
                 out.insert(p);
             }
@@ -139,14 +337,25 @@ pub fn collect_files(inputs: &[PathBuf]) -> std::io::Result<Vec<PathBuf>> {
         Ok(())
     }
     let mut out = BTreeSet::new();
+    let mut seen = BTreeSet::new();
     for p in inputs {
         if p.is_dir() {
-            walk(p, &mut out)?;
-        } else {
+            walk(p, &mut out, &mut seen)?;
+        } else if p.exists() {
             out.insert(p.clone());
+        } else {
+            return Err(std::io::Error::new(
+                std::io::ErrorKind::NotFound,
+                format!("{} does not exist", p.display()),
+            ));
         }
     }
-    Ok(out.into_iter().collect())
+    // one job per file: a file reached by two paths (a symlink, ./x and x) is kept once
+    let mut canonical = BTreeSet::new();
+    Ok(out
+        .into_iter()
+        .filter(|p| canonical.insert(std::fs::canonicalize(p).unwrap_or_else(|_| p.clone())))
+        .collect())
 }
 
 /// The jobs of one shard: files are dealt round-robin to shards in sorted order, every ion of a
@@ -353,6 +562,11 @@ pub fn render_table(rows: &[ScreenRow], format: TableFormat) -> String {
     s
 }
 
+/// How the error of a row over its time or memory budget begins. Such rows are computed again
+/// when a run resumes (with a larger `--time-limit`, `--max-memory` or a coarser grid they may
+/// fit); every other row, error rows included, counts as done.
+pub const OVER_BUDGET: &str = "over budget: ";
+
 /// What a batch run did.
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct BatchSummary {
@@ -376,21 +590,45 @@ where
     F: Fn(&Path, &str) -> ScreenRow + Sync,
 {
     let format = TableFormat::from_path(out);
+    remove_stale_temporaries(out);
     let mut existing = if out.exists() {
         read_table(out)?
     } else {
         Vec::new()
     };
+    // rows over budget are retried: the job is done again and its old row replaced
+    let retry: BTreeSet<(String, String)> = existing
+        .iter()
+        .filter(|r| r.error.starts_with(OVER_BUDGET))
+        .map(|r| (job_key(&r.file), r.ion.clone()))
+        .collect();
+    let in_this_run: BTreeSet<(String, String)> = jobs
+        .iter()
+        .map(|(f, ion)| (job_key(&f.display().to_string()), ion.clone()))
+        .collect();
+    // a retried row keeps the file name it was first written with
+    let mut first_name: std::collections::BTreeMap<(String, String), String> = Default::default();
+    existing.retain(|r| {
+        let k = (job_key(&r.file), r.ion.clone());
+        let again = retry.contains(&k) && in_this_run.contains(&k);
+        if again {
+            first_name.insert(k, r.file.clone());
+        }
+        !again
+    });
     // Drop an interrupted last line before appending: rewrite the complete rows.
     if out.exists() {
         write_atomic(out, render_table(&existing, format).as_bytes())?;
     } else {
         write_atomic(out, render_table(&[], format).as_bytes())?;
     }
-    let done: BTreeSet<(String, String)> = existing.iter().map(|r| r.key()).collect();
+    let done: BTreeSet<(String, String)> = existing
+        .iter()
+        .map(|r| (job_key(&r.file), r.ion.clone()))
+        .collect();
     let todo: Vec<&(PathBuf, String)> = jobs
         .iter()
-        .filter(|(f, ion)| !done.contains(&(f.display().to_string(), ion.clone())))
+        .filter(|(f, ion)| !done.contains(&(job_key(&f.display().to_string()), ion.clone())))
         .collect();
     let summary = Mutex::new(BatchSummary {
         jobs: jobs.len(),
@@ -400,8 +638,16 @@ where
     let writer = Mutex::new(OpenOptions::new().append(true).open(out)?);
     let new_rows = Mutex::new(Vec::new());
     let io_error: Mutex<Option<std::io::Error>> = Mutex::new(None);
+    // after a write error (a full disk) no further job is started: the error is reported at once
+    let failed = std::sync::atomic::AtomicBool::new(false);
     todo.par_iter().for_each(|(file, ion)| {
-        let row = analyse(file, ion);
+        if failed.load(std::sync::atomic::Ordering::Relaxed) {
+            return;
+        }
+        let mut row = analyse(file, ion);
+        if let Some(name) = first_name.get(&(job_key(&row.file), row.ion.clone())) {
+            row.file = name.clone();
+        }
         let line = match format {
             TableFormat::Csv => row.to_csv_line(),
             TableFormat::JsonLines => row.to_json().to_string() + "\n",
@@ -409,6 +655,7 @@ where
         {
             let mut w = writer.lock().unwrap();
             if let Err(e) = w.write_all(line.as_bytes()).and_then(|_| w.flush()) {
+                failed.store(true, std::sync::atomic::Ordering::Relaxed);
                 io_error.lock().unwrap().get_or_insert(e);
             }
         }
@@ -433,10 +680,19 @@ where
 
 /// Joins shard outputs into one table sorted by (file, ion); a job present in several inputs is
 /// kept once (the first non-error row wins).
-pub fn merge_tables(inputs: &[PathBuf]) -> std::io::Result<Vec<ScreenRow>> {
+pub fn merge_tables(inputs: &[PathBuf]) -> Result<Vec<ScreenRow>, String> {
     let mut all: Vec<ScreenRow> = Vec::new();
     for p in inputs {
-        all.extend(read_table(p)?);
+        let format = TableFormat::of(p)?;
+        let meta = std::fs::metadata(p).map_err(|e| format!("cannot read {}: {e}", p.display()))?;
+        if meta.len() == 0 {
+            return Err(format!(
+                "{} is empty, not a hopmap screening table",
+                p.display()
+            ));
+        }
+        check_table(p, format)?;
+        all.extend(read_table(p).map_err(|e| format!("cannot read {}: {e}", p.display()))?);
     }
     all.sort_by(|a, b| {
         a.key()

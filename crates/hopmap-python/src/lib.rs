@@ -25,6 +25,7 @@ fn raise(py: Python<'_>, e: Error) -> PyErr {
         ErrorKind::Options => "OptionsError",
         ErrorKind::Model => "ModelError",
         ErrorKind::Structure => "StructureError",
+        ErrorKind::OverBudget => "OverBudgetError",
         ErrorKind::Cancelled => "Cancelled",
     };
     let made = py.import("hopmap.errors").and_then(|m| {

@@ -98,6 +98,8 @@ pub struct AnalysisOptions {
     pub rate: RateOptions,
     /// Skip the site network, profiles and estimates (percolation only: calibration, screening).
     pub percolation_only: bool,
+    /// Memory and time the grid of one structure may take ([`crate::limits::plan_grid`]).
+    pub budget: crate::limits::Budget,
 }
 
 impl AnalysisOptions {
@@ -111,7 +113,93 @@ impl AnalysisOptions {
             progress: Progress::Silent,
             rate: RateOptions::default(),
             percolation_only: false,
+            budget: crate::limits::Budget::default(),
         }
+    }
+
+    /// Checks every option that has a physical range (spacing, temperature, rates, filling,
+    /// distances) before any structure is read: a bad option is the same mistake for every
+    /// structure of a batch, so it is reported once ([`AnalysisError::Options`]).
+    pub fn validate(&self) -> Result<(), AnalysisError> {
+        if let Some(s) = self.spacing_a {
+            crate::limits::check_spacing(s).map_err(AnalysisError::Options)?;
+        }
+        self.rate.validate()
+    }
+}
+
+impl RateOptions {
+    /// Largest minimum ion-ion distance accepted (A): no ion keeps its neighbours 10 A away.
+    pub const MAX_MIN_ION_DISTANCE_A: f64 = 10.0;
+
+    /// Checks the physical ranges: temperature above 0 K (at most 5000 K), attempt frequency
+    /// above 0, correlation factor in (0, 1], site filling in [0, 1), a measured D above 0,
+    /// C-rates above 0, the minimum ion distance in (0, 10] A, inserted ions at least 0.
+    pub fn validate(&self) -> Result<(), AnalysisError> {
+        use crate::limits::short_number as n;
+        let bad = |m: String| Err(AnalysisError::Options(m));
+        let t = self.temperature_k;
+        if !(t > 0.0 && t <= 5000.0) {
+            return bad(format!(
+                "temperature {} K must lie above 0 K and at most 5000 K",
+                n(t)
+            ));
+        }
+        let f = self.attempt_frequency_hz;
+        if !(f > 0.0 && f.is_finite()) {
+            return bad(format!(
+                "attempt frequency {} Hz must be a positive number",
+                n(f)
+            ));
+        }
+        let c = self.correlation_factor;
+        if !(c > 0.0 && c <= 1.0) {
+            return bad(format!(
+                "correlation factor {} must lie above 0 and at most 1",
+                n(c)
+            ));
+        }
+        let x = self.site_filling;
+        if !(0.0..1.0).contains(&x) {
+            return bad(format!(
+                "site filling {} must lie in [0, 1) (0 = dilute; a full lattice has no vacancy to hop into)",
+                n(x)
+            ));
+        }
+        if let Some((d, tk)) = self.measured_diffusion {
+            if !(d > 0.0 && d.is_finite()) {
+                return bad(format!(
+                    "measured diffusion coefficient {} m^2/s must be a positive number",
+                    n(d)
+                ));
+            }
+            if !(tk > 0.0 && tk <= 5000.0) {
+                return bad(format!(
+                    "temperature of the measured diffusion coefficient {} K must lie above 0 K and at most 5000 K",
+                    n(tk)
+                ));
+            }
+        }
+        if let Some(r) = self.c_rates.iter().find(|r| !(**r > 0.0 && r.is_finite())) {
+            return bad(format!("C-rate {} must be a positive number", n(*r)));
+        }
+        let m = self.min_ion_distance_a;
+        if !(m > 0.0 && m <= Self::MAX_MIN_ION_DISTANCE_A) {
+            return bad(format!(
+                "minimum ion distance {} A must lie above 0 and at most {} A",
+                n(m),
+                Self::MAX_MIN_ION_DISTANCE_A
+            ));
+        }
+        if let Some(x) = self.ions_per_formula_unit
+            && !(x >= 0.0 && x.is_finite())
+        {
+            return bad(format!(
+                "inserted ions per formula unit {} must be a number at least 0",
+                n(x)
+            ));
+        }
+        Ok(())
     }
 }
 
@@ -253,6 +341,12 @@ pub enum AnalysisError {
     Cancelled(#[from] landscape::Cancelled),
     #[error("structure '{structure}': {message}")]
     Structure { structure: String, message: String },
+    /// An option out of its range: the same for every structure of a batch.
+    #[error("{0}")]
+    Options(String),
+    /// The structure's grid would exceed the memory or time budget ([`crate::limits`]).
+    #[error("structure '{structure}': {message}")]
+    OverBudget { structure: String, message: String },
 }
 
 /// Gives every occupant an oxidation state: the user's settings, then the file's, then assigned
@@ -379,11 +473,18 @@ pub fn model_and_landscape(
             ),
         });
     }
+    opts.validate()?;
     let spacing = opts
         .spacing_a
         .unwrap_or_else(|| default_spacing_a(s.volume()));
-    let dims = grid_dims(&s, spacing);
-    let land = landscape::compute(&model, dims, &opts.progress)?;
+    let plan = crate::limits::plan_grid(&s.lattice, s.sites.len(), spacing, &opts.budget, |sp| {
+        grid_dims(&s, sp)
+    })
+    .map_err(|message| AnalysisError::OverBudget {
+        structure: s.name.clone(),
+        message,
+    })?;
+    let land = landscape::compute(&model, plan.dims, &opts.progress)?;
     Ok((s, note, model, prov, land))
 }
 
@@ -439,6 +540,22 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
         }
     };
     let spacing_a = land.energy.spacing();
+    if opts.spacing_a.is_none() {
+        let coarse = default_spacing_a(s.volume());
+        if coarse > 0.1 + 1e-9 {
+            let fine = crate::limits::points_at(&s.lattice, 0.1);
+            warnings.push(Warning::new(
+                WarningKind::Landscape,
+                format!(
+                    "the cell of {:.0} A^3 is large: the grid was coarsened from 0.1 A to {:.3} A to keep about 1e6 points; barriers can move by several hundredths of an eV (pass --spacing 0.1 for the fine grid: {:.1e} points, about {})",
+                    s.volume(),
+                    coarse,
+                    fine,
+                    crate::limits::human_bytes(fine * crate::limits::BYTES_PER_GRID_POINT as f64)
+                ),
+            ));
+        }
+    }
 
     let t = Instant::now();
     let ceiling = model.energy_cap as f32;

@@ -20,9 +20,6 @@ use std::fmt;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
-/// Smallest and largest grid spacing accepted, A (exclusive below, inclusive above).
-pub const SPACING_RANGE_A: (f64, f64) = (0.01, 2.0);
-
 /// What went wrong, so that a program can react without reading the sentence.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum ErrorKind {
@@ -34,6 +31,9 @@ pub enum ErrorKind {
     Model,
     /// The structure cannot host the analysis (no framework, no site of the ion, ...).
     Structure,
+    /// The structure's grid would exceed the memory or time budget ([`crate::limits`]); the
+    /// message gives the estimate and a spacing that would fit.
+    OverBudget,
     /// The caller's progress callback asked to stop.
     Cancelled,
 }
@@ -45,6 +45,7 @@ impl ErrorKind {
             ErrorKind::Options => "options",
             ErrorKind::Model => "model",
             ErrorKind::Structure => "structure",
+            ErrorKind::OverBudget => "over budget",
             ErrorKind::Cancelled => "cancelled",
         }
     }
@@ -125,6 +126,12 @@ impl From<AnalysisError> for Error {
             AnalysisError::Cancelled(c) => (ErrorKind::Cancelled, None, c.to_string()),
             AnalysisError::Structure { structure, message } => (
                 ErrorKind::Structure,
+                Some(format!("structure '{structure}'")),
+                message,
+            ),
+            AnalysisError::Options(message) => (ErrorKind::Options, None, message),
+            AnalysisError::OverBudget { structure, message } => (
+                ErrorKind::OverBudget,
                 Some(format!("structure '{structure}'")),
                 message,
             ),
@@ -247,13 +254,7 @@ impl OptionsBuilder {
             )
         })?;
         if let Some(s) = self.spacing_a {
-            let (lo, hi) = SPACING_RANGE_A;
-            if !(s > lo && s <= hi) {
-                return Err(Error::options(
-                    "spacing",
-                    format!("{s} A must be above {lo} A and at most {hi} A"),
-                ));
-            }
+            crate::limits::check_spacing(s).map_err(|m| Error::options("spacing", m))?;
         }
         let r = &self.rate;
         let positive = |name: &str, v: f64, unit: &str| {
@@ -305,6 +306,8 @@ impl OptionsBuilder {
             measured_diffusion: self.diffusivity_m2_s.map(|d| (d, self.rate.temperature_k)),
             ..self.rate
         };
+        // the core's own ranges (crate::limits, RateOptions::validate) are the last word
+        o.validate()?;
         Ok(o)
     }
 }

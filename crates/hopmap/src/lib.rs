@@ -22,6 +22,7 @@ pub mod grid;
 pub mod handoff;
 pub mod landscape;
 pub mod lattice;
+pub mod limits;
 pub mod neighbours;
 pub mod network;
 pub mod percolation;

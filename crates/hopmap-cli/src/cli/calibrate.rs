@@ -76,12 +76,8 @@ fn parse_range(flag: &str, text: &str) -> Result<Vec<f64>, Failure> {
 
 pub fn run(g: &GlobalOpts, a: CalibrateArgs) -> CmdResult {
     let ion = parse_ion(&a.ion)?;
-    if let Some(s) = a.spacing
-        && !(s > 0.01 && s <= 2.0)
-    {
-        return Err(Failure::Usage(format!(
-            "--spacing {s} A must lie between 0.01 and 2 A"
-        )));
+    if let Some(s) = a.spacing {
+        hopmap::limits::check_spacing(s).map_err(|e| Failure::Usage(format!("--spacing: {e}")))?;
     }
     let mut grid = CalibrationGrid::default();
     if let Some(r) = &a.d0_range {

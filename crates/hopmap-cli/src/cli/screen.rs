@@ -38,6 +38,22 @@ pub struct ScreenArgs {
     /// Keep the cell of P 1 inputs instead of rewriting them in the conventional cell
     #[arg(long)]
     pub keep_cell: bool,
+    /// Time budget of one structure and ion, s: a grid estimated to take longer is refused, one
+    /// that runs longer is stopped, and the job becomes an error row
+    #[arg(long, value_name = "S", default_value_t = 600.0)]
+    pub time_limit: f64,
+    /// Memory budget of one structure's grids, GB (jobs run in parallel, one per core)
+    #[arg(long, value_name = "GB", default_value_t = 4.0)]
+    pub max_memory: f64,
+}
+
+/// Stops a grid once its structure's time budget is spent.
+struct Deadline(std::time::Instant);
+
+impl hopmap::landscape::ProgressSink for Deadline {
+    fn update(&self, _stage: &'static str, _done: u64, _total: u64, _points: u64) -> bool {
+        std::time::Instant::now() < self.0
+    }
 }
 
 #[derive(Args, Debug)]
@@ -58,6 +74,7 @@ pub fn screen_one(
     subs: &[Substitution],
     opts_for: &dyn Fn(&str) -> Result<hopmap::analysis::AnalysisOptions, String>,
 ) -> ScreenRow {
+    let started = std::time::Instant::now();
     let file = path.display().to_string();
     let mut row = ScreenRow {
         file: file.clone(),
@@ -74,8 +91,23 @@ pub fn screen_one(
         row.formula = formula;
         row.space_group = s.symmetry.hm_symbol.clone().unwrap_or_default();
         row.space_group_number = s.symmetry.number;
-        let opts = opts_for(ion)?;
-        let a = hopmap::analysis::analyse(&s, &opts).map_err(|e| e.to_string())?;
+        let mut opts = opts_for(ion)?;
+        let limit = opts.budget.max_seconds.unwrap_or(f64::INFINITY);
+        if limit.is_finite() {
+            opts.progress = hopmap::landscape::Progress::Report(std::sync::Arc::new(Deadline(
+                started + std::time::Duration::from_secs_f64(limit),
+            )));
+        }
+        let a = hopmap::analysis::analyse(&s, &opts).map_err(|e| match e {
+            hopmap::analysis::AnalysisError::Cancelled(_) => format!(
+                "{}stopped after the time budget of {limit} s per structure (--time-limit)",
+                screen::OVER_BUDGET
+            ),
+            e @ hopmap::analysis::AnalysisError::OverBudget { .. } => {
+                format!("{}{e}", screen::OVER_BUDGET)
+            }
+            e => e.to_string(),
+        })?;
         let p = &a.percolation;
         row.dimension = Some(p.dimension);
         row.barrier_1d_ev = p.threshold(1).map(|t| t.barrier as f64);
@@ -102,12 +134,27 @@ pub fn screen_one(
 }
 
 pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
-    let files =
-        screen::collect_files(&a.inputs).map_err(|e| format!("cannot list the inputs: {e}"))?;
+    // Everything that would fail the same way for every structure is checked before the batch
+    // starts, and is a usage error (exit 2), never a column of error rows.
+    let format = TableFormat::of(&a.out).map_err(Failure::Usage)?;
+    let files = screen::collect_files(&a.inputs)
+        .map_err(|e| Failure::Usage(format!("cannot list the inputs: {e}")))?;
     if files.is_empty() {
         return Err(Failure::Usage(
             "no structure files found in the inputs".into(),
         ));
+    }
+    if !(a.time_limit > 0.0 && a.time_limit.is_finite()) {
+        return Err(Failure::Usage(format!(
+            "--time-limit {} s must be a positive number",
+            hopmap::limits::short_number(a.time_limit)
+        )));
+    }
+    if !(a.max_memory > 0.0 && a.max_memory <= 1e6) {
+        return Err(Failure::Usage(format!(
+            "--max-memory {} GB must be a positive number",
+            hopmap::limits::short_number(a.max_memory)
+        )));
     }
     for ion in &a.ion {
         super::analyse::parse_ion(ion)?;
@@ -118,6 +165,7 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
         quiet: true,
         verbose: false,
     };
+    let (time_limit, max_memory_gb) = (a.time_limit, a.max_memory);
     let spacing = a.spacing;
     let params = a.params.clone();
     let oxidation = a.oxidation.clone();
@@ -130,10 +178,23 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
             exclude: vec![],
             oxidation: oxidation.clone(),
         };
-        super::analyse::options(&quiet, &m, &base_rate).map_err(|e| match e {
+        let mut o = super::analyse::options(&quiet, &m, &base_rate).map_err(|e| match e {
             Failure::Analysis(s) | Failure::Usage(s) => s,
-        })
+        })?;
+        o.budget = hopmap::limits::Budget {
+            max_memory_bytes: (max_memory_gb * 1e9) as u64,
+            max_seconds: Some(time_limit),
+        };
+        Ok(o)
     };
+    for ion in &a.ion {
+        opts_for(ion).map_err(Failure::Usage)?;
+    }
+    // the table: a hopmap table or nothing, one writer, the same settings as its rows
+    screen::check_resumable(&a.out, format).map_err(Failure::Usage)?;
+    let _lock = screen::TableLock::take(&a.out).map_err(Failure::Usage)?;
+    let has_rows = std::fs::metadata(&a.out).is_ok_and(|m| m.len() > 0);
+    screen::check_settings(&a.out, &run_settings(&a), has_rows).map_err(Failure::Usage)?;
     let bar = if g.quiet {
         ProgressBar::hidden()
     } else {
@@ -170,10 +231,50 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
     Ok(())
 }
 
+/// The settings that change a screening row, recorded with the table (see
+/// [`screen::check_settings`]); the parameter file by its content, not its name.
+fn run_settings(a: &ScreenArgs) -> screen::RunSettings {
+    let mut m = screen::RunSettings::new();
+    m.insert("hopmap_version".into(), env!("CARGO_PKG_VERSION").into());
+    m.insert(
+        "spacing_a".into(),
+        a.spacing
+            .map(|s| s.to_string())
+            .unwrap_or_else(|| "default".into()),
+    );
+    let params = a
+        .params
+        .as_ref()
+        .map(|p| match std::fs::read(p) {
+            Ok(b) => format!("{} bytes, fnv1a {:016x}", b.len(), fnv1a(&b)),
+            Err(_) => p.display().to_string(),
+        })
+        .unwrap_or_else(|| "built-in".into());
+    m.insert("params".into(), params);
+    m.insert("oxidation".into(), a.oxidation.clone().unwrap_or_default());
+    m.insert(
+        "substitute".into(),
+        a.substitute
+            .iter()
+            .map(|s| format!("{s:?}"))
+            .collect::<Vec<_>>()
+            .join(" | "),
+    );
+    m.insert("keep_cell".into(), a.keep_cell.to_string());
+    m
+}
+
+/// FNV-1a, 64 bits: a fingerprint of a parameter file's bytes (not a security hash).
+fn fnv1a(bytes: &[u8]) -> u64 {
+    bytes.iter().fold(0xcbf29ce484222325u64, |h, &b| {
+        (h ^ b as u64).wrapping_mul(0x100000001b3)
+    })
+}
+
 pub fn run_merge(g: &GlobalOpts, a: MergeArgs) -> CmdResult {
-    let rows = screen::merge_tables(&a.inputs)
-        .map_err(|e| format!("cannot read the shard outputs: {e}"))?;
-    let text = screen::render_table(&rows, TableFormat::from_path(&a.out));
+    let format = TableFormat::of(&a.out).map_err(Failure::Usage)?;
+    let rows = screen::merge_tables(&a.inputs).map_err(Failure::Usage)?;
+    let text = screen::render_table(&rows, format);
     super::write_atomic(&a.out, text.as_bytes())
         .map_err(|e| format!("cannot write {}: {e}", a.out.display()))?;
     if !g.quiet {

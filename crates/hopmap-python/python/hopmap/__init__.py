@@ -24,7 +24,15 @@ from typing import Any, Callable, Dict, Iterable, List, Optional, Tuple, Union
 from . import _convert
 from ._hopmap import __version__, analyse_parts as _analyse_parts, analyse_path as _analyse_path
 from ._hopmap import analyse_text as _analyse_text
-from .errors import Cancelled, HopmapError, InputError, ModelError, OptionsError, StructureError
+from .errors import (
+    Cancelled,
+    HopmapError,
+    InputError,
+    ModelError,
+    OptionsError,
+    OverBudgetError,
+    StructureError,
+)
 
 __all__ = [
     "analyse",
@@ -35,6 +43,7 @@ __all__ = [
     "OptionsError",
     "ModelError",
     "StructureError",
+    "OverBudgetError",
     "Cancelled",
     "__version__",
 ]

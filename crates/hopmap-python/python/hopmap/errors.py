@@ -44,5 +44,10 @@ class StructureError(HopmapError):
     """The structure cannot host the analysis."""
 
 
+class OverBudgetError(HopmapError):
+    """The grid would exceed the memory or time budget; the message gives the estimate and a
+    spacing that would fit."""
+
+
 class Cancelled(HopmapError):
     """The progress callback asked the analysis to stop."""

@@ -142,12 +142,33 @@ pub fn structure_from_block(block: &Block, file: &str) -> Result<Structure, Inpu
         .at_line(block.line)
         .context(ctx));
     }
+    let sites_line = block
+        .line_of(tags::SITE_X[0])
+        .or(block.line_of(tags::SITE_X[1]))
+        .unwrap_or(block.line);
+    if rows.len() > crate::limits::MAX_ATOMS {
+        return Err(InputError::new(
+            file,
+            format!(
+                "the atom-site loop has {} rows; hopmap analyses at most {} atom positions",
+                rows.len(),
+                crate::limits::MAX_ATOMS
+            ),
+        )
+        .at_line(sites_line)
+        .context(ctx));
+    }
     let (asymmetric_sites, sites) = expand(&rows, &symmetry.ops, &lattice, &mut warnings);
+    crate::limits::check_atom_count(sites.len(), lattice.volume()).map_err(|m| {
+        InputError::new(file, m)
+            .at_line(sites_line)
+            .context(ctx.clone())
+    })?;
     check_occupancy(&asymmetric_sites, &mut warnings);
     check_contacts(&sites, &asymmetric_sites, &lattice, &mut warnings);
     check_charge(&sites, &mut warnings);
     Ok(Structure {
-        name: block.name.clone(),
+        name: crate::cif::error::printable(&block.name).into_owned(),
         lattice,
         symmetry,
         asymmetric_sites,
@@ -381,16 +402,19 @@ fn read_lattice(
         beta: get(tags::CELL_BETA, true)?,
         gamma: get(tags::CELL_GAMMA, true)?,
     };
-    Lattice::from_parameters(p).map_err(|e| {
-        InputError::new(file, e.to_string())
-            .at_line(
-                block
-                    .line_of(tags::CELL_A[0])
-                    .or(block.line_of(tags::CELL_A[1]))
-                    .unwrap_or(block.line),
-            )
-            .context(ctx.to_string())
-    })
+    Lattice::from_parameters(p)
+        .map_err(|e| e.to_string())
+        .and_then(|l| crate::limits::check_lattice(&l).map(|()| l))
+        .map_err(|e| {
+            InputError::new(file, e)
+                .at_line(
+                    block
+                        .line_of(tags::CELL_A[0])
+                        .or(block.line_of(tags::CELL_A[1]))
+                        .unwrap_or(block.line),
+                )
+                .context(ctx.to_string())
+        })
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -593,6 +617,18 @@ fn read_operator_list(
             ));
         } else {
             ops.push(op);
+            if ops.len() > crate::limits::MAX_SYMMETRY_OPERATIONS {
+                return Err(InputError::new(
+                    file,
+                    format!(
+                        "{tag} lists more than {} different operations, more than any space \
+                         group has",
+                        crate::limits::MAX_SYMMETRY_OPERATIONS
+                    ),
+                )
+                .at_line(v.line().unwrap_or(block.line))
+                .context(ctx.to_string()));
+            }
         }
     }
     let identity = SymOp::identity();
@@ -607,7 +643,31 @@ fn read_operator_list(
             ops.insert(0, identity);
         }
     }
+    if let Some((i, j)) = first_product_missing(&ops) {
+        warnings.push(format!(
+            "the operator list is not a group: the product of operations {} and {} is not in it \
+             (an operation is missing or mistyped); the atoms are placed with the operations as \
+             listed",
+            i + 1,
+            j + 1
+        ));
+    }
     Ok(Some(ops))
+}
+
+/// The first pair of operations (indices in the list) whose product is not in the list modulo
+/// lattice translations, or None for a closed list (a group). At most 192^3 comparisons, as the
+/// list is bounded by [`crate::limits::MAX_SYMMETRY_OPERATIONS`].
+fn first_product_missing(ops: &[SymOp]) -> Option<(usize, usize)> {
+    for (i, a) in ops.iter().enumerate() {
+        for (j, b) in ops.iter().enumerate() {
+            let p = a.compose(b);
+            if !ops.iter().any(|o| o.same_modulo_lattice(&p)) {
+                return Some((i, j));
+            }
+        }
+    }
+    None
 }
 
 /// A crystallographic rotation has order 1, 2, 3, 4 or 6 (R^n = identity), and in any
@@ -655,7 +715,8 @@ pub enum SymbolReading {
 /// (a label: no charge), `D` (deuterium, read as H). `Q`, `Du`, `Dum`, `X` (any case, with or
 /// without digits) are dummy atoms. `None` when no element can be read.
 pub fn read_symbol(s: &str) -> Option<SymbolReading> {
-    let s = s.trim();
+    let s = crate::text::ascii_minus(s.trim());
+    let s = s.as_ref();
     let letters: String = s.chars().take_while(|c| c.is_ascii_alphabetic()).collect();
     let lower = letters.to_ascii_lowercase();
     if matches!(lower.as_str(), "q" | "du" | "dum" | "dummy" | "x" | "xx") {

@@ -33,8 +33,7 @@ use std::path::Path;
 pub fn read_poscar(path: impl AsRef<Path>) -> Result<Structure, InputError> {
     let path = path.as_ref();
     let file = path.display().to_string();
-    let text = std::fs::read_to_string(path)
-        .map_err(|e| InputError::new(&file, format!("cannot read the file: {e}")))?;
+    let text = crate::cif::read_input_text(path)?;
     let name = path
         .file_stem()
         .map(|s| s.to_string_lossy().into_owned())
@@ -154,6 +153,7 @@ pub fn parse_poscar(text: &str, file: &str, name: &str) -> Result<Structure, Inp
     let scaled = vecs.map(|v| v.map(|x| x * factor));
     let lattice = Lattice::from_vectors(scaled[0], scaled[1], scaled[2])
         .map_err(|e| err(3, format!("lattice vectors: {e}")))?;
+    crate::limits::check_lattice(&lattice).map_err(|e| err(3, format!("lattice vectors: {e}")))?;
 
     // species and counts
     let l6 = get(5, "species or atom counts")?;
@@ -178,10 +178,24 @@ pub fn parse_poscar(text: &str, file: &str, name: &str) -> Result<Structure, Inp
     if counts.is_empty() {
         return Err(err(counts_line.number, "no atom counts".into()));
     }
-    let total: usize = counts.iter().sum();
+    let total = counts
+        .iter()
+        .try_fold(0usize, |t, &n| t.checked_add(n))
+        .filter(|&t| t <= crate::limits::MAX_ATOMS)
+        .ok_or_else(|| {
+            err(
+                counts_line.number,
+                format!(
+                    "the atom counts add up to more than the {} atoms hopmap analyses",
+                    crate::limits::MAX_ATOMS
+                ),
+            )
+        })?;
     if total == 0 {
         return Err(err(counts_line.number, "the cell holds no atoms".into()));
     }
+    crate::limits::check_atom_count(total, lattice.volume())
+        .map_err(|e| err(counts_line.number, e))?;
 
     let mut species: Option<Vec<Element>> = match species_line {
         Some(l) => {
@@ -242,8 +256,9 @@ pub fn parse_poscar(text: &str, file: &str, name: &str) -> Result<Structure, Inp
     };
     i += 1;
 
-    // positions
-    let mut positions: Vec<(Frac, Option<Element>)> = Vec::with_capacity(total);
+    // positions (the capacity bounded by the lines the file has, whatever the counts say)
+    let mut positions: Vec<(Frac, Option<Element>)> =
+        Vec::with_capacity(total.min(lines.len().saturating_sub(i)));
     for k in 0..total {
         let l = lines.get(i + k).filter(|l| !l.text.trim().is_empty());
         let Some(l) = l else {
@@ -348,6 +363,7 @@ fn looks_numeric(s: &str) -> bool {
 
 /// A number as written in VASP and XYZ files, Fortran `D` exponents included (`1.0D-3`).
 pub(crate) fn parse_f64(s: &str) -> Option<f64> {
+    let s = crate::text::ascii_minus(s);
     let v: f64 = s
         .parse()
         .ok()

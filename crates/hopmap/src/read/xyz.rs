@@ -24,8 +24,7 @@ use std::path::Path;
 pub fn read_extxyz(path: impl AsRef<Path>) -> Result<crate::structure::Structure, InputError> {
     let path = path.as_ref();
     let file = path.display().to_string();
-    let text = std::fs::read_to_string(path)
-        .map_err(|e| InputError::new(&file, format!("cannot read the file: {e}")))?;
+    let text = crate::cif::read_input_text(path)?;
     let name = path
         .file_stem()
         .map(|s| s.to_string_lossy().into_owned())
@@ -35,7 +34,10 @@ pub fn read_extxyz(path: impl AsRef<Path>) -> Result<crate::structure::Structure
 
 /// Splits the comment line into (key, value) pairs; values in double quotes may hold spaces.
 /// Errors carry the 1-based column of the problem.
-fn key_values(line: &str) -> Result<Vec<(String, String, usize)>, (usize, String)> {
+/// Key, value and 1-based column of each `key=value` pair of a comment line.
+type KeyValues = Vec<(String, String, usize)>;
+
+fn key_values(line: &str) -> Result<KeyValues, (usize, String)> {
     let chars: Vec<char> = line.chars().collect();
     let mut out = Vec::new();
     let mut i = 0;
@@ -144,6 +146,15 @@ pub fn parse_extxyz(
     if n == 0 {
         return Err(err(1, "the file holds no atoms".into()));
     }
+    if n > crate::limits::MAX_ATOMS {
+        return Err(err(
+            1,
+            format!(
+                "the first line promises {n} atoms; hopmap analyses at most {}",
+                crate::limits::MAX_ATOMS
+            ),
+        ));
+    }
     let comment = lines
         .get(1)
         .ok_or_else(|| err(1, "the file ends before the comment line".into()))?;
@@ -178,6 +189,9 @@ pub fn parse_extxyz(
     }
     let lattice = Lattice::from_vectors([v[0], v[1], v[2]], [v[3], v[4], v[5]], [v[6], v[7], v[8]])
         .map_err(|e| InputError::new(file, format!("Lattice: {e}")).at(2, *lat_col))?;
+    crate::limits::check_lattice(&lattice)
+        .and_then(|()| crate::limits::check_atom_count(n, lattice.volume()))
+        .map_err(|e| InputError::new(file, format!("Lattice: {e}")).at(2, *lat_col))?;
     if let Some((_, pbc, c)) = find("pbc") {
         let flags: Vec<&str> = pbc.split_whitespace().collect();
         let periodic = |s: &str| matches!(s, "T" | "t" | "True" | "true" | "1");
@@ -196,7 +210,7 @@ pub fn parse_extxyz(
         None => (0, false, 1, 4),
     };
 
-    let mut atoms = Vec::with_capacity(n);
+    let mut atoms = Vec::with_capacity(n.min(lines.len()));
     for k in 0..n {
         let line_no = 3 + k;
         let Some(l) = lines.get(2 + k).filter(|l| !l.trim().is_empty()) else {

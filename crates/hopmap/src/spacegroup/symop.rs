@@ -68,7 +68,10 @@ impl SymOp {
         let mut rot = Matrix3::<i32>::zeros();
         let mut trans = Vector3::<f64>::zeros();
         for (row, part) in parts.iter().enumerate() {
-            let chars: Vec<char> = part.chars().filter(|c| !c.is_whitespace()).collect();
+            let chars: Vec<char> = crate::text::ascii_minus(part)
+                .chars()
+                .filter(|c| !c.is_whitespace())
+                .collect();
             if chars.is_empty() {
                 return Err(err(format!("component {} is empty", row + 1)));
             }
