@@ -4,6 +4,7 @@
 
 pub mod figures;
 pub mod fill;
+pub mod handoff;
 pub mod html;
 pub mod json;
 pub mod output;

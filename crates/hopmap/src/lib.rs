@@ -21,6 +21,7 @@ pub mod element;
 mod element_table;
 pub mod filling;
 pub mod grid;
+pub mod handoff;
 pub mod kmc;
 pub mod landscape;
 pub mod lattice;

@@ -13,6 +13,7 @@ mod calibrate;
 mod demo;
 mod fill;
 mod grid;
+mod handoff;
 mod inspect;
 mod progress;
 mod screen;
@@ -72,6 +73,11 @@ pub enum Command {
     Merge(screen::MergeArgs),
     /// Run the bundled demo study and write its report
     Demo(demo::DemoArgs),
+    /// Images of one hop for a NEB calculation: supercell, end points on sites of the ion,
+    /// images along the lowest-energy path (POSCAR folders, extended XYZ, JSON)
+    Neb(handoff::NebArgs),
+    /// The host with the ion on its lowest-energy sites, kept apart, at a filling (CIF, POSCAR)
+    Populate(handoff::PopulateArgs),
 }
 
 /// Where a command's failure comes from: bad input or failed analysis (exit 1), or bad usage (2).
@@ -123,6 +129,8 @@ pub fn run() -> ExitCode {
         Command::Screen(a) => screen::run(&g, a),
         Command::Merge(a) => screen::run_merge(&g, a),
         Command::Demo(a) => demo::run(&g, a),
+        Command::Neb(a) => handoff::run_neb(&g, a),
+        Command::Populate(a) => handoff::run_populate(&g, a),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -497,3 +497,44 @@ fn mark(points: &mut [ProfilePoint], min_prominence: f32) {
         }
     }
 }
+
+/// The least-cost voxel path (see the module notes) from voxel `from` to voxel `to` in the
+/// image translated by `image`, through voxels no higher than the value of voxel `level_voxel`
+/// (a hop's saddle). Returns each voxel with the lattice cell it is unwrapped into (`from` in
+/// cell 0, `to` in `image`); None when the two are not connected at that level.
+pub fn path_between(
+    grid: &Grid,
+    from: usize,
+    to: usize,
+    image: [i32; 3],
+    level_voxel: usize,
+    energy_weight: f64,
+) -> Option<Vec<(usize, [i32; 3])>> {
+    if from >= grid.len() || to >= grid.len() || level_voxel >= grid.len() {
+        return None;
+    }
+    let dims = grid.dims.map(|d| d as i64);
+    let a = grid.ijk(from).map(|x| x as i64);
+    let b = grid.ijk(to);
+    let b = [0, 1, 2].map(|k| b[k] as i64 + image[k] as i64 * dims[k]);
+    let bkey = total_key(grid.values[level_voxel], level_voxel);
+    let window = |margin: i64| {
+        Some([0, 1, 2].map(|k| {
+            let t = image[k] as i64;
+            [t.min(0) - margin, t.max(0) + margin]
+        }))
+    };
+    let w = energy_weight.max(0.0);
+    let path = least_cost_path(grid, a, b, bkey, w, window(0))
+        .or_else(|| least_cost_path(grid, a, b, bkey, w, window(1)))
+        .or_else(|| least_cost_path(grid, a, b, bkey, w, None))?;
+    Some(
+        path.iter()
+            .map(|p| {
+                let c = [0, 1, 2].map(|k| p[k].div_euclid(dims[k]) as i32);
+                let v = [0, 1, 2].map(|k| p[k].rem_euclid(dims[k]) as usize);
+                (grid.index(v[0], v[1], v[2]), c)
+            })
+            .collect(),
+    )
+}
