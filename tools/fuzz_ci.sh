@@ -7,6 +7,13 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 secs=${1:-120}
+# cargo-fuzz is installed into target/ci-tools when the nightly toolchain is there but the tool
+# is not (a fresh machine): about 2 minutes from crates.io.
+if ! cargo +nightly fuzz --version >/dev/null 2>&1 && cargo +nightly --version >/dev/null 2>&1; then
+  echo "fuzz: installing cargo-fuzz into target/ci-tools"
+  cargo install --quiet --locked --root target/ci-tools cargo-fuzz
+  export PATH="$PWD/target/ci-tools/bin:$PATH"
+fi
 if ! cargo +nightly fuzz --version >/dev/null 2>&1; then
   echo "fuzz: cargo-fuzz or the nightly toolchain is not installed; skipped (the stable mutation test still ran)"
   exit 0
