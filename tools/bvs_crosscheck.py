@@ -190,7 +190,8 @@ def check_file(binary, path, tmpdir):
     table_pairs, est_pairs = pair_table(table), pair_table(est)
     for (cat, an), (r0, b, _) in est_pairs.items():
         want = r0s.get((cat[0], an[0]))
-        if want is None or abs(r0 - want) > 1e-6 or abs(b - PYMATGEN_B) > 1e-9:
+        # hopmap's JSON gives numbers to 6 significant digits: R0 agrees to 1e-5 A
+        if want is None or abs(r0 - want) > 1e-5 or abs(b - PYMATGEN_B) > 1e-9:
             fails.append(f"{path.name}: with --params, hopmap uses R0 {r0} A, b {b} A for "
                          f"{cat}-{an}; the file gives {want} and {PYMATGEN_B}")
     est_ions = {i["label"]: i for i in est["ions"]}
