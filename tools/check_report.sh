@@ -149,6 +149,32 @@ nsvg = dom.count("<svg")
 if page != "report.html" and nsvg < 3:
     sys.exit(f"{page}: only {nsvg} inline svg elements in the DOM")
 print(f"  {page}: DOM has the sections and {nsvg} inline svg elements", file=sys.stderr)
+
+if page != "report.html":
+    # Figures as the browser holds them: no text under 11 px; one colour per element across
+    # every figure of the page (legend swatch, then the element's name); slices labelled in
+    # fractional coordinates.
+    import re
+    svgs = re.findall(r"<svg.*?</svg>", dom, re.S)
+    sizes = [float(x) for x in re.findall(r'font-size="([0-9.]+)"', "".join(svgs))]
+    if sizes and min(sizes) < 11:
+        sys.exit(f"{page}: figure text at {min(sizes)} px (at least 11 px expected)")
+    colour_of = {}
+    for svg in svgs:
+        for fill, name in re.findall(
+                r'<circle[^>]*fill="(#[0-9a-fA-F]{6})"[^>]*>(?:</circle>)?\s*<text[^>]*>([A-Z][a-z]?)</text>', svg):
+            if colour_of.setdefault(name, fill.lower()) != fill.lower():
+                sys.exit(f"{page}: {name} is drawn in {colour_of[name]} and in {fill} in another figure")
+    clash = {c for c in colour_of.values() if list(colour_of.values()).count(c) > 1}
+    if clash:
+        sys.exit(f"{page}: elements share a colour: {colour_of}")
+    slices = [svg for svg in svgs if "clamped" in svg or "slice" in svg.lower()]
+    for svg in slices:
+        ticks = set(re.findall(r">(0\.25|0\.5|0\.75)<", svg))
+        if not ticks:
+            sys.exit(f"{page}: a slice without fractional-coordinate ticks")
+    print(f"  {page}: figure text >= 11 px; element colours {colour_of}; "
+          f"{len(slices)} slices with fractional ticks", file=sys.stderr)
 EOF
 done
 
