@@ -956,8 +956,13 @@ fn assert_profile_is_a_closed_repeat(g: &Grid, pr: &network::Profile) {
         let d = w[1].frac.0 - w[0].frac.0;
         let steps: f64 = (0..3).map(|a| (d[a] * n[a]).abs()).sum();
         assert!((steps - 1.0).abs() < 1e-6, "not a face step: {d:?}");
-        let expected = g.lattice.frac_delta_length(d);
-        assert!((w[1].distance - w[0].distance - expected).abs() < 1e-9);
+        // distances are measured along the smoothed path: each step is at most the longest
+        // voxel step (a convex combination of face steps) and never negative
+        let longest = (0..3)
+            .map(|a| g.lattice.vector(a).norm() / n[a])
+            .fold(0.0, f64::max);
+        let step = w[1].distance - w[0].distance;
+        assert!(step >= 0.0 && step <= longest + 1e-9, "{step} A");
         assert_eq!(w[1].energy, g.values[w[1].voxel]);
     }
     // no path between the two images is shorter than the straight line
@@ -1026,7 +1031,21 @@ fn a_channel_that_bends_across_a_cell_face_is_followed_to_its_saddle() {
     let pr = profiles.iter().find(|q| q.dimension == 1).unwrap();
     assert_eq!(pr.translation, [0, 0, 1]);
     assert_profile_is_a_closed_repeat(&g, pr);
-    assert!(pr.length > 12.8 - 1e-9 && pr.length < 14.0, "{}", pr.length);
+    // the voxel staircase takes at least 12.8 A; the floor of the valley, the curve
+    // x = -2.4 sin^2(pi z/8) A along z over 8 A, is 9.5 A long (integrated here): the profile
+    // measures the smoothed path, within 5 % of the curve
+    let curve: f64 = (0..10000)
+        .map(|i| {
+            let z = (i as f64 + 0.5) / 10000.0;
+            let slope = -2.4 * std::f64::consts::PI * (tau * z).sin() / 8.0;
+            8.0 * (1.0 + slope * slope).sqrt() / 10000.0
+        })
+        .sum();
+    assert!(
+        (pr.length - curve).abs() < 0.05 * curve,
+        "{} A against the curve's {curve} A",
+        pr.length
+    );
     let top = pr
         .points
         .iter()
@@ -1121,7 +1140,9 @@ fn the_cubic_spinel_has_equivalent_profiles_along_a_b_and_c() {
     assert_eq!(axes.len(), 3, "{axes:?}");
     for (t, len, top) in &axes {
         assert!(
-            (len - axes[0].1).abs() < 1e-6 && (top - axes[0].2).abs() < 1e-6,
+            // lengths along the smoothed path depend on the order of the voxel steps (0.1 %
+            // here); the bottleneck is exact
+            (len - axes[0].1).abs() < 0.01 * axes[0].1 && (top - axes[0].2).abs() < 1e-6,
             "{t:?}: {len:.3} A up to {top:.4} eV, against {:?}: {:.3} A up to {:.4} eV",
             axes[0].0,
             axes[0].1,
