@@ -3,34 +3,12 @@
 //! crystallography, source in each file).
 
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
 
-fn hopmap(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_hopmap"))
-        .args(args)
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("run hopmap")
-}
-
-fn root(p: &str) -> String {
-    format!("{}/{p}", concat!(env!("CARGO_MANIFEST_DIR"), "/../.."))
-}
+mod common;
+use common::{hopmap, ok, root};
 
 fn tmp(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("hopmap-handoff-{}-{name}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
-fn ok(o: &Output) -> String {
-    assert!(
-        o.status.success(),
-        "hopmap failed: {}",
-        String::from_utf8_lossy(&o.stderr)
-    );
-    String::from_utf8_lossy(&o.stdout).into_owned()
+    common::tmp("handoff", name)
 }
 
 const LFP: &str = "structures/reference/LiFePO4_olivine.cif";
