@@ -125,6 +125,9 @@ pub struct Axis {
     pub unit: String,
     pub scale: Scale,
     pub range: Option<(f64, f64)>,
+    /// Labelled positions that replace the computed ticks (a linear axis of categories, e.g.
+    /// block sizes "3x3", "3x4" at 9 and 12 octahedra, or member names at 1, 2, 3).
+    pub categories: Option<Vec<(f64, String)>>,
 }
 
 impl Axis {
@@ -134,6 +137,7 @@ impl Axis {
             unit: unit.into(),
             scale: Scale::Linear,
             range: None,
+            categories: None,
         }
     }
     pub fn log(quantity: impl Into<String>, unit: impl Into<String>) -> Self {
@@ -142,12 +146,25 @@ impl Axis {
             unit: unit.into(),
             scale: Scale::Log10,
             range: None,
+            categories: None,
         }
     }
     pub fn with_range(mut self, lo: f64, hi: f64) -> Self {
         self.range = Some((lo, hi));
         self
     }
+    /// A linear axis whose ticks are the given labelled positions; the range covers them with
+    /// half a step (at least 0.5) to spare on each side.
+    pub fn categories(
+        quantity: impl Into<String>,
+        unit: impl Into<String>,
+        positions: Vec<(f64, String)>,
+    ) -> Self {
+        let mut a = Axis::linear(quantity, unit);
+        a.categories = Some(positions);
+        a
+    }
+
     /// "quantity (unit)", or the quantity alone when the unit is empty.
     pub fn label(&self) -> String {
         if self.unit.is_empty() {
@@ -159,6 +176,26 @@ impl Axis {
 
     /// The range shown for data spanning `data` (min, max), and the ticks on it.
     pub fn layout(&self, data: Option<(f64, f64)>) -> (f64, f64, Vec<Tick>) {
+        if let (Scale::Linear, Some(cats)) = (self.scale, &self.categories) {
+            let xs: Vec<f64> = cats.iter().map(|c| c.0).filter(|x| x.is_finite()).collect();
+            if !xs.is_empty() {
+                let lo = xs.iter().copied().fold(f64::INFINITY, f64::min);
+                let hi = xs.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+                let pad = ((hi - lo) * 0.08).max(0.5);
+                let (lo, hi) = self.range.unwrap_or((lo - pad, hi + pad));
+                let ticks = cats
+                    .iter()
+                    .filter(|c| c.0.is_finite())
+                    .map(|(v, l)| Tick {
+                        value: *v,
+                        label: l.clone(),
+                        superscript: None,
+                        major: true,
+                    })
+                    .collect();
+                return (lo, hi, ticks);
+            }
+        }
         match self.scale {
             Scale::Linear => {
                 let (lo, hi) = match (self.range, data) {

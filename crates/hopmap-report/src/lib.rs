@@ -2,6 +2,7 @@
 //! person (terminal), for a program (JSON), or for a report (HTML with inline SVG figures).
 //! Nothing upstream knows these formats exist.
 
+pub mod family;
 pub mod figures;
 pub mod fill;
 pub mod handoff;

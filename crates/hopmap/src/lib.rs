@@ -19,6 +19,7 @@ pub mod capacity;
 pub mod csv_record;
 pub mod element;
 mod element_table;
+pub mod family;
 pub mod filling;
 pub mod grid;
 pub mod handoff;

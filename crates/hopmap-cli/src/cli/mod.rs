@@ -11,6 +11,7 @@ macro_rules! outln {
 mod analyse;
 mod calibrate;
 mod demo;
+mod family;
 mod fill;
 mod grid;
 mod handoff;
@@ -65,6 +66,10 @@ pub enum Command {
     Rate(analyse::RateArgs),
     /// Transport as the host fills (kinetic Monte Carlo) and what blocked channels cost
     Fill(fill::FillArgs),
+    /// Compare a family of frameworks (block phases, bronzes, any structure files): tunnel
+    /// barrier, crossing cost, capacity bounds and the largest particle at 10C and 60C, ranked,
+    /// in one report
+    Family(family::FamilyArgs),
     /// Fit the energy-scale parameters of the model to a list of reference barriers
     Calibrate(calibrate::CalibrateArgs),
     /// Screen many structures in parallel into a CSV or JSON-lines table (resumable, shardable)
@@ -125,6 +130,7 @@ pub fn run() -> ExitCode {
         Command::Paths(a) => analyse::run_paths(&g, a),
         Command::Rate(a) => analyse::run_rate(&g, a),
         Command::Fill(a) => fill::run(&g, a),
+        Command::Family(a) => family::run(&g, a),
         Command::Calibrate(a) => calibrate::run(&g, a),
         Command::Screen(a) => screen::run(&g, a),
         Command::Merge(a) => screen::run_merge(&g, a),
