@@ -503,9 +503,16 @@ fn barrier_plot(x_axis: Axis, points: &[(f64, &MemberResult)], join: bool) -> Li
             _ => None,
         })
         .collect();
+    // from zero (no barrier is negative) to the highest bar with room above it for the legend
+    let top = tunnel
+        .iter()
+        .chain(&cross)
+        .map(|p| p.1 + p.2)
+        .fold(0.1f64, f64::max);
+    plot.y = plot.y.clone().with_range(0.0, top * 1.3);
     let (c0, c1) = (categorical(0), categorical(1));
     let mut t = Series::line(
-        "tunnel barrier ± model uncertainty",
+        "tunnel barrier (± model uncertainty)",
         tunnel.iter().map(|p| (p.0, p.1)).collect(),
     )
     .with_colour(c0)
@@ -513,7 +520,7 @@ fn barrier_plot(x_axis: Axis, points: &[(f64, &MemberResult)], join: bool) -> Li
     t.line = join;
     plot.series.push(t);
     let mut c = Series::line(
-        "crossing cost (next network above the tunnel's threshold)",
+        "crossing cost (threshold above the tunnel's)",
         cross.iter().map(|p| (p.0, p.1)).collect(),
     )
     .with_colour(c1)
@@ -524,7 +531,9 @@ fn barrier_plot(x_axis: Axis, points: &[(f64, &MemberResult)], join: bool) -> Li
         plot.series.push(c);
     }
     let bars = |v: &[(f64, f64, f64)], dx: f64| -> Vec<(f64, f64, f64)> {
-        v.iter().map(|p| (p.0 + dx, p.1 - p.2, p.1 + p.2)).collect()
+        v.iter()
+            .map(|p| (p.0 + dx, (p.1 - p.2).max(0.0), p.1 + p.2))
+            .collect()
     };
     error_bars(&mut plot, &bars(&tunnel, 0.0), c0);
     error_bars(&mut plot, &bars(&cross, 0.0), c1);
@@ -674,7 +683,8 @@ pub fn figures(s: &FamilyStudy) -> Vec<(String, String, String)> {
         member_axis(s),
         Axis::log("Largest particle diameter", "um"),
     );
-    plot.legend = LegendPosition::TopRight;
+    // ranked by barrier, the first members have the largest particles: the lower left is free
+    plot.legend = LegendPosition::BottomLeft;
     let mut any = false;
     for (k, (rate, shape)) in FAMILY_C_RATES
         .iter()
@@ -711,7 +721,7 @@ pub fn figures(s: &FamilyStudy) -> Vec<(String, String, String)> {
     if any {
         plot.series.push(
             Series::line(
-                "100 um: larger is not limited by bulk diffusion",
+                "100 um: above it bulk diffusion does not limit",
                 vec![(0.5, 100.0), (ranked.len() as f64 + 0.5, 100.0)],
             )
             .with_colour(hopmap_plot::Rgb::new(0x88, 0x88, 0x88))
