@@ -13,6 +13,7 @@ pub use hopmap_cif::error;
 pub mod analysis;
 pub mod api;
 pub mod blocking;
+pub mod build;
 pub mod bv;
 pub mod calibrate;
 pub mod capacity;
