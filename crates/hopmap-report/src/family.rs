@@ -39,6 +39,11 @@ pub fn member_report_name(m: &FamilyMember) -> String {
     format!("member-{slug}.html")
 }
 
+/// File name of a built member's structure (P 1 CIF) inside the family folder.
+pub fn member_cif_name(m: &FamilyMember) -> String {
+    member_report_name(m).replace(".html", ".cif")
+}
+
 fn directions(o: &[Orientation]) -> String {
     let v: Vec<String> = o
         .iter()
@@ -171,6 +176,22 @@ pub fn terminal(s: &FamilyStudy) -> String {
             .map(|(c, w)| format!("{c:<w$}"))
             .collect();
         let _ = writeln!(o, "  {}", line.join("  ").trim_end());
+    }
+    for m in &s.members {
+        if let (Some(bn), Ok(_)) = (&m.built, &m.result) {
+            let _ = writeln!(
+                o,
+                "  built   {}: {}, refined to GII {:.3} v.u.{}",
+                m.label,
+                bn.spec,
+                bn.refinement.gii_vu,
+                if bn.refinement.converged {
+                    ""
+                } else {
+                    " (not converged)"
+                }
+            );
+        }
     }
     for m in &s.members {
         if let Err(e) = &m.result {
@@ -314,6 +335,19 @@ pub fn json(s: &FamilyStudy, reports: bool) -> Value {
                 "seconds": round(m.seconds, 3),
             });
             let obj = v.as_object_mut().expect("an object");
+            obj.insert(
+                "built".into(),
+                m.built.as_ref().map_or(Value::Null, |b| {
+                    json!({
+                        "spec": b.spec,
+                        "gii_vu": round(b.refinement.gii_vu, 4),
+                        "initial_gii_vu": round(b.refinement.initial_gii_vu, 4),
+                        "refinement_converged": b.refinement.converged,
+                        "construction": b.construction,
+                        "cif": if reports && m.result.is_ok() { json!(member_cif_name(m)) } else { Value::Null },
+                    })
+                }),
+            );
             if let Value::Object(k) = kind_json(&m.kind) {
                 obj.extend(k);
             }
@@ -853,6 +887,37 @@ pub fn html(s: &FamilyStudy, reports: bool) -> String {
             esc(caption)
         );
     }
+    let _ = writeln!(
+        b,
+        "<h2 id=\"members\">Where each member comes from</h2>\n<table>\n<tr><th>member</th>\
+         <th>from</th><th>structure</th><th>time (s)</th></tr>"
+    );
+    for m in &s.members {
+        let how = match &m.built {
+            Some(bn) => format!(
+                "built by hopmap ({}), bond-valence refinement to GII {:.3} v.u. (ideal framework {:.3} v.u.{})",
+                bn.spec,
+                bn.refinement.gii_vu,
+                bn.refinement.initial_gii_vu,
+                if bn.refinement.converged {
+                    ""
+                } else {
+                    "; refinement not converged"
+                }
+            ),
+            None if m.result.is_ok() => "file".to_string(),
+            None => "not analysed".to_string(),
+        };
+        let _ = writeln!(
+            b,
+            "<tr><td>{}</td><td><code>{}</code></td><td>{}</td><td class=\"num\">{:.1}</td></tr>",
+            esc(&m.label),
+            esc(&m.origin),
+            esc(&how),
+            m.seconds
+        );
+    }
+    let _ = writeln!(b, "</table>");
     let _ = writeln!(b, "<h2 id=\"definitions\">What the columns mean</h2>\n<ul>");
     for d in [
         "Tunnel: the network the ion percolates through first (lowest threshold), its dimension and direction [uvw] (plane normal (hkl) for layers) in the analysed cell; barrier from the ion's starting level, ± the model's uncertainty (its leave-one-family-out error on the reference set).",

@@ -21,12 +21,14 @@
 //!   down the tunnel network charges in time at 10C and 60C, with the band of the barrier's
 //!   uncertainty ([`crate::transport::rate_table`]).
 //!
-//! Members are analysed in parallel (rayon; each analysis is parallel inside too). A member that
+//! Members are files or framework specifications built first ([`crate::build`]); they are
+//! built and analysed in parallel (rayon; each analysis is parallel inside too). A member that
 //! cannot be read, built or analysed becomes a row with its error: one bad member never stops
 //! the family. Ranking rule: [`RANKING_RULE`].
 
 use crate::analysis::{Analysis, AnalysisOptions};
-use crate::api::Error;
+use crate::api::{Error, ErrorKind};
+use crate::build::{self, BuildError, BuildOptions, FrameworkSpec, Refinement};
 use crate::capacity::{self, CapacityLimit};
 use crate::element::Element;
 use crate::structure::Structure;
@@ -84,8 +86,10 @@ impl MemberKind {
 pub enum MemberSource {
     /// A structure file (CIF, POSCAR, extended XYZ), read with its symmetry completed.
     File(PathBuf),
-    /// A structure already in memory (e.g. built from a specification).
+    /// A structure already in memory.
     Structure(Box<Structure>),
+    /// A framework to build first ([`crate::build`]), with the builder's default options.
+    Spec(Box<FrameworkSpec>),
     /// A member that could not be made (a specification that does not parse or build).
     Failed(Error),
 }
@@ -98,6 +102,62 @@ pub struct MemberInput {
     pub kind: MemberKind,
     pub origin: String,
     pub source: MemberSource,
+}
+
+impl MemberInput {
+    /// A member built from a framework specification ([`FrameworkSpec::parse`], e.g.
+    /// `block:3x4:tet:Nb:W`): its kind and default label come from the spec. A spec that does not
+    /// parse becomes a member that failed, with the builder's message.
+    pub fn from_spec(text: &str, label: Option<&str>) -> MemberInput {
+        match FrameworkSpec::parse(text) {
+            Ok(spec) => MemberInput {
+                label: label.map(str::to_string).unwrap_or_else(|| spec.label()),
+                kind: kind_of(&spec),
+                origin: text.to_string(),
+                source: MemberSource::Spec(Box::new(spec)),
+            },
+            Err(e) => MemberInput {
+                label: label.unwrap_or(text).to_string(),
+                kind: MemberKind::Other,
+                origin: text.to_string(),
+                source: MemberSource::Failed(build_error(&e)),
+            },
+        }
+    }
+}
+
+/// The figure kind of a spec: block size, or the bronze's tunnel kind.
+pub fn kind_of(spec: &FrameworkSpec) -> MemberKind {
+    match spec {
+        FrameworkSpec::Block { n, m, .. } => MemberKind::Block { n: *n, m: *m },
+        FrameworkSpec::Bronze { kind, .. } => {
+            MemberKind::Tunnel(format!("{} bronze", kind.word()))
+        }
+    }
+}
+
+/// A builder error as a library error: a spec that does not parse or balance is bad input; a
+/// framework that could not be built is a structure problem.
+fn build_error(e: &BuildError) -> Error {
+    let kind = match e {
+        BuildError::Spec { .. } | BuildError::Charge { .. } => ErrorKind::Input,
+        BuildError::Build { .. } => ErrorKind::Structure,
+    };
+    Error {
+        kind,
+        file: None,
+        place: None,
+        message: e.to_string(),
+    }
+}
+
+/// How a built member was made.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BuiltNote {
+    /// The spec in its compact text form.
+    pub spec: String,
+    pub construction: Vec<String>,
+    pub refinement: Refinement,
 }
 
 /// The tunnel network of a member (the lowest network the answer reports).
@@ -219,7 +279,9 @@ pub struct FamilyMember {
     pub result: Result<MemberResult, Error>,
     /// Place in the ranking (1 = best); None for a failed member.
     pub rank: Option<usize>,
-    /// Seconds the member took (reading or building excluded for files built elsewhere).
+    /// How the framework was built, for a member given as a spec that built.
+    pub built: Option<BuiltNote>,
+    /// Seconds the member took: reading or building, and the analysis.
     pub seconds: f64,
 }
 
@@ -364,11 +426,24 @@ fn particles_at(a: &Analysis, dimension: u8) -> Vec<ParticleAtRate> {
 /// Analyses one member.
 fn run_member(input: MemberInput, opts: &AnalysisOptions) -> FamilyMember {
     let start = std::time::Instant::now();
+    let mut built = None;
     let result = match input.source {
         MemberSource::File(p) => crate::api::analyse_file(&p, opts),
         MemberSource::Structure(s) => {
             crate::api::analyse_structure(&s, opts).map_err(|e| e.in_file(&input.origin))
         }
+        MemberSource::Spec(spec) => match build::build(&spec, &BuildOptions::default()) {
+            Ok(b) => {
+                built = Some(BuiltNote {
+                    spec: spec.to_text(),
+                    construction: b.construction.clone(),
+                    refinement: b.refinement.clone(),
+                });
+                crate::api::analyse_structure(&b.structure, opts)
+                    .map_err(|e| e.in_file(&input.origin))
+            }
+            Err(e) => Err(build_error(&e)),
+        },
         MemberSource::Failed(e) => Err(e),
     }
     .map(member_result);
@@ -378,6 +453,7 @@ fn run_member(input: MemberInput, opts: &AnalysisOptions) -> FamilyMember {
         origin: input.origin,
         result,
         rank: None,
+        built,
         seconds: start.elapsed().as_secs_f64(),
     }
 }

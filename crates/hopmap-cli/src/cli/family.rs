@@ -8,9 +8,10 @@ use std::path::{Path, PathBuf};
 
 #[derive(Args, Debug)]
 pub struct FamilyArgs {
-    /// Members: structure files (CIF, POSCAR, extended XYZ), each optionally named as
-    /// LABEL=FILE; a label written NxM (e.g. 3x4=TiNb2O7.cif) marks a block phase of n x m
-    /// octahedra for the block-size figure
+    /// Members: structure files (CIF, POSCAR, extended XYZ) or frameworks to build, written as
+    /// for `hopmap build` (block:3x4:tet:Nb:W, bronze:hexagonal:W); each optionally named
+    /// LABEL=MEMBER. A label written NxM (e.g. 3x3=TiNb2O7.cif) marks a file as a block phase of
+    /// n x m octahedra for the block-size figure
     #[arg(required = true, value_name = "MEMBER")]
     pub members: Vec<String>,
     #[command(flatten)]
@@ -21,7 +22,7 @@ pub struct FamilyArgs {
     /// Print the JSON document (schema hopmap.family/1) on stdout instead of the table
     #[arg(long)]
     pub json: bool,
-    /// Write only the family's own files, not a report per member
+    /// Write only the family's own files, not a report per member (and a CIF per built member)
     #[arg(long)]
     pub no_member_reports: bool,
 }
@@ -60,6 +61,13 @@ fn split_label(text: &str) -> (Option<&str>, &str) {
 /// One member from its command-line text.
 fn member(text: &str) -> MemberInput {
     let (label, what) = split_label(text);
+    if !looks_like_file(what) {
+        let mut m = MemberInput::from_spec(what, label);
+        if let Some(k) = label.and_then(MemberKind::parse_block) {
+            m.kind = k;
+        }
+        return m;
+    }
     let kind = label
         .and_then(MemberKind::parse_block)
         .unwrap_or(MemberKind::Other);
@@ -68,21 +76,11 @@ fn member(text: &str) -> MemberInput {
         .and_then(|s| s.to_str())
         .unwrap_or(what)
         .to_string();
-    let source = if looks_like_file(what) {
-        MemberSource::File(PathBuf::from(what))
-    } else {
-        MemberSource::Failed(hopmap::Error {
-            kind: hopmap::ErrorKind::Input,
-            file: Some(what.to_string()),
-            place: None,
-            message: "no such file".into(),
-        })
-    };
     MemberInput {
         label: label.map(str::to_string).unwrap_or(stem),
         kind,
         origin: what.to_string(),
-        source,
+        source: MemberSource::File(PathBuf::from(what)),
     }
 }
 
@@ -144,6 +142,12 @@ pub fn run(g: &GlobalOpts, a: FamilyArgs) -> CmdResult {
                     a.out.join(hopmap_report::family::member_report_name(m)),
                     hopmap_report::html::report(&r.analysis, &m.origin).into_bytes(),
                 ));
+                if m.built.is_some() {
+                    files.push((
+                        a.out.join(hopmap_report::family::member_cif_name(m)),
+                        hopmap_report::write_cif::to_cif_p1(&r.analysis.structure).into_bytes(),
+                    ));
+                }
             }
         }
     }
@@ -184,6 +188,12 @@ mod tests {
         let m = member("structures/none.cif");
         assert_eq!(m.label, "none");
         assert_eq!(m.kind, MemberKind::Other);
+        let m = member("bronze:hexagonal:W");
+        assert_eq!(m.kind, MemberKind::Tunnel("hexagonal bronze".into()));
+        assert!(matches!(m.source, MemberSource::Spec(_)));
+        let m = member("odd=block:3x9:ribbon:Nb");
+        assert_eq!(m.label, "odd");
+        assert!(matches!(m.source, MemberSource::Failed(_)));
         let mut v = vec![member("a.cif"), member("b/a.cif")];
         unique_labels(&mut v);
         assert_eq!((v[0].label.as_str(), v[1].label.as_str()), ("a", "a-2"));
