@@ -612,6 +612,25 @@ mod tests {
     use super::*;
 
     #[test]
+    fn category_axes_tick_at_their_positions_with_their_labels() {
+        let a = Axis::categories(
+            "Block size",
+            "",
+            vec![
+                (9.0, "3x3".into()),
+                (12.0, "3x4".into()),
+                (20.0, "4x5".into()),
+            ],
+        );
+        let (lo, hi, ticks) = a.layout(Some((0.0, 100.0)));
+        assert!(lo < 9.0 && hi > 20.0 && hi < 22.0, "{lo} {hi}");
+        let t: Vec<(f64, &str)> = ticks.iter().map(|t| (t.value, t.label.as_str())).collect();
+        assert_eq!(t, vec![(9.0, "3x3"), (12.0, "3x4"), (20.0, "4x5")]);
+        let one = Axis::categories("Member", "", vec![(1.0, "a".into())]);
+        assert_eq!(one.layout(None).0, 0.5);
+    }
+
+    #[test]
     fn nice_numbers_are_one_two_five() {
         assert_eq!(nice_number(0.37, true), 0.5);
         assert_eq!(nice_number(1.2, true), 1.0);

@@ -524,7 +524,11 @@ fn barrier_plot(x_axis: Axis, points: &[(f64, &MemberResult)], join: bool) -> Li
     plot.legend = LegendPosition::TopLeft;
     let tunnel: Vec<(f64, f64, f64)> = points
         .iter()
-        .filter_map(|(x, r)| r.tunnel.as_ref().map(|t| (*x, t.barrier_ev, t.uncertainty_ev)))
+        .filter_map(|(x, r)| {
+            r.tunnel
+                .as_ref()
+                .map(|t| (*x, t.barrier_ev, t.uncertainty_ev))
+        })
         .collect();
     let cross: Vec<(f64, f64, f64)> = points
         .iter()
@@ -713,10 +717,7 @@ pub fn figures(s: &FamilyStudy) -> Vec<(String, String, String)> {
         }
     }
     // 5. largest particle at 10C and 60C
-    let mut plot = LinePlot::new(
-        member_axis(s),
-        Axis::log("Largest particle diameter", "um"),
-    );
+    let mut plot = LinePlot::new(member_axis(s), Axis::log("Largest particle diameter", "um"));
     // ranked by barrier, the first members have the largest particles: the lower left is free
     plot.legend = LegendPosition::BottomLeft;
     let mut any = false;
@@ -798,6 +799,11 @@ pub fn html(s: &FamilyStudy, reports: bool) -> String {
         esc(&capitalise(s.ranking_rule)),
         env!("CARGO_PKG_VERSION")
     );
+    let _ = writeln!(
+        header,
+        "<p class=\"note\"><b>Caution:</b> {}</p>",
+        esc(FAMILY_CAUTION)
+    );
     let _ = writeln!(b, "<h2 id=\"table\">Ranked table</h2>");
     let _ = writeln!(
         b,
@@ -836,18 +842,19 @@ pub fn html(s: &FamilyStudy, reports: bool) -> String {
             m.rank.map(|k| k.to_string()).unwrap_or_else(|| "–".into()),
             esc(&size_text(&m.kind)),
             esc(&r.formula),
-            esc(
-                &r.tunnel
-                    .as_ref()
-                    .map(|t| network_text(t.dimension, &t.orientations))
-                    .unwrap_or_else(|| "no path".into())
-            ),
+            esc(&r
+                .tunnel
+                .as_ref()
+                .map(|t| network_text(t.dimension, &t.orientations))
+                .unwrap_or_else(|| "no path".into())),
             r.tunnel
                 .as_ref()
                 .map(|t| format!("{:.2} ± {:.2}", t.barrier_ev, t.uncertainty_ev))
                 .unwrap_or_else(|| "–".into()),
             esc(&crossing_text(r.crossing.as_ref()).replace(" eV", "")),
-            esc(&c.map(|c| c.couples.join(", ")).unwrap_or_else(|| "none".into())),
+            esc(&c
+                .map(|c| c.couples.join(", "))
+                .unwrap_or_else(|| "none".into())),
             c.and_then(|c| c.electrons_per_metal)
                 .map(|v| format!("{v:.2}"))
                 .unwrap_or_else(|| "–".into()),

@@ -48,7 +48,10 @@ pub const FAMILY_C_RATES: [f64; 2] = [10.0, 60.0];
 /// anything else.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub enum MemberKind {
-    Block { n: u32, m: u32 },
+    Block {
+        n: u32,
+        m: u32,
+    },
     /// The tunnel kind in words, e.g. "hexagonal tunnel".
     Tunnel(String),
     Other,
@@ -130,9 +133,7 @@ impl MemberInput {
 pub fn kind_of(spec: &FrameworkSpec) -> MemberKind {
     match spec {
         FrameworkSpec::Block { n, m, .. } => MemberKind::Block { n: *n, m: *m },
-        FrameworkSpec::Bronze { kind, .. } => {
-            MemberKind::Tunnel(format!("{} bronze", kind.word()))
-        }
+        FrameworkSpec::Bronze { kind, .. } => MemberKind::Tunnel(format!("{} bronze", kind.word())),
     }
 }
 

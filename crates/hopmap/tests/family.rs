@@ -39,7 +39,11 @@ fn study() -> &'static FamilyStudy {
         let opts = AnalysisOptions::builder("Li").build().unwrap();
         family::study(
             vec![
-                file_member("TiNb2O7", MemberKind::Block { n: 3, m: 3 }, "TiNb2O7_block.cif"),
+                file_member(
+                    "TiNb2O7",
+                    MemberKind::Block { n: 3, m: 3 },
+                    "TiNb2O7_block.cif",
+                ),
                 file_member(
                     "h-WO3",
                     MemberKind::Tunnel("hexagonal tunnel".into()),
@@ -91,7 +95,11 @@ fn tinb2o7_capacity_is_five_electrons_per_formula_unit() {
     // quoted theoretical capacity of TiNb2O7 (387.6 mAh/g; common practice, from memory). The
     // file's mixed Ti/Nb sites carry occupancies of six decimals (0.333333), hence 1e-5.
     let c = member("TiNb2O7").capacity.as_ref().expect("a capacity");
-    assert!(close(c.molar_mass_g_mol, 345.6756, 1e-3), "{}", c.molar_mass_g_mol);
+    assert!(
+        close(c.molar_mass_g_mol, 345.6756, 1e-3),
+        "{}",
+        c.molar_mass_g_mol
+    );
     assert!(
         close(c.redox_electrons_per_formula_unit, 5.0, 1e-5),
         "{}",
@@ -100,8 +108,16 @@ fn tinb2o7_capacity_is_five_electrons_per_formula_unit() {
     assert!(close(c.electrons_per_metal.unwrap(), 5.0 / 3.0, 1e-5));
     assert!(close(c.redox_mah_g, 387.67, 0.01), "{}", c.redox_mah_g);
     assert_eq!(c.direction, Some("insertion"));
-    assert!(c.couples.contains(&"Nb5+/Nb3+".to_string()), "{:?}", c.couples);
-    assert!(c.couples.contains(&"Ti4+/Ti3+".to_string()), "{:?}", c.couples);
+    assert!(
+        c.couples.contains(&"Nb5+/Nb3+".to_string()),
+        "{:?}",
+        c.couples
+    );
+    assert!(
+        c.couples.contains(&"Ti4+/Ti3+".to_string()),
+        "{:?}",
+        c.couples
+    );
     // the reported capacity is the smaller bound, in both units
     let site = c.site_mah_g.expect("a site bound");
     assert!(close(c.capacity_mah_g, site.min(c.redox_mah_g), 1e-9));
@@ -178,7 +194,14 @@ fn the_ranking_follows_the_tunnel_barriers_and_the_failed_member_comes_last() {
     let ranked: Vec<f64> = s
         .members
         .iter()
-        .filter_map(|m| m.result.as_ref().ok()?.tunnel.as_ref().map(|t| t.barrier_ev))
+        .filter_map(|m| {
+            m.result
+                .as_ref()
+                .ok()?
+                .tunnel
+                .as_ref()
+                .map(|t| t.barrier_ev)
+        })
         .collect();
     assert_eq!(ranked.len(), 6);
     assert!(ranked.windows(2).all(|w| w[0] <= w[1]), "{ranked:?}");
@@ -192,7 +215,10 @@ fn the_ranking_follows_the_tunnel_barriers_and_the_failed_member_comes_last() {
     let e = last.result.as_ref().unwrap_err();
     assert_eq!(e.kind, hopmap::ErrorKind::Input);
     assert!(
-        e.file.as_deref().unwrap().ends_with("no_such_framework.cif"),
+        e.file
+            .as_deref()
+            .unwrap()
+            .ends_with("no_such_framework.cif"),
         "{e}"
     );
 }
