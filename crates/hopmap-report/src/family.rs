@@ -292,7 +292,7 @@ fn result_json(r: &MemberResult) -> Value {
             json!({
                 "c_rate": p.c_rate,
                 "charge_time_s": 3600.0 / p.c_rate,
-                "max_particle_diameter_um": p.diameter_um.map(|d| sig(d)),
+                "max_particle_diameter_um": p.diameter_um.map(sig),
                 "max_particle_diameter_band_um": p.band_um.map(|(a, b)| [sig(a), sig(b)]),
                 "bulk_diffusion_limits": p.diameter_um.map(|_| !p.not_limiting()),
             })
