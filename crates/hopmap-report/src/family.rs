@@ -11,6 +11,7 @@ use hopmap::family::{
     Crossing, FAMILY_C_RATES, FamilyMember, FamilyStudy, MemberKind, MemberResult, ParticleAtRate,
 };
 use hopmap::summary::Orientation;
+use hopmap::transport;
 use hopmap_plot::colormap::categorical;
 use hopmap_plot::lines::{RegionShape, ShadedRegion};
 use hopmap_plot::{Axis, Figure, LegendPosition, LinePlot, MarkerShape, Series};
@@ -84,11 +85,25 @@ fn crossing_text(c: Option<&Crossing>) -> String {
     }
 }
 
+/// "33 um (1.8 to >100)": the diameter and, in brackets, its band for the barrier's uncertainty;
+/// "> 100 um" where bulk diffusion does not limit the rate.
 fn particle_text(p: Option<&ParticleAtRate>) -> String {
     match p.and_then(|p| p.diameter_um.map(|d| (p, d))) {
         Some((p, _)) if p.not_limiting() => "> 100 um".into(),
-        Some((_, d)) => format!("{} um", um(d)),
-        None => "no bulk".into(),
+        Some((p, d)) => match p.band_um {
+            Some((lo, hi)) => format!(
+                "{} um ({} to {})",
+                um(d),
+                um(lo.min(hi)),
+                if lo.max(hi) > transport::PRACTICAL_PARTICLE_MAX_UM {
+                    ">100".to_string()
+                } else {
+                    um(lo.max(hi))
+                }
+            ),
+            None => format!("{} um", um(d)),
+        },
+        None => "no bulk transport".into(),
     }
 }
 
@@ -119,7 +134,7 @@ pub fn terminal(s: &FamilyStudy) -> String {
     let mut o = String::new();
     let _ = writeln!(
         o,
-        "{}+ through a family of {} frameworks ({})",
+        "{}+ through a family of {} frameworks\n  {}",
         s.ion,
         s.members.len(),
         s.ranking_rule
@@ -810,8 +825,8 @@ pub fn html(s: &FamilyStudy, reports: bool) -> String {
         "<table>\n<tr><th>rank</th><th>member</th><th>size</th><th>formula</th><th>tunnel</th>\
          <th>barrier (eV)</th><th>crossing cost (eV)</th><th>redox couples</th>\
          <th>e⁻ per metal</th><th>redox-limited (mAh/g | mAh/cm³)</th>\
-         <th>site-limited (mAh/g | mAh/cm³)</th><th>largest particle at 10C (µm)</th>\
-         <th>at 60C (µm)</th></tr>"
+         <th>site-limited (mAh/g | mAh/cm³)</th><th>largest particle at 10C (µm; band)</th>\
+         <th>at 60C (µm; band)</th></tr>"
     );
     for m in &s.members {
         let Ok(r) = &m.result else { continue };
