@@ -248,3 +248,66 @@ fn particles_at_10c_are_larger_than_at_60c_by_the_square_root_of_six() {
         }
     }
 }
+
+/// pymatgen (a general-purpose materials library on PyPI) as an independent oracle of the two
+/// numbers every capacity rests on: the molar mass of the formula unit (its own atomic weights)
+/// and the crystallographic density of the file. Runs when HOPMAP_PYTHON names a python with
+/// pymatgen.
+#[test]
+fn molar_masses_and_densities_agree_with_pymatgen() {
+    let Ok(python) = std::env::var("HOPMAP_PYTHON") else {
+        eprintln!("skipped: set HOPMAP_PYTHON to a python with pymatgen");
+        return;
+    };
+    let cases = [
+        ("TiNb2O7", "TiNb2O7_block.cif"),
+        ("h-WO3", "WO3_hexagonal.cif"),
+        ("rutile", "TiO2_rutile.cif"),
+        ("TiO2(B)", "TiO2_bronze_mp.cif"),
+        ("hollandite", "MnO2_hollandite.cif"),
+    ];
+    let script = r#"
+import sys, warnings
+warnings.simplefilter("ignore")
+from pymatgen.core import Structure, Composition
+for f, formula in zip(sys.argv[1::2], sys.argv[2::2]):
+    s = Structure.from_file(f)
+    print(float(Composition(formula).weight), float(s.density))
+"#;
+    let mut args: Vec<String> = vec!["-c".into(), script.into()];
+    for (label, file) in cases {
+        args.push(reference(file).display().to_string());
+        args.push(member(label).capacity.as_ref().unwrap().formula.clone());
+    }
+    let out = std::process::Command::new(python)
+        .args(&args)
+        .output()
+        .expect("run python");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let text = String::from_utf8_lossy(&out.stdout);
+    let lines: Vec<&str> = text.lines().collect();
+    assert_eq!(lines.len(), cases.len(), "{text}");
+    for ((label, _), line) in cases.iter().zip(lines) {
+        let v: Vec<f64> = line
+            .split_whitespace()
+            .map(|x| x.parse().unwrap())
+            .collect();
+        let c = member(label).capacity.as_ref().unwrap();
+        assert!(
+            ((c.molar_mass_g_mol - v[0]) / v[0]).abs() < 2e-4,
+            "{label}: molar mass {} against pymatgen {}",
+            c.molar_mass_g_mol,
+            v[0]
+        );
+        assert!(
+            ((c.density_g_cm3 - v[1]) / v[1]).abs() < 1e-3,
+            "{label}: density {} against pymatgen {}",
+            c.density_g_cm3,
+            v[1]
+        );
+    }
+}
