@@ -496,7 +496,7 @@ fn block(
         ));
     }
     if let Some(tet) = &tet {
-        place_tetrahedra(&grid, &mut atoms, tet, origins.len())?;
+        place_tetrahedra(&grid, &mut atoms, tet, origins.len(), &origins[1..])?;
     }
     check_octahedra(&grid, &atoms)?;
     let d = 2.0 * r;
@@ -537,6 +537,7 @@ fn place_tetrahedra(
     atoms: &mut Vec<Atom>,
     tet: &[Occ],
     blocks: usize,
+    centring: &[Vector3<f64>],
 ) -> Result<(), String> {
     let single: Vec<usize> = (0..atoms.len())
         .filter(|&i| atoms[i].role == Role::Oxygen)
@@ -555,32 +556,49 @@ fn place_tetrahedra(
     }
     let inverse = grid.try_inverse().expect("a cell with volume");
     let edge = (3.0f64).sqrt() / 4.0;
+    // Every regular tetrahedron of such oxygens, its centre a quarter repeat up or down.
     let mut centres: Vec<Vector3<f64>> = Vec::new();
     for &i in &single {
         let p = grid * atoms[i].frac;
         for sx in [-0.25, 0.25] {
-            for sz in [-0.25, 0.25] {
-                let c = p + Vector3::new(sx, 0.25, sz);
-                let cf = (inverse * c).map(wrap);
-                if (cf.y - 0.25).abs() > 1e-6 {
-                    continue;
-                }
-                let corners = single
-                    .iter()
-                    .flat_map(|&j| {
-                        distances(grid, atoms, cf, &[Role::Oxygen])
-                            .filter(move |(k, _)| *k == j)
-                            .collect::<Vec<_>>()
-                    })
-                    .filter(|(_, r)| (r - edge).abs() < 1e-6)
-                    .count();
-                if corners == 4 && !centres.iter().any(|x| same_frac(x, &cf)) {
-                    centres.push(cf);
+            for sy in [-0.25, 0.25] {
+                for sz in [-0.25, 0.25] {
+                    let cf = (inverse * (p + Vector3::new(sx, sy, sz))).map(wrap);
+                    let corners = distances(grid, atoms, cf, &[Role::Oxygen])
+                        .filter(|(k, r)| single.contains(k) && (r - edge).abs() < 1e-6)
+                        .count();
+                    if corners == 4 && !centres.iter().any(|x| same_frac(x, &cf)) {
+                        centres.push(cf);
+                    }
                 }
             }
         }
     }
-    let wrapped: Vec<Vector3<f64>> = centres.iter().map(|c| c.map(wrap)).collect();
+    // One tetrahedron per block: the first at a quarter height and its images under the
+    // centring, so the cell keeps its centring (two choices per corner column; this one is
+    // ordered).
+    let Some(first) = centres
+        .iter()
+        .copied()
+        .filter(|c| (c.y - 0.25).abs() < 1e-6)
+        .min_by(|a, b| {
+            (a.x, a.z)
+                .partial_cmp(&(b.x, b.z))
+                .unwrap_or(std::cmp::Ordering::Equal)
+        })
+    else {
+        return Err("no tetrahedral site at the block corners".into());
+    };
+    let mut wrapped = vec![first];
+    for t in centring {
+        let c = (first + inverse * t).map(wrap);
+        if !centres.iter().any(|x| same_frac(x, &c)) {
+            return Err("the tetrahedral sites do not follow the centring of the cell".into());
+        }
+        if !wrapped.iter().any(|x| same_frac(x, &c)) {
+            wrapped.push(c);
+        }
+    }
     if wrapped.len() != blocks {
         return Err(format!(
             "found {} tetrahedral sites at the block corners, not one per block",

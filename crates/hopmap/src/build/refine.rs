@@ -32,6 +32,10 @@ pub const METAL_METAL_FLOOR_A: f64 = 3.15;
 pub const OXYGEN_OXYGEN_FLOOR_A: f64 = 2.55;
 /// Floor on the oxygen-oxygen edges of a tetrahedron (A).
 pub const TETRAHEDRON_EDGE_FLOOR_A: f64 = 2.40;
+/// Weight of the octahedron-edge restraint (v.u. per A).
+pub const EDGE_WEIGHT: f64 = 0.3;
+/// Largest move of an atom in one refinement step (A).
+pub const MAX_STEP_A: f64 = 0.1;
 /// Weight of a floor violation (v.u. per A).
 pub const FLOOR_WEIGHT: f64 = 3.0;
 
@@ -70,6 +74,9 @@ struct Problem {
     formal: Vec<f64>,
     contacts: Vec<Contact>,
     floors: Vec<Floor>,
+    /// Octahedron edges (oxygen pairs at R sqrt 2 in the ideal) restrained weakly to that
+    /// length; `floor` holds the length.
+    edges: Vec<Floor>,
 }
 
 impl Problem {
@@ -130,6 +137,7 @@ impl Problem {
         let mut in_tetrahedron: Vec<Option<usize>> = vec![None; frac0.len()];
         let mut contacts = Vec::new();
         let mut floors = Vec::new();
+        let mut edges = Vec::new();
         for i in 0..frac0.len() {
             for j in 0..frac0.len() {
                 let d0 = (frac0[j] - frac0[i]).map(|x| x - x.round());
@@ -173,6 +181,14 @@ impl Problem {
                                     image,
                                     floor: OXYGEN_OXYGEN_FLOOR_A,
                                 });
+                                if (dist - r * std::f64::consts::SQRT_2).abs() < 1e-3 * r {
+                                    edges.push(Floor {
+                                        i,
+                                        j,
+                                        image,
+                                        floor: r * std::f64::consts::SQRT_2,
+                                    });
+                                }
                             }
                         }
                     }
@@ -187,7 +203,11 @@ impl Problem {
                 f.floor = TETRAHEDRON_EDGE_FLOOR_A;
             }
         }
+        edges.retain(|e| {
+            in_tetrahedron[e.i].is_none() || in_tetrahedron[e.i] != in_tetrahedron[e.j]
+        });
         Ok(Problem {
+            edges,
             lattice0,
             strains: ideal.strains.clone(),
             frac0,
@@ -199,6 +219,24 @@ impl Problem {
             contacts,
             floors,
         })
+    }
+
+    /// Scales `step` down so that no atom moves more than [`MAX_STEP_A`] and no strain
+    /// changes by more than 2 % in one iteration: the contact list is fixed from the ideal, so
+    /// the refinement must move atoms little and surely.
+    fn cap_step(&self, p: &DVector<f64>, step: &mut DVector<f64>) {
+        let (lattice, _) = self.state(p);
+        let mut worst: f64 = 0.0;
+        for ix in &self.index {
+            let d = Vector3::from_fn(|k, _| ix[k].map(|c| step[c]).unwrap_or(0.0));
+            worst = worst.max((lattice * d).norm() / MAX_STEP_A);
+        }
+        for k in self.n_coords()..self.n_params {
+            worst = worst.max(step[k].abs() / 0.02);
+        }
+        if worst > 1.0 {
+            *step /= worst;
+        }
     }
 
     fn n_coords(&self) -> usize {
@@ -232,7 +270,7 @@ impl Problem {
     fn evaluate(&self, p: &DVector<f64>, jacobian: bool) -> (DVector<f64>, Vec<Vec<(usize, f64)>>) {
         let (lattice, frac) = self.state(p);
         let n_atoms = frac.len();
-        let n_res = n_atoms + self.floors.len();
+        let n_res = n_atoms + self.floors.len() + self.edges.len();
         let mut res = DVector::zeros(n_res);
         let mut rows: Vec<Vec<(usize, f64)>> = vec![Vec::new(); if jacobian { n_res } else { 0 }];
         for (i, f) in self.formal.iter().enumerate() {
@@ -314,7 +352,33 @@ impl Problem {
                 }
             }
         }
+        let base = n_atoms + self.floors.len();
+        for (k, e) in self.edges.iter().enumerate() {
+            let d_frac = frac[e.j] + e.image - frac[e.i];
+            let cart = lattice * d_frac;
+            let r = cart.norm();
+            res[base + k] = EDGE_WEIGHT * (r - e.floor);
+            if jacobian {
+                let (g, strain) = pair_grad(d_frac, cart, r);
+                push(&mut rows, base + k, e.i, e.j, &g, &strain, EDGE_WEIGHT);
+            }
+        }
         (res, rows)
+    }
+}
+
+impl Problem {
+    /// Root-mean-square deviation of the site bond-valence sums from the site valences (v.u.):
+    /// the refinement's own measure, a mixed site counted once with its average valence.
+    fn site_gii(&self, p: &DVector<f64>) -> f64 {
+        let (res, _) = self.evaluate(p, false);
+        let n = self.frac0.len();
+        let (mut num, mut den) = (0.0, 0.0);
+        for i in 0..n {
+            num += self.occupancy[i] * res[i] * res[i];
+            den += self.occupancy[i];
+        }
+        (num / den).sqrt()
     }
 }
 
@@ -411,11 +475,15 @@ fn levenberg_marquardt(problem: &Problem, symmetry: &Symmetrizer, max_iterations
                 }
             }
         }
+        // Marquardt's scaling, floored so that directions with no first-order effect at a
+        // symmetric point (a coordinate across a mirror) are still damped.
+        let mean_diag = (0..n).map(|k| jtj[(k, k)]).sum::<f64>() / n as f64;
+        let floor_diag = 1e-3 * mean_diag + 1e-12;
         let mut improved = false;
         for _ in 0..12 {
             let mut m = jtj.clone();
             for k in 0..n {
-                m[(k, k)] += lambda * (jtj[(k, k)] + 1e-9) + 1e-12;
+                m[(k, k)] += lambda * jtj[(k, k)].max(floor_diag);
             }
             let Some(chol) = m.cholesky() else {
                 lambda *= 10.0;
@@ -423,16 +491,11 @@ fn levenberg_marquardt(problem: &Problem, symmetry: &Symmetrizer, max_iterations
             };
             let mut step = chol.solve(&(-&jtr));
             symmetry.project(problem, &mut step);
+            problem.cap_step(&p, &mut step);
             let trial = &p + &step;
             let (r2, _) = problem.evaluate(&trial, false);
             let c2 = r2.norm_squared();
             if c2 < cost {
-                if std::env::var("HOPMAP_BUILD_DEBUG").is_ok() {
-                    eprintln!(
-                        "it {iterations} cost {c2:.6} lambda {lambda:.1e} step {:.2e}",
-                        step.amax()
-                    );
-                }
                 let small_change = cost - c2 < 1e-12 * cost.max(1e-12);
                 let small_step = step.amax() < 1e-10;
                 p = trial;
@@ -453,29 +516,6 @@ fn levenberg_marquardt(problem: &Problem, symmetry: &Symmetrizer, max_iterations
         }
         if converged {
             break;
-        }
-    }
-    if std::env::var("HOPMAP_BUILD_DEBUG").is_ok() {
-        let (res, _) = problem.evaluate(&p, false);
-        let na = problem.frac0.len();
-        for i in 0..na {
-            if res[i].abs() > 0.15 {
-                eprintln!(
-                    "atom {i} bvs dev {:.3} formal {:.3}",
-                    res[i], problem.formal[i]
-                );
-            }
-        }
-        for (k, f) in problem.floors.iter().enumerate() {
-            if res[na + k] > 0.03 {
-                eprintln!(
-                    "floor {} {} {} viol {:.3}",
-                    f.i,
-                    f.j,
-                    f.floor,
-                    res[na + k] / FLOOR_WEIGHT
-                );
-            }
         }
     }
     Fit {
@@ -548,6 +588,7 @@ pub fn finish(
         let (res, _) = problem.evaluate(p, false);
         res.iter()
             .skip(problem.frac0.len())
+            .take(problem.floors.len())
             .fold(0.0f64, |m, r| m.max(r / FLOOR_WEIGHT))
     };
     let mut construction = vec![format!("hopmap build {text}")];
@@ -604,6 +645,8 @@ pub fn finish(
         let refinement = Refinement {
             gii_vu: gii(&structure)?,
             initial_gii_vu,
+            site_gii_vu: problem.site_gii(&fit.params),
+            initial_site_gii_vu: problem.site_gii(&DVector::zeros(problem.n_params)),
             iterations: fit.iterations,
             rms_shift_a: rms,
             converged: fit.converged,
@@ -635,6 +678,8 @@ pub fn finish(
             Refinement {
                 gii_vu: initial_gii_vu,
                 initial_gii_vu,
+                site_gii_vu: problem.site_gii(&p0),
+                initial_site_gii_vu: problem.site_gii(&p0),
                 iterations: 0,
                 rms_shift_a: 0.0,
                 converged: false,
