@@ -126,10 +126,18 @@ impl Default for BuildOptions {
 /// How the refinement went.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Refinement {
-    /// Global instability index after refinement (v.u.), over every ion of the cell.
+    /// Global instability index after refinement (v.u.), over every ion of the cell, as
+    /// [`crate::bv::valence_check`] computes it: each occupant of a mixed site against its own
+    /// valence, so a random mix of different valences (Nb5+/W6+) keeps a floor that no
+    /// geometry removes.
     pub gii_vu: f64,
     /// The same for the ideal framework, before refinement (v.u.).
     pub initial_gii_vu: f64,
+    /// Root-mean-square deviation of the site bond-valence sums from the site valences, a mixed
+    /// site counted once with its average valence (v.u.): what the refinement minimises.
+    pub site_gii_vu: f64,
+    /// The same before refinement (v.u.).
+    pub initial_site_gii_vu: f64,
     /// Levenberg-Marquardt iterations taken (0 without refinement).
     pub iterations: usize,
     /// Root-mean-square displacement of the atoms from the ideal framework (A).
