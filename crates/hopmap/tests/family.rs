@@ -311,3 +311,99 @@ for f, formula in zip(sys.argv[1::2], sys.argv[2::2]):
         );
     }
 }
+
+/// The family the block-phase question asks for, built and analysed in one call: blocks of
+/// 3 x 3 (TiNb2O7), 3 x 4 (Nb12WO33), 4 x 4 and 4 x 5 octahedra (tetrahedral W at the block
+/// corners), and the hexagonal and tetragonal tungsten bronzes (0.2 A grid to keep the test
+/// short).
+fn built_family() -> &'static FamilyStudy {
+    static S: OnceLock<FamilyStudy> = OnceLock::new();
+    S.get_or_init(|| {
+        let opts = AnalysisOptions::builder("Li")
+            .spacing_a(0.2)
+            .build()
+            .unwrap();
+        let specs = [
+            "block:3x3:ribbon:Ti1Nb2",
+            "block:3x4:tet:Nb:W",
+            "block:4x4:tet:Nb,W:W",
+            "block:4x5:tet:Nb,W:W",
+            "bronze:hexagonal:W",
+            "bronze:tetragonal:W",
+        ];
+        family::study(
+            specs
+                .iter()
+                .map(|s| MemberInput::from_spec(s, None))
+                .collect(),
+            &opts,
+        )
+    })
+}
+
+#[test]
+fn built_block_phases_run_down_the_short_axis_and_cost_more_to_cross() {
+    // Block phases: tunnels along the short axis, one octahedron repeat of about 3.8 A; crossing
+    // the shear planes costs much more (common practice, no single source): at least 0.3 eV.
+    // Bronzes: tunnels along c, the axis of the tunnels (common practice).
+    let s = built_family();
+    assert_eq!(
+        s.answered().count(),
+        6,
+        "every member is built and answered"
+    );
+    for (m, r) in s.answered() {
+        let t = r.tunnel.as_ref().expect("a tunnel");
+        assert_eq!(t.dimension, 1, "{}", m.label);
+        let Orientation::Line(uvw) = t.orientations[0] else {
+            panic!("{}: not a line", m.label)
+        };
+        let lattice = &r.analysis.structure.lattice;
+        let v = lattice.vector(0) * uvw[0] as f64
+            + lattice.vector(1) * uvw[1] as f64
+            + lattice.vector(2) * uvw[2] as f64;
+        match m.kind {
+            MemberKind::Block { .. } => {
+                assert!(
+                    v.norm() > 3.5 && v.norm() < 4.2,
+                    "{}: tunnel repeat {:.2} A",
+                    m.label,
+                    v.norm()
+                );
+                let cost = r.crossing.as_ref().and_then(Crossing::cost_ev);
+                assert!(cost.is_some_and(|c| c >= 0.3), "{}: {cost:?}", m.label);
+                assert!(m.built.as_ref().unwrap().refinement.gii_vu < 0.25);
+            }
+            _ => assert!(v.norm() < 4.2, "{}: {:.2} A", m.label, v.norm()),
+        }
+    }
+    let sizes: Vec<u32> = s
+        .members
+        .iter()
+        .filter_map(|m| m.kind.octahedra_per_block())
+        .collect();
+    let mut sorted = sizes.clone();
+    sorted.sort();
+    assert_eq!(sorted, vec![9, 12, 16, 20]);
+}
+
+#[test]
+fn built_nb12wo33_capacity_is_twenty_five_electrons_per_formula_unit() {
+    // Insertion into Nb12WO33: 12 Nb5+ -> Nb3+ (24 e) and W6+ -> W5+ (1 e) = 25 e per formula
+    // unit, 25/13 e per metal atom. M = 12 x 92.9064 + 183.84 + 33 x 15.9994 = 1826.6970 g/mol;
+    // Q = 25 x 96485.33212 / (3.6 x 1826.6970) = 366.80 mAh/g.
+    let (_, r) = built_family()
+        .answered()
+        .find(|(m, _)| m.kind == MemberKind::Block { n: 3, m: 4 })
+        .expect("the 3 x 4 member");
+    let c = r.capacity.as_ref().unwrap();
+    assert_eq!(c.formula, "Nb12WO33");
+    assert!(
+        close(c.molar_mass_g_mol, 1826.697, 1e-3),
+        "{}",
+        c.molar_mass_g_mol
+    );
+    assert!(close(c.redox_electrons_per_formula_unit, 25.0, 1e-6));
+    assert!(close(c.electrons_per_metal.unwrap(), 25.0 / 13.0, 1e-6));
+    assert!(close(c.redox_mah_g, 366.80, 0.01), "{}", c.redox_mah_g);
+}
