@@ -3,11 +3,13 @@
 //!
 //! Each framework is analysed for Li+ and for Na+ with the default options; every analysis
 //! gets its own HTML report, and an index page `report.html` tells the scenario and ranks the
-//! ten cases by the largest particle that bulk diffusion charges at 10C. A structure that fails
-//! becomes a row with its error; the others go on. Every file is written atomically.
+//! ten cases by the largest particle that bulk diffusion charges at 10C; a family page compares
+//! the five frameworks for Li+ ([`hopmap::family`]). A structure that fails becomes a row with its
+//! error; the others go on. Every file is written atomically.
 
 use hopmap::analysis::{self, Analysis, AnalysisOptions};
 use hopmap::element::Element;
+use hopmap::family::{MemberInput, MemberKind, MemberSource};
 use hopmap::transport::PRACTICAL_PARTICLE_MAX_UM;
 use hopmap_report::html::{self, esc, sci};
 use hopmap_report::output::write_atomic;
@@ -412,6 +414,12 @@ pub fn index_page(rows: &[DemoRow]) -> String {
     let _ = writeln!(o, "<h2 id=\"scenario\">The scenario</h2>");
     let _ = writeln!(o, "<p>{}</p>", esc(SCENARIO));
     let _ = writeln!(o, "<div class=\"box warn\"><b>{}</b></div>", esc(INVENTED));
+    let _ = writeln!(
+        o,
+        "<p>The five frameworks side by side for Li+, as a family: tunnel barrier, the cost of \
+         leaving the tunnels, capacity bounds in mAh/g and mAh/cm³, and the largest particle \
+         at 10C and 60C: <a href=\"{FAMILY_PAGE}\">{FAMILY_PAGE}</a>.</p>"
+    );
     if let Some(svg) = index_figure(rows) {
         let _ = writeln!(
             o,
@@ -582,6 +590,47 @@ pub fn terminal_summary(rows: &[DemoRow], index: &Path, seconds: f64) -> String 
     o
 }
 
+/// The family page of the study, beside the index.
+pub const FAMILY_PAGE: &str = "family.html";
+
+/// The tunnel kind of each demo framework for the family page (none for the cube and the
+/// shear slabs, which are not n x m block phases).
+fn family_kind(s: &DemoStructure) -> MemberKind {
+    match s.file {
+        "QF1_rutile_tunnel.cif" => MemberKind::Tunnel("rutile 1x1".into()),
+        "QF2_hollandite_tunnel.cif" => MemberKind::Tunnel("hollandite 2x2".into()),
+        "QF5_hexagonal_bronze.cif" => MemberKind::Tunnel("hexagonal bronze".into()),
+        _ => MemberKind::Other,
+    }
+}
+
+/// The five frameworks compared for Li+ as a family ([`hopmap::family`]), as an HTML page.
+pub fn family_page() -> String {
+    let members: Vec<MemberInput> = STRUCTURES
+        .iter()
+        .map(|s| MemberInput {
+            label: s.model.split(',').next().unwrap_or(s.file).to_string(),
+            kind: family_kind(s),
+            origin: format!("structures/{}", s.file),
+            source: match read_embedded(s) {
+                Ok(x) => MemberSource::Structure(Box::new(x)),
+                Err(e) => MemberSource::Failed(hopmap::Error {
+                    kind: hopmap::ErrorKind::Input,
+                    file: None,
+                    place: None,
+                    message: e,
+                }),
+            },
+        })
+        .collect();
+    let opts = AnalysisOptions::new(Element::from_symbol("Li").expect("Li is an element"));
+    hopmap_report::family::html_with_notes(
+        &hopmap::family::study(members, &opts),
+        false,
+        &[INVENTED],
+    )
+}
+
 /// Runs the demo study into `out` (created if needed). `progress` prints one line per finished
 /// case on stderr.
 pub fn run(out: &Path, progress: bool) -> Result<DemoRun, DemoError> {
@@ -620,6 +669,7 @@ pub fn run(out: &Path, progress: bool) -> Result<DemoRun, DemoError> {
         files.extend(f);
     }
     rank(&mut rows);
+    write(&out.join(FAMILY_PAGE), &family_page(), &mut files)?;
     let index = out.join("report.html");
     write(&index, &index_page(&rows), &mut files)?;
     let summary = terminal_summary(&rows, &index, t0.elapsed().as_secs_f64());

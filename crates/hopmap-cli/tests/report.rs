@@ -312,6 +312,19 @@ fn demo_writes_index_and_reports_and_names_every_structure() {
         assert!(dir.join("structures").join(s.file).exists());
     }
     assert!(run.rows.iter().filter(|r| r.outcome.is_ok()).count() >= 5);
+    // the family page compares the five frameworks for Li+, says the study is invented, and is
+    // linked from the index
+    let family = std::fs::read_to_string(dir.join(hopmap_cli::demo::FAMILY_PAGE)).unwrap();
+    assert!(index.contains(&format!("href=\"{}\"", hopmap_cli::demo::FAMILY_PAGE)));
+    assert!(family.contains(hopmap_cli::demo::INVENTED));
+    assert!(family.contains("Ranked table") && family.contains("id=\"cautions\""));
+    for s in hopmap_cli::demo::STRUCTURES {
+        assert!(
+            family.contains(&format!("structures/{}", s.file)),
+            "{}",
+            s.file
+        );
+    }
     // no temporary files left behind
     for e in std::fs::read_dir(&dir).unwrap() {
         let name = e.unwrap().file_name().to_string_lossy().to_string();

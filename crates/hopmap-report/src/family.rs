@@ -791,6 +791,11 @@ pub fn figures(s: &FamilyStudy) -> Vec<(String, String, String)> {
 /// The family page: the ranked table, the figures, the members that failed, the definitions
 /// and the cautions. `reports`: link each member to its own report (written beside the page).
 pub fn html(s: &FamilyStudy, reports: bool) -> String {
+    html_with_notes(s, reports, &[])
+}
+
+/// As [`html`], with notes shown in a box above the table (e.g. that a study is invented).
+pub fn html_with_notes(s: &FamilyStudy, reports: bool, notes: &[&str]) -> String {
     let ion = s.ion.symbol();
     let mut b = String::new();
     let best = s.members.iter().find(|m| m.rank == Some(1));
@@ -819,6 +824,9 @@ pub fn html(s: &FamilyStudy, reports: bool) -> String {
         "<p class=\"note\"><b>Caution:</b> {}</p>",
         esc(FAMILY_CAUTION)
     );
+    for n in notes {
+        let _ = writeln!(b, "<div class=\"box warn\"><b>{}</b></div>", esc(n));
+    }
     let _ = writeln!(b, "<h2 id=\"table\">Ranked table</h2>");
     let _ = writeln!(
         b,
