@@ -486,8 +486,8 @@ pub struct NetworkSurface {
 pub struct SurfaceOptions {
     /// Repeats of the cell along a, b, c (each at least 1).
     pub cells: [usize; 3],
-    /// Largest number of triangles of one surface: the field is resampled coarser (by factors
-    /// of 1.25 per axis) until the surface fits. `None`: the analysis grid as it is.
+    /// Largest number of triangles of one surface: the field is resampled coarser (by the
+    /// square root of the excess, at least 1.1 per axis) until the surface fits. `None`: the analysis grid as it is.
     pub max_triangles: Option<usize>,
 }
 
@@ -520,7 +520,10 @@ pub fn network_surfaces(
             let small = dims.iter().all(|&d| d <= 4);
             match opts.max_triangles {
                 Some(cap) if mesh.triangles.len() > cap && !small => {
-                    dims = dims.map(|d| ((d as f64 / 1.25).floor() as usize).max(4));
+                    // triangles go as the square of the points per axis
+                    let shrink =
+                        (1.05 * (mesh.triangles.len() as f64 / cap as f64).sqrt()).max(1.1);
+                    dims = dims.map(|d| ((d as f64 / shrink).floor() as usize).max(4));
                 }
                 _ => break (mesh, dims, block),
             }
