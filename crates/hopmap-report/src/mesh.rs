@@ -313,6 +313,12 @@ pub fn manifest(
             let check = s.mesh.edge_check();
             let net = network_of(a, s.dimension);
             let enclosed = s.mesh.volume_a3();
+            let pieces = s.mesh.components(&a.structure.lattice);
+            let largest = pieces.iter().map(|c| c.volume_a3).fold(0.0, f64::max);
+            let main = pieces
+                .iter()
+                .filter(|c| c.volume_a3 >= 0.05 * largest)
+                .count();
             json!({
                 "dimension": s.dimension,
                 "directions": net.map(|n| n.orientations.iter().map(|o| o.indices()).filter(|x| !x.is_empty()).collect::<Vec<_>>()).unwrap_or_default(),
@@ -327,7 +333,8 @@ pub fn manifest(
                 "area_a2": s.mesh.area_a2(),
                 "vertices": s.mesh.vertices.len(),
                 "triangles": s.mesh.triangles.len(),
-                "components": s.mesh.components(&a.structure.lattice).len(),
+                "components": pieces.len(),
+                "main_components": main,
                 "closed_manifold": check.closed_manifold(),
                 "pockets_left_out": s.pockets_left_out,
                 "grid_dims": s.dims,

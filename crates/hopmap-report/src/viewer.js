@@ -65,13 +65,24 @@
 
     // surfaces
     var nets = scene.networks.map(function (n) {
-      var q = new Uint16Array(bytes(n.pos)), nb = new Int8Array(bytes(n.nor));
-      var pos = new Float32Array(q.length), nor = new Float32Array(nb.length);
+      var q = new Uint16Array(bytes(n.pos));
+      var pos = new Float32Array(q.length), nor = new Float32Array(q.length);
       for (var i = 0; i < q.length; i++) { pos[i] = scene.lo[i % 3] + q[i] * scene.step; }
-      for (var j = 0; j < nb.length; j++) { nor[j] = nb[j] / 127; }
       var wide = n.wide && gl.getExtension("OES_element_index_uint");
       if (n.wide && !wide) { return null; }
       var idx = n.wide ? new Uint32Array(bytes(n.idx)) : new Uint16Array(bytes(n.idx));
+      // area-weighted vertex normals, outward (triangles are counter-clockwise from outside)
+      for (var t = 0; t < idx.length; t += 3) {
+        var a = 3 * idx[t], b = 3 * idx[t + 1], c = 3 * idx[t + 2];
+        var ux = pos[b] - pos[a], uy = pos[b + 1] - pos[a + 1], uz = pos[b + 2] - pos[a + 2];
+        var vx = pos[c] - pos[a], vy = pos[c + 1] - pos[a + 1], vz = pos[c + 2] - pos[a + 2];
+        var nx = uy * vz - uz * vy, ny = uz * vx - ux * vz, nz = ux * vy - uy * vx;
+        [a, b, c].forEach(function (v) { nor[v] += nx; nor[v + 1] += ny; nor[v + 2] += nz; });
+      }
+      for (var k = 0; k < nor.length; k += 3) {
+        var l = Math.sqrt(nor[k] * nor[k] + nor[k + 1] * nor[k + 1] + nor[k + 2] * nor[k + 2]) || 1;
+        nor[k] /= l; nor[k + 1] /= l; nor[k + 2] /= l;
+      }
       return {
         pos: buffer(gl.ARRAY_BUFFER, pos), nor: buffer(gl.ARRAY_BUFFER, nor),
         idx: buffer(gl.ELEMENT_ARRAY_BUFFER, idx), count: idx.length,
