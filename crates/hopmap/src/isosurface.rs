@@ -190,7 +190,7 @@ impl Mesh {
                 }
             }
         }
-        out.sort_by(|a, b| b.triangles.cmp(&a.triangles));
+        out.sort_by_key(|c| std::cmp::Reverse(c.triangles));
         out
     }
 }
@@ -512,6 +512,28 @@ pub fn network_surfaces(
             Block { cells, origin: o }.origin_frac(field.dims)
         });
         let mut dims = field.dims;
+        if let Some(cap) = opts.max_triangles {
+            // a quick probe on a quarter of the points per axis predicts the count at full
+            // resolution (triangles go as the square of the points per axis)
+            let probe_dims = dims.map(|d| (d / 4).max(4));
+            let probe = extract(
+                &resample(&field, probe_dims),
+                level as f32,
+                Block {
+                    cells,
+                    origin: [0, 1, 2]
+                        .map(|a| (of[a] * probe_dims[a] as f64).round() as usize % probe_dims[a]),
+                },
+            );
+            let ratio = (0..3)
+                .map(|a| dims[a] as f64 / probe_dims[a] as f64)
+                .fold(0.0, f64::max);
+            let predicted = probe.triangles.len() as f64 * ratio * ratio;
+            if predicted > cap as f64 {
+                let shrink = (predicted / cap as f64).sqrt();
+                dims = dims.map(|d| ((d as f64 / shrink).floor() as usize).clamp(4, d));
+            }
+        }
         let mesh = loop {
             let f = resample(&field, dims);
             let origin = [0, 1, 2].map(|a| (of[a] * dims[a] as f64).round() as usize % dims[a]);
