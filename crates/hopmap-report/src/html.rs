@@ -456,13 +456,16 @@ fn channels_section(a: &Analysis, o: &mut String) {
             }
         );
     }
+    let Some(mismatch) = &a.mismatch_percolation else {
+        return;
+    };
     let _ = writeln!(
         o,
         "<h2 id=\"mismatch\">Channels in the valence-mismatch landscape</h2>\n<p class=\"note\">The \
          same sweep over |ΔV(r)| = |Σ s(r) − V<sub>A</sub>|, the mismatch between the bond-valence \
          sum of the probe and its valence, in valence units (v.u.).</p>"
     );
-    channel_table(&a.mismatch_percolation, "v.u.", o);
+    channel_table(mismatch, "v.u.", o);
 }
 
 fn figure_html(f: &ReportFigure, n: usize) -> String {
