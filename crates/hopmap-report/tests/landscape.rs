@@ -345,10 +345,7 @@ fn grid_values_agree_with_single_point_evaluation() {
             land.mismatch.values[idx] as f64,
             land.energy.values[idx] as f64,
         );
-        assert!(
-            grid_close(ge, e),
-            "energy at {ijk:?}: grid {ge}, point {e}"
-        );
+        assert!(grid_close(ge, e), "energy at {ijk:?}: grid {ge}, point {e}");
         assert!(
             grid_close(gdv, dv),
             "mismatch at {ijk:?}: grid {gdv}, point {dv}"
