@@ -24,6 +24,7 @@ pub mod family;
 pub mod filling;
 pub mod grid;
 pub mod handoff;
+pub mod isosurface;
 pub mod kmc;
 pub mod landscape;
 pub mod lattice;
