@@ -157,7 +157,14 @@ pub struct BuiltFramework {
     /// Plain sentences describing the construction, recorded in the CIF.
     pub construction: Vec<String>,
     pub refinement: Refinement,
+    /// Metal-oxygen distance of the ideal octahedra (A).
+    pub metal_oxygen_a: f64,
 }
+
+/// What a built framework is and is not, for every output that shows one.
+pub const CAUTION: &str = "An idealised model of the framework type refined by bond valence, \
+    not a published or relaxed structure: use it to rank channels and capacities, then check \
+    candidates by DFT or experiment.";
 
 /// What can go wrong building a framework. Every message names the spec.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
