@@ -139,7 +139,8 @@ fn the_tetragonal_bronze_gives_one_dimensional_channels_along_c() {
 /// Nb12WO33 = 12 + 1 metals and 36 - 7 + 4 = 33 O; 4 x 5 tetrahedral: Nb16W5O55 (W on the
 /// tetrahedral site and 4 W among 20 octahedra: 80 + 30 = 110 = 2 x 55). Bronzes: the hexagonal
 /// cell holds W3O9 and one tunnel (K0.33WO3 full), the tetragonal W10O30 with two square and
-/// four pentagonal tunnels (K0.6WO3 full).
+/// four pentagonal tunnels (K0.6WO3 full), the intergrowth member W10O30 (two rows of five: one
+/// metal in the hexagonal row, two in each of the two slab rows) with two hexagonal tunnels.
 #[test]
 fn every_built_phase_holds_its_hand_counted_formula() {
     for (text, counts) in [
@@ -171,6 +172,10 @@ fn every_built_phase_holds_its_hand_counted_formula() {
         (
             "bronze:tetragonal:W:K0.4",
             vec![("K", 4.0), ("W", 10.0), ("O", 30.0)],
+        ),
+        (
+            "bronze:intergrowth:W:Cs0.1",
+            vec![("Cs", 1.0), ("W", 10.0), ("O", 30.0)],
         ),
     ] {
         let b = built(text);
@@ -226,7 +231,7 @@ fn building_twice_gives_identical_frameworks() {
     }
 }
 
-/// The 3 x 3, 3 x 4, 4 x 4 and 4 x 5 blocks and two bronzes all build and refine to a plausible
+/// The 3 x 3, 3 x 4, 4 x 4 and 4 x 5 blocks and the three bronzes all build and refine to a plausible
 /// geometry: no distance floor broken by more than 0.05 A, and site-averaged bond-valence sums
 /// within 0.2 v.u. of the valences (Salinas-Sanchez et al. 1992, as above). Mixed Nb/W sites
 /// keep a per-occupant GII floor that no geometry removes, so the site average is the measure.
@@ -243,6 +248,7 @@ fn a_family_of_blocks_and_two_bronzes_build_and_refine() {
         "block:4x5:tet:Nb,W:W",
         "bronze:hexagonal:W:K0.3",
         "bronze:tetragonal:W:K0.4",
+        "bronze:intergrowth:W:K0.2",
     ] {
         let b = built(text);
         let r = &b.refinement;

@@ -15,9 +15,9 @@
 //!   memory, checked by counting in the tests).
 //! - **Bronzes**: the hexagonal tungsten bronze (rings of six corner-sharing octahedra around
 //!   hexagonal tunnels along c, `M3O9` per cell), the tetragonal tungsten bronze (pentagonal,
-//!   square and triangular tunnels along c, `M10O30` per cell) and one intergrowth member (one
-//!   hexagonal-bronze slab between ReO3-type slabs; see [`geometry`]), each with an optional
-//!   tunnel cation.
+//!   square and triangular tunnels along c, `M10O30` per cell) and one intergrowth member
+//!   (single rows of hexagonal tunnels between ReO3-type slabs two octahedra thick, `M10O30`
+//!   per cell; see [`geometry`]), each with an optional tunnel cation.
 //!
 //! # How
 //! Octahedra of a chosen metal-oxygen distance on an ideal grid ([`geometry`]), then every free
