@@ -1,6 +1,7 @@
 #!/usr/bin/env bash
-# Renders the demo report in headless Chromium and checks that it draws something and logs no
-# console errors.
+# Renders the demo report in headless Chromium and checks that it draws something, that the 3D
+# view of the channel networks draws into its WebGL canvas (SwiftShader, Chromium's CPU
+# renderer: no GPU needed), and that nothing logs to the console.
 #
 #   HOPMAP_BIN=path/to/hopmap tools/check_report.sh      (default: target/release/hopmap)
 #
@@ -51,7 +52,9 @@ chrome() {
     # $1: page, $2: extra flag (--screenshot=... or --dump-dom), stdout: DOM when dumping
     local profile
     profile=$(mktemp -d)
-    timeout 90 chromium --headless --no-sandbox --disable-gpu --disable-quic --no-first-run \
+    # WebGL on the CPU: ANGLE over SwiftShader (which Chromium only enables when asked)
+    timeout 90 chromium --headless --no-sandbox --use-angle=swiftshader --enable-unsafe-swiftshader \
+        --disable-quic --no-first-run --virtual-time-budget=5000 \
         --disable-background-networking --disable-component-update --disable-sync \
         --disable-dev-shm-usage --hide-scrollbars --user-data-dir="$profile" \
         --enable-logging=stderr --v=0 --window-size=1280,2400 "$2" "file://$PWD/$OUT/demo/$1"
@@ -71,8 +74,8 @@ for p in "${pages[@]}"; do
 
     # Console messages: Chromium logs every message of the page as a "CONSOLE" line (at INFO
     # level whatever the console level, so console.error cannot be told apart by its tag).
-    # The reports carry no script, so any console line at all (an uncaught exception, a failed
-    # resource load, a refused fetch) is an error.
+    # The only script of a report (the 3D view) logs nothing, so any console line at all (an
+    # uncaught exception, a failed resource load, a refused fetch, a WebGL warning) is an error.
     if grep -Eq 'CONSOLE|Uncaught' "$OUT/$name.log"; then
         grep -E 'CONSOLE|Uncaught' "$OUT/$name.log" >&2
         fail "$p logs console messages (errors, failed loads or exceptions)"
@@ -145,6 +148,19 @@ if page != "report.html":
 for s in need:
     if s not in dom:
         sys.exit(f"{page}: the rendered DOM lacks {s}")
+if page != "report.html":
+    # The 3D view drew into its canvas: the script marks the canvas with the number of pixels
+    # that differ from the background after the first frame (read back with gl.readPixels).
+    import re
+    if 'id="v3d-canvas"' in dom:
+        if 'class="v3d webgl"' not in dom:
+            sys.exit(f"{page}: the 3D view did not start (no WebGL, or the script failed)")
+        m = re.search(r'data-drawn-pixels="(\d+)"', dom)
+        if not m or int(m.group(1)) < 5000:
+            sys.exit(f"{page}: the 3D canvas is blank ({m.group(1) if m else 'no'} drawn pixels)")
+        print(f"  {page}: 3D canvas drew {m.group(1)} pixels", file=sys.stderr)
+    elif 'id="view3d"' not in dom:
+        sys.exit(f"{page}: the report has no 3D section")
 nsvg = dom.count("<svg")
 if page != "report.html" and nsvg < 3:
     sys.exit(f"{page}: only {nsvg} inline svg elements in the DOM")

@@ -1,8 +1,10 @@
 //! The self-contained HTML report of one analysis: one file with inline CSS and inline SVG
-//! figures, no scripts, no fonts, nothing fetched from a network.
+//! figures, one inline script (the 3D view of [`super::viewer`], which falls back to a static
+//! SVG), no fonts, nothing fetched from a network.
 //!
 //! Order of the page: the answer in one sentence; the structure and its valence check; the
 //! channels of the site-energy landscape (eV) and of the valence-mismatch landscape (v.u.);
+//! the channel networks in 3D;
 //! slices of the energy landscape through the lowest channel; the energy profile of every
 //! channel; sites and hops; transport estimates with their assumptions; capacity; every
 //! parameter with its source; warnings; cautions. Every number carries its unit.
@@ -56,9 +58,10 @@ pub fn page(title: &str, header: &str, body: &str) -> String {
     format!(
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n\
          <meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n\
-         <title>{}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n<header><div class=\"inner\">\n{header}</div></header>\n\
+         <title>{}</title>\n<style>{STYLE}{}</style>\n</head>\n<body>\n<header><div class=\"inner\">\n{header}</div></header>\n\
          <main>\n{body}</main>\n</body>\n</html>\n",
-        esc(title)
+        esc(title),
+        super::viewer::STYLE
     )
 }
 
@@ -453,13 +456,16 @@ fn channels_section(a: &Analysis, o: &mut String) {
             }
         );
     }
+    let Some(mismatch) = &a.mismatch_percolation else {
+        return;
+    };
     let _ = writeln!(
         o,
         "<h2 id=\"mismatch\">Channels in the valence-mismatch landscape</h2>\n<p class=\"note\">The \
          same sweep over |ΔV(r)| = |Σ s(r) − V<sub>A</sub>|, the mismatch between the bond-valence \
          sum of the probe and its valence, in valence units (v.u.).</p>"
     );
-    channel_table(&a.mismatch_percolation, "v.u.", o);
+    channel_table(mismatch, "v.u.", o);
 }
 
 fn figure_html(f: &ReportFigure, n: usize) -> String {
@@ -1079,6 +1085,7 @@ pub fn report(a: &Analysis, file: &str) -> String {
     header.push_str(
         "<nav><a href=\"#structure\">structure</a><a href=\"#valence\">valence check</a>\
          <a href=\"#channels\">channels</a><a href=\"#mismatch\">valence mismatch</a>\
+         <a href=\"#view3d\">3D view</a>\
          <a href=\"#landscape\">landscape</a><a href=\"#profiles\">profiles</a>\
          <a href=\"#sites\">sites</a><a href=\"#hops\">hops</a><a href=\"#transport\">transport</a>\
          <a href=\"#capacity\">capacity</a><a href=\"#parameters\">parameters</a>\
@@ -1088,6 +1095,7 @@ pub fn report(a: &Analysis, file: &str) -> String {
     let mut o = String::new();
     structure_section(a, file, &mut o);
     channels_section(a, &mut o);
+    o.push_str(&super::viewer::section(a));
 
     let numbered: Vec<(usize, &ReportFigure)> =
         figs.iter().enumerate().map(|(i, f)| (i + 1, f)).collect();

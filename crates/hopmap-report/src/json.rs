@@ -393,7 +393,7 @@ fn paths_raw(a: &Analysis, file: &str) -> Value {
         "lowest_energy_ev": p.lowest.map(|x| round(x as f64, 4)),
         "channels": channels(p, "ev"),
         "channel_families": families(p, "ev"),
-        "mismatch_channels": channels(&a.mismatch_percolation, "vu"),
+        "mismatch_channels": a.mismatch_percolation.as_ref().map(|m| channels(m, "vu")),
         "site_graph_agrees": a.graph_percolation.as_ref().map(|g| (1..=3).all(|d| g.energy(d) == p.energy(d))),
         "sites": sites,
         "site_orbits": net.map(|n| n.orbits.iter().map(|o| json!({

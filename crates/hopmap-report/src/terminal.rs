@@ -178,8 +178,10 @@ pub fn paths(a: &Analysis, file: &str) -> String {
     }
     let _ = writeln!(o, "\n  channels (site energy):");
     channel_table(&mut o, &a.percolation, "eV");
-    let _ = writeln!(o, "\n  channels (valence mismatch):");
-    channel_table(&mut o, &a.mismatch_percolation, "v.u.");
+    if let Some(mismatch) = &a.mismatch_percolation {
+        let _ = writeln!(o, "\n  channels (valence mismatch):");
+        channel_table(&mut o, mismatch, "v.u.");
+    }
     if let Some(net) = &a.network {
         let _ = writeln!(
             o,

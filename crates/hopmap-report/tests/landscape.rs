@@ -153,6 +153,14 @@ fn close(a: f64, b: f64, rel: f64) -> bool {
     (a - b).abs() <= rel * b.abs().max(1e-3)
 }
 
+/// Agreement of the f32 grid kernel with the f64 evaluation: 1e-5 relative, or absolute below
+/// 1 (eV or v.u.): sums of terms of order 1 in f32 carry absolute errors of order 1e-7 even where
+/// they cancel to nearly zero. Symmetry-equivalent points computed in different blocks agree to
+/// the same figure, not to the last bit.
+fn grid_close(a: f64, b: f64) -> bool {
+    (a - b).abs() <= 1e-5 * b.abs().max(1.0)
+}
+
 /// Deterministic pseudo-random numbers in [0, 1).
 struct Lcg(u64);
 impl Lcg {
@@ -200,14 +208,14 @@ fn one_anion_and_one_cation_give_the_closed_form_energy() {
         let s = ((LI_O_R0 - r_o) / LI_O_B).exp();
         assert!(close(dv, (s - 1.0).abs(), 1e-12), "dV({x}, {y}) = {dv}");
     }
-    // The grid along a (0.1 A spacing) carries the same values, to f32 precision.
+    // The grid along a (0.1 A spacing) carries the same values, to the f32 kernel's precision.
     let land = compute(&m, [200, 4, 4], &Progress::Silent).unwrap();
     for i in 12..=44 {
         let x = i as f64 * 0.1;
         let e = land.energy.get(i, 0, 0) as f64;
         let want = closed(x, 5.0 - x).min(m.energy_cap);
         assert!(
-            close(e, want, 1e-6),
+            grid_close(e, want),
             "grid E at x = {x}: {e}, closed form {want}"
         );
     }
@@ -262,7 +270,7 @@ fn a_commensurate_shift_of_the_framework_shifts_the_grid_by_whole_voxels() {
                 (j + shift[1]) % dims[1],
                 (k + shift[2]) % dims[2],
             ) as f64;
-            assert!(close(v1, v0, 1e-6), "point {i} {j} {k}: {v0} vs {v1}");
+            assert!(grid_close(v1, v0), "point {i} {j} {k}: {v0} vs {v1}");
         }
     }
 }
@@ -280,7 +288,7 @@ fn symmetry_equivalent_points_of_rock_salt_carry_equal_values() {
             for [a, b, c] in [[j, k, i], [neg(i), neg(j), neg(k)], [j, i, k]] {
                 let w = g.get(a, b, c) as f64;
                 assert!(
-                    close(w, v, 1e-6),
+                    grid_close(w, v),
                     "({i},{j},{k}) = {v} but ({a},{b},{c}) = {w}"
                 );
             }
@@ -337,12 +345,9 @@ fn grid_values_agree_with_single_point_evaluation() {
             land.mismatch.values[idx] as f64,
             land.energy.values[idx] as f64,
         );
+        assert!(grid_close(ge, e), "energy at {ijk:?}: grid {ge}, point {e}");
         assert!(
-            close(ge, e, 1e-6),
-            "energy at {ijk:?}: grid {ge}, point {e}"
-        );
-        assert!(
-            close(gdv, dv, 1e-6),
+            grid_close(gdv, dv),
             "mismatch at {ijk:?}: grid {gdv}, point {dv}"
         );
         if e < m.energy_cap {

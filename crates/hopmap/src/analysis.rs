@@ -96,6 +96,10 @@ pub struct AnalysisOptions {
     pub rate: RateOptions,
     /// Skip the site network, profiles and estimates (percolation only: calibration, screening).
     pub percolation_only: bool,
+    /// Percolate the valence-mismatch grid as well (the second channel table of the reports).
+    /// Screening and calibration never read it and turn it off: it is a quarter to a third of
+    /// the CPU after the grid.
+    pub mismatch_channels: bool,
     /// Memory and time the grid of one structure may take ([`crate::limits::plan_grid`]).
     pub budget: crate::limits::Budget,
 }
@@ -111,6 +115,7 @@ impl AnalysisOptions {
             progress: Progress::Silent,
             rate: RateOptions::default(),
             percolation_only: false,
+            mismatch_channels: true,
             budget: crate::limits::Budget::default(),
         }
     }
@@ -342,8 +347,9 @@ pub struct Analysis {
     pub landscape: Landscape,
     /// Percolation of the site-energy grid (eV).
     pub percolation: Percolation,
-    /// Percolation of the valence-mismatch grid (v.u.).
-    pub mismatch_percolation: Percolation,
+    /// Percolation of the valence-mismatch grid (v.u.); None when the caller asked not to
+    /// compute it ([`AnalysisOptions::mismatch_channels`]).
+    pub mismatch_percolation: Option<Percolation>,
     pub network: Option<Network>,
     /// The site graph's own percolation (must equal `percolation`).
     pub graph_percolation: Option<Percolation>,
@@ -595,7 +601,10 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     // the two percolations are independent: one on each core
     let (percolation, mismatch_percolation) = rayon::join(
         || percolation::percolate_marked(&land.energy, ceiling, &marks),
-        || percolation::percolate(&land.mismatch, model.mismatch_cap as f32),
+        || {
+            opts.mismatch_channels
+                .then(|| percolation::percolate(&land.mismatch, model.mismatch_cap as f32))
+        },
     );
     deeper_void_warning(&percolation, &land.energy, &mut warnings);
     timings.push(("percolation", t.elapsed().as_secs_f64()));

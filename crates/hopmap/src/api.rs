@@ -158,6 +158,7 @@ pub struct OptionsBuilder {
     diffusivity_m2_s: Option<f64>,
     progress: Progress,
     percolation_only: bool,
+    mismatch_channels: bool,
 }
 
 impl AnalysisOptions {
@@ -173,6 +174,7 @@ impl AnalysisOptions {
             diffusivity_m2_s: None,
             progress: Progress::Silent,
             percolation_only: false,
+            mismatch_channels: true,
         }
     }
 }
@@ -245,6 +247,12 @@ impl OptionsBuilder {
         self
     }
 
+    /// Percolate the valence-mismatch grid too (default yes); screening turns it off.
+    pub fn mismatch_channels(mut self, yes: bool) -> Self {
+        self.mismatch_channels = yes;
+        self
+    }
+
     /// Checks every value and builds the options. Errors name the option.
     pub fn build(self) -> Result<AnalysisOptions, Error> {
         let ion = Element::from_symbol(self.ion.trim()).ok_or_else(|| {
@@ -270,6 +278,7 @@ impl OptionsBuilder {
         o.exclude_labels = self.exclude_labels;
         o.progress = self.progress;
         o.percolation_only = self.percolation_only;
+        o.mismatch_channels = self.mismatch_channels;
         o.rate = RateOptions {
             measured_diffusion: self.diffusivity_m2_s.map(|d| (d, self.rate.temperature_k)),
             ..self.rate

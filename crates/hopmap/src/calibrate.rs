@@ -326,6 +326,7 @@ pub fn evaluate(r: &Reference, base: &AnalysisOptions) -> Result<Outcome, Calibr
     let mut opts = base.clone();
     opts.ion = r.ion;
     opts.percolation_only = true;
+    opts.mismatch_channels = false;
     opts.progress = Progress::Silent;
     let a = analysis::analyse(&r.structure, &opts).map_err(|e| CalibrationError::Analysis {
         name: r.name.clone(),

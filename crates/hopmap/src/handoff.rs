@@ -29,7 +29,7 @@ use crate::element::Element;
 use crate::landscape::evaluate_point;
 use crate::lattice::{Frac, Lattice};
 use crate::network::merge::MERGE_DEPTH_EV;
-use crate::network::profile::{Profile, path_between};
+use crate::network::profile::{Profile, TIE_TOLERANCE, path_between};
 use crate::spacegroup::SymOp;
 use crate::structure::{AsymmetricSite, Occupant, Site, Species, Structure, SymmetryInfo};
 use nalgebra::{Matrix3, Vector3};
@@ -584,7 +584,10 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
                 .hops
                 .iter()
                 .enumerate()
-                .filter(|(_, h)| h.saddle_energy == profile.points[k].energy)
+                .filter(|(_, h)| {
+                    let e = profile.points[k].energy;
+                    (h.saddle_energy - e).abs() <= TIE_TOLERANCE * e.abs().max(1.0)
+                })
                 .min_by(|x, y| {
                     lat.periodic_distance(x.1.saddle, Frac(top))
                         .total_cmp(&lat.periodic_distance(y.1.saddle, Frac(top)))
@@ -620,11 +623,6 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
                 count: net.hops.len(),
             })?;
             let (sa, sb) = (&net.sites[hop.from], &net.sites[hop.to]);
-            let img = Vector3::new(
-                hop.image[0] as f64,
-                hop.image[1] as f64,
-                hop.image[2] as f64,
-            );
             let path = path_between(
                 grid,
                 sa.voxel,
@@ -658,8 +656,11 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
                 }
                 (f, None)
             };
-            let (c0, l0) = end_of(sa.frac.0);
-            let (c1, l1) = end_of(sb.frac.0 + img);
+            // the copies of the two sites at the ends of the grid path (a site refined to
+            // just below a cell face is stored wrapped to the far side of the cell)
+            let (first, last) = (pts[0], pts[pts.len() - 1]);
+            let (c0, l0) = end_of(nearest_copy(first, sa.frac.0));
+            let (c1, l1) = end_of(nearest_copy(last, sb.frac.0));
             if mode == Mode::Vacancy && (l0.is_none() || l1.is_none()) {
                 return Err(HandoffError::Mode(format!(
                     "hop {index} does not run between two sites the file's {ion} occupies, so there is no vacancy hop; use interstitial mode"

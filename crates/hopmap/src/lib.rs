@@ -23,6 +23,7 @@ mod element_table;
 pub mod filling;
 pub mod grid;
 pub mod handoff;
+pub mod isosurface;
 pub mod kmc;
 pub mod landscape;
 pub mod lattice;

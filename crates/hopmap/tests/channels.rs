@@ -986,14 +986,25 @@ fn assert_profiles_peak_at_their_thresholds(p: &Percolation, profiles: &[network
         for (q, tr) in mine.iter().zip(&translations) {
             assert_eq!(q.translation, *tr);
             assert_eq!(q.start_voxel, t.channel.lowest_point);
-            assert!(q.bottleneck <= t.energy, "{}D {tr:?}", t.dimension);
+            assert!(q.bottleneck <= tied(t.energy), "{}D {tr:?}", t.dimension);
         }
         let top = mine
             .iter()
             .map(|q| q.bottleneck)
             .fold(f32::NEG_INFINITY, f32::max);
-        assert_eq!(top, t.energy, "{}D", t.dimension);
+        assert!(
+            top >= t.energy && top <= tied(t.energy),
+            "{}D: {top} against {}",
+            t.dimension,
+            t.energy
+        );
     }
+}
+
+/// The highest value that still ties with `e` (`profile::TIE_TOLERANCE`: symmetry-equivalent
+/// points of the f32 grid differ by a few units in the last place).
+fn tied(e: f32) -> f32 {
+    e + network::profile::TIE_TOLERANCE * e.abs().max(1.0)
 }
 
 #[test]

@@ -89,6 +89,35 @@ pub struct PathsArgs {
     /// Write the report's figures as standalone SVG files into this folder
     #[arg(long, value_name = "DIR")]
     pub figures: Option<PathBuf>,
+    /// Write the channel networks as 3D surfaces into this folder: glTF binary and PLY meshes
+    /// in Cartesian angstroms, the atoms as extended XYZ, and mesh.json
+    #[arg(long, value_name = "DIR")]
+    pub mesh: Option<PathBuf>,
+    /// Cells along a, b, c drawn by --mesh (each 1-6)
+    #[arg(long, value_name = "NA,NB,NC", default_value = "2,2,2")]
+    pub mesh_cells: String,
+}
+
+/// Parses `--mesh-cells` ("2,2,2", or one number for all three axes), each 1-6.
+pub fn parse_mesh_cells(s: &str) -> Result<[usize; 3], Failure> {
+    let bad = || {
+        Failure::Usage(format!(
+            "--mesh-cells '{s}': give three whole numbers from 1 to 6, e.g. 2,2,2"
+        ))
+    };
+    let parts: Vec<usize> = s
+        .split(',')
+        .map(|p| p.trim().parse::<usize>().map_err(|_| bad()))
+        .collect::<Result<_, _>>()?;
+    let cells = match parts.as_slice() {
+        [n] => [*n; 3],
+        [a, b, c] => [*a, *b, *c],
+        _ => return Err(bad()),
+    };
+    if cells.iter().any(|&n| !(1..=6).contains(&n)) {
+        return Err(bad());
+    }
+    Ok(cells)
 }
 
 #[derive(Args, Debug)]
@@ -220,6 +249,10 @@ pub fn run_paths(g: &GlobalOpts, a: PathsArgs) -> CmdResult {
     if let Some(dir) = &a.figures {
         super::prepare_output_dir(dir)?;
     }
+    let mesh_cells = parse_mesh_cells(&a.mesh_cells)?;
+    if let Some(dir) = &a.mesh {
+        super::prepare_output_dir(dir)?;
+    }
     let opts = options(g, &a.model, &a.rate)?;
     let an = run_analysis(g, &a.input, &opts)?;
     let file = a.input.file.display().to_string();
@@ -250,6 +283,20 @@ pub fn run_paths(g: &GlobalOpts, a: PathsArgs) -> CmdResult {
         }
         if !g.quiet {
             eprintln!("figures written to {}", dir.display());
+        }
+    }
+    if let Some(dir) = &a.mesh {
+        let written = hopmap_report::mesh::write_folder(dir, &an, &file, mesh_cells)
+            .map_err(|e| format!("cannot write the meshes into {}: {e}", dir.display()))?;
+        if !g.quiet {
+            eprintln!(
+                "{} mesh files ({} x {} x {} cells) written to {}",
+                written.len(),
+                mesh_cells[0],
+                mesh_cells[1],
+                mesh_cells[2],
+                dir.display()
+            );
         }
     }
     Ok(())

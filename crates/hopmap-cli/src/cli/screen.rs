@@ -195,6 +195,8 @@ pub fn run(g: &GlobalOpts, a: ScreenArgs) -> CmdResult {
         let mut o = super::analyse::options(&quiet, &m, &base_rate).map_err(|e| match e {
             Failure::Analysis(s) | Failure::Usage(s) => s,
         })?;
+        // the table has no column from the valence-mismatch channels: not computed
+        o.mismatch_channels = false;
         o.budget = hopmap::limits::Budget {
             max_memory_bytes: (max_memory_gb * 1e9) as u64,
             max_seconds: Some(time_limit),

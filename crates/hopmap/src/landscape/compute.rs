@@ -672,13 +672,12 @@ pub fn compute(
     dims: [usize; 3],
     progress: &Progress,
 ) -> Result<Landscape, Cancelled> {
-    // The f64 loop, not the f32 vector kernel: rounded once to f32, the values of
-    // symmetry-equivalent points come out equal, and the channel profiles rely on equivalent
-    // saddles tying exactly (the cubic spinel's paths along a, b and c). The f32 kernel
-    // computes each point relative to its block and differs by a few units in the last place
-    // between equivalent points; it serves `compute_with_isa` and `compute_mismatch` until the
-    // stages after the grid tolerate such differences.
-    compute_f64(model, dims, progress)
+    // The f32 vector kernel on the best instruction set of the processor. It computes each
+    // point relative to its block, so symmetry-equivalent points may differ by a few units in
+    // the last place (within 1e-5 relative of the f64 reference, tested); the stages after the
+    // grid do not rely on exact ties (the channel profiles open voxels within
+    // `profile::TIE_TOLERANCE` of the bottleneck).
+    compute_with_isa(model, dims, progress, Isa::detect())
 }
 
 /// [`compute`] with the kernel compiled for a given instruction set (one of

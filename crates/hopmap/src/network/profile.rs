@@ -231,6 +231,11 @@ fn step(dir: usize) -> [i64; 3] {
 /// Pass 2: the path of least cost from `from` to `to` (unwrapped grid coordinates) through
 /// voxels whose key is at most `bkey`, by A* (see the estimate below). Returns the points of
 /// the path, `from` first; None when `to` is not reached within 511 cells of the start.
+/// Relative tolerance (of the value, or absolute below 1) within which a voxel ties with the
+/// bottleneck: symmetry-equivalent points of the f32 grid differ by a few units in the last
+/// place (about 1e-7 relative); 1e-5 is the kernel's tested agreement with the f64 reference.
+pub const TIE_TOLERANCE: f32 = 1e-5;
+
 fn least_cost_path(
     grid: &Grid,
     from: [i64; 3],
@@ -254,10 +259,13 @@ fn least_cost_path(
     let level = values[(bkey & 0xffff_ffff) as usize];
     let bval = level as f64;
     let span = (bval - e0).max(1e-30);
-    // Open voxels: energy at most the bottleneck's. Compared by energy, not by key, so that
-    // saddles tied with the bottleneck (the symmetry-equivalent ones of a cubic network) are
-    // all open, whatever their grid index, and equivalent directions get equivalent paths.
-    let open = |v: f32| v <= level;
+    // Open voxels: energy at most the bottleneck's, within a tie tolerance. Compared by
+    // energy, not by key, so that saddles tied with the bottleneck (the symmetry-equivalent
+    // ones of a cubic network) are all open, whatever their grid index, and equivalent
+    // directions get equivalent paths; the tolerance absorbs the last-place differences
+    // between equivalent points of the f32 grid.
+    let level_open = level + TIE_TOLERANCE * level.abs().max(1.0);
+    let open = |v: f32| v <= level_open;
     let steps: [f64; 3] = [0, 1, 2].map(|a| grid.lattice.vector(a).norm() / grid.dims[a] as f64);
     // The estimate of the remaining cost. A chain of face steps from p to `to` must step into
     // every layer of voxels (a plane of fixed index along an axis) between them, one step
