@@ -484,3 +484,45 @@ fn rate_raw(a: &Analysis, file: &str, particle_um: Option<f64>) -> Value {
         "cautions": CAUTIONS,
     })
 }
+
+/// `hopmap build --json`: a built framework (schema `hopmap.build/1`, see the README).
+pub fn build(b: &hopmap::build::BuiltFramework, cif_path: Option<&str>) -> Value {
+    tidy(build_raw(b, cif_path))
+}
+
+fn build_raw(b: &hopmap::build::BuiltFramework, cif_path: Option<&str>) -> Value {
+    let s = &b.structure;
+    let p = s.lattice.parameters();
+    let (z, formula) = s.formula_and_z();
+    let r = &b.refinement;
+    json!({
+        "schema": "hopmap.build/1",
+        "spec": b.spec.to_text(),
+        "label": b.spec.label(),
+        "formula": formula,
+        "z": z,
+        "space_group": s.symmetry.hm_symbol,
+        "space_group_number": s.symmetry.number,
+        "cell": {
+            "a_a": round(p.a, 4), "b_a": round(p.b, 4), "c_a": round(p.c, 4),
+            "alpha_deg": round(p.alpha, 3), "beta_deg": round(p.beta, 3),
+            "gamma_deg": round(p.gamma, 3), "volume_a3": round(s.volume(), 2),
+        },
+        "metal_oxygen_a": round(b.metal_oxygen_a, 4),
+        "refinement": {
+            "refined": r.iterations > 0,
+            "gii_vu": round(r.gii_vu, 4),
+            "initial_gii_vu": round(r.initial_gii_vu, 4),
+            "site_gii_vu": round(r.site_gii_vu, 4),
+            "initial_site_gii_vu": round(r.initial_site_gii_vu, 4),
+            "iterations": r.iterations,
+            "converged": r.converged,
+            "rms_shift_a": round(r.rms_shift_a, 4),
+            "max_floor_violation_a": round(r.max_floor_violation_a, 4),
+        },
+        "atoms_in_cell": s.sites.len(),
+        "construction": b.construction,
+        "cif": cif_path,
+        "caution": hopmap::build::CAUTION,
+    })
+}

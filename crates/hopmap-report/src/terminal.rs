@@ -524,3 +524,76 @@ pub fn valence(v: &ValenceReport, s: &Structure, note: Option<&str>) -> String {
     }
     o
 }
+
+/// `hopmap build`: what was built, its cell and symmetry, and how well the bond-valence sums
+/// meet the valences.
+pub fn build(b: &hopmap::build::BuiltFramework, cif_path: Option<&str>) -> String {
+    let mut o = String::new();
+    let s = &b.structure;
+    let p = s.lattice.parameters();
+    let (z, formula) = s.formula_and_z();
+    let r = &b.refinement;
+    let _ = writeln!(
+        o,
+        "{} ({}): {formula}, Z = {z}",
+        b.spec.to_text(),
+        b.spec.label()
+    );
+    let _ = writeln!(
+        o,
+        "  cell a = {:.4} A, b = {:.4} A, c = {:.4} A, alpha = {:.2} deg, beta = {:.2} deg, \
+         gamma = {:.2} deg, V = {:.1} A^3 ({} atoms)",
+        p.a,
+        p.b,
+        p.c,
+        p.alpha,
+        p.beta,
+        p.gamma,
+        s.volume(),
+        s.sites.len()
+    );
+    let _ = writeln!(
+        o,
+        "  space group {} ({}), found by a symmetry search on the built cell",
+        s.symmetry.hm_symbol.as_deref().unwrap_or("?"),
+        s.symmetry
+            .number
+            .map(|n| n.to_string())
+            .unwrap_or_else(|| "?".into())
+    );
+    if r.iterations > 0 {
+        let _ = writeln!(
+            o,
+            "  GII {:.3} -> {:.3} v.u. (each occupant against its own valence); site average \
+             {:.3} -> {:.3} v.u.; {} iterations{}, rms shift {:.3} A, largest floor violation \
+             {:.3} A",
+            r.initial_gii_vu,
+            r.gii_vu,
+            r.initial_site_gii_vu,
+            r.site_gii_vu,
+            r.iterations,
+            if r.converged {
+                ", converged"
+            } else {
+                ", not converged"
+            },
+            r.rms_shift_a,
+            r.max_floor_violation_a
+        );
+    } else {
+        let _ = writeln!(
+            o,
+            "  not refined: GII {:.3} v.u. (site average {:.3} v.u.) for the ideal octahedra",
+            r.gii_vu, r.site_gii_vu
+        );
+    }
+    let _ = writeln!(o, "  construction:");
+    for l in &b.construction {
+        let _ = writeln!(o, "    {l}");
+    }
+    if let Some(path) = cif_path {
+        let _ = writeln!(o, "  wrote {path}");
+    }
+    let _ = writeln!(o, "  {}", hopmap::build::CAUTION);
+    o
+}

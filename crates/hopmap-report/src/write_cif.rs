@@ -83,6 +83,74 @@ pub fn to_cif_p1(s: &Structure) -> String {
     out
 }
 
+/// The P 1 CIF of `s` with a record of how it was made, placed right after the data block
+/// line: `items` as `_hopmap_<name> value` pairs (values quoted when needed) and `lines` as
+/// one looped item `_hopmap_<loop_name>` of text fields, one per line. The `_hopmap_` prefix is
+/// a name of our own, so general CIF readers keep the values and ignore their meaning.
+pub fn to_cif_p1_recorded(
+    s: &Structure,
+    items: &[(&str, String)],
+    loop_name: &str,
+    lines: &[String],
+) -> String {
+    let base = to_cif_p1(s);
+    let mut record = String::new();
+    for (name, value) in items {
+        let _ = writeln!(record, "_hopmap_{name} {}", cif_value(value));
+    }
+    if !lines.is_empty() {
+        let _ = writeln!(record, "loop_\n_hopmap_{loop_name}");
+        for l in lines {
+            // a text field ends at a line starting with ';': keep every line clear of that
+            let text = l.replace('\n', " ");
+            let _ = writeln!(record, ";\n{}\n;", text.trim_start_matches(';'));
+        }
+    }
+    match base.find("\n_cell_length_a") {
+        Some(at) => format!("{}\n{record}{}", &base[..at], &base[at + 1..]),
+        None => base + &record,
+    }
+}
+
+/// The CIF of a built framework: the P 1 cell with the spec, the refinement's numbers and
+/// every construction line recorded (`_hopmap_build_*`).
+pub fn built_cif(b: &hopmap::build::BuiltFramework) -> String {
+    let r = &b.refinement;
+    let items = [
+        ("build_spec", b.spec.to_text()),
+        ("build_label", b.spec.label()),
+        ("build_metal_oxygen_a", format!("{:.4}", b.metal_oxygen_a)),
+        ("build_refined", (r.iterations > 0).to_string()),
+        ("build_iterations", r.iterations.to_string()),
+        ("build_gii_vu", format!("{:.4}", r.gii_vu)),
+        ("build_initial_gii_vu", format!("{:.4}", r.initial_gii_vu)),
+        ("build_site_gii_vu", format!("{:.4}", r.site_gii_vu)),
+    ];
+    to_cif_p1_recorded(&b.structure, &items, "build_construction", &b.construction)
+}
+
+/// A CIF value: bare when it is a plain word, otherwise quoted with a quote it does not hold,
+/// or a text field.
+fn cif_value(v: &str) -> String {
+    let plain = !v.is_empty()
+        && !v
+            .chars()
+            .any(|c| c.is_whitespace() || c == '\'' || c == '"')
+        && !v.starts_with(['_', '#', '$', ';', '[', ']'])
+        && !["loop_", "stop_", "global_"].contains(&v.to_ascii_lowercase().as_str())
+        && !v.to_ascii_lowercase().starts_with("data_")
+        && !v.to_ascii_lowercase().starts_with("save_");
+    if plain {
+        v.to_string()
+    } else if !v.contains('\'') && !v.contains('\n') {
+        format!("'{v}'")
+    } else if !v.contains('"') && !v.contains('\n') {
+        format!("\"{v}\"")
+    } else {
+        format!("\n;\n{v}\n;")
+    }
+}
+
 /// Writes the P 1 CIF of `s` to `path` through a temporary file in the same directory, renamed
 /// into place, so that a failed write never leaves a partial file.
 pub fn write_cif_p1(path: impl AsRef<Path>, s: &Structure) -> std::io::Result<()> {

@@ -9,6 +9,7 @@ macro_rules! outln {
 }
 
 mod analyse;
+mod build;
 mod calibrate;
 mod demo;
 mod family;
@@ -58,6 +59,9 @@ pub enum Command {
     Inspect(inspect::InspectArgs),
     /// Bond-valence sums per site, global instability index and a verdict on the structure
     Valence(valence::ValenceArgs),
+    /// Build an idealised oxide framework (shear block phase or bronze) refined by bond
+    /// valence, and write it as CIF
+    Build(build::BuildArgs),
     /// Compute the energy and valence-mismatch grids of a mobile ion and export them
     Grid(grid::GridArgs),
     /// The main job: channels (1D/2D/3D), barriers, sites, hops, rate and capacity estimates
@@ -126,6 +130,7 @@ pub fn run() -> ExitCode {
     let result = match cli.command {
         Command::Inspect(a) => inspect::run(&g, a),
         Command::Valence(a) => valence::run(&g, a),
+        Command::Build(a) => build::run(&g, a),
         Command::Grid(a) => grid::run(&g, a),
         Command::Paths(a) => analyse::run_paths(&g, a),
         Command::Rate(a) => analyse::run_rate(&g, a),

@@ -35,6 +35,8 @@
 //!   with x, y and a fixed by asking every metal-metal link to be d (x = 0.0797, y = 0.2026,
 //!   a = 3.248 d; solved here by Newton's method); square tunnels at (0, 0), (1/2, 1/2),
 //!   pentagonal tunnels at the four images of (t, 1/2 + t) farthest from the metals.
+//! - Intergrowth (Cmmm ideal): single rows of hexagonal tunnels between ReO3-type slabs two
+//!   octahedra thick (see [`intergrowth`]).
 
 use super::{BlockJoin, BronzeKind, BuildError, BuildOptions, FrameworkSpec, Mix, max_state};
 use crate::bv::{PairRole, ParameterTable};
@@ -66,7 +68,7 @@ pub fn bronze_counts(kind: BronzeKind) -> BronzeCounts {
         BronzeKind::Intergrowth => BronzeCounts {
             metals: 10,
             oxygens: 30,
-            tunnel_sites: 1,
+            tunnel_sites: 2,
         },
     }
 }
@@ -208,11 +210,7 @@ pub fn ideal(spec: &FrameworkSpec, options: &BuildOptions) -> Result<Ideal, Buil
             match kind {
                 BronzeKind::Hexagonal => hexagonal(oct, cation, r).map_err(fail),
                 BronzeKind::Tetragonal => tetragonal(oct, cation, r).map_err(fail),
-                BronzeKind::Intergrowth => Err(fail(
-                    "intergrowth bronzes are not built yet; build the hexagonal and tetragonal \
-                     bronzes"
-                        .into(),
-                )),
+                BronzeKind::Intergrowth => intergrowth(oct, cation, r).map_err(fail),
             }
         }
     }
@@ -792,6 +790,55 @@ fn tetragonal(oct: Vec<Occ>, cation: Option<Occ>, r: f64) -> Result<Ideal, Strin
         ),
         bronze_counts(BronzeKind::Tetragonal),
     )
+}
+
+/// The intergrowth bronze of single rows of hexagonal tunnels between ReO3-type slabs two
+/// octahedra thick, ideal Cmmm. In the plane (units of d, x along a): a row of the hexagonal
+/// bronze (metals at x = 1, hexagonal tunnels at x = 0, y = 0), the straight metal line above it
+/// at y = sqrt(3)/2 (x = 1/2, 3/2), the next line one repeat up (the ReO3 slab), then the next
+/// hexagonal row, shifted by one along x as in the hexagonal bronze itself (centring
+/// (1, sqrt 3 + 1)). Cell a = 2d, b = 2 (sqrt 3 + 1) d, c = d; W10O30 and two hexagonal tunnels
+/// per cell. Each metal keeps four links of length d in the plane.
+fn intergrowth(oct: Vec<Occ>, cation: Option<Occ>, r: f64) -> Result<Ideal, String> {
+    let h = (3.0f64).sqrt() / 2.0;
+    let period = 2.0 * h + 1.0;
+    let grid = Matrix3::new(2.0, 0.0, 0.0, 0.0, 2.0 * period, 0.0, 0.0, 0.0, 1.0);
+    let mut pos = Positions::new(&grid);
+    for shift in [Vector3::zeros(), Vector3::new(1.0, period, 0.0)] {
+        for p in [
+            Vector3::new(1.0, 0.0, 0.0),
+            Vector3::new(0.5, h, 0.0),
+            Vector3::new(1.5, h, 0.0),
+            Vector3::new(0.5, h + 1.0, 0.0),
+            Vector3::new(1.5, h + 1.0, 0.0),
+        ] {
+            pos.add(p + shift, Role::Octahedral, &oct);
+        }
+    }
+    let inverse = grid.try_inverse().expect("a cell with volume");
+    let tunnels = [
+        Vector3::new(0.0, 0.0, 0.5),
+        inverse * Vector3::new(1.0, period, 0.0) + Vector3::new(0.0, 0.0, 0.5),
+    ];
+    bronze_finish(
+        grid,
+        pos,
+        &tunnels,
+        cation,
+        r,
+        "intergrowth tungsten bronze: single rows of hexagonal tunnels between ReO3-type slabs \
+         two octahedra thick, tunnels along c (ideal Cmmm, a = 2d, b = 2 (sqrt 3 + 1) d, c = d)"
+            .into(),
+        bronze_counts(BronzeKind::Intergrowth),
+    )
+    .map(|mut ideal| {
+        ideal.strains = vec![
+            Matrix3::new(1.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0),
+            Matrix3::new(0.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0),
+            Matrix3::new(0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 1.0),
+        ];
+        ideal
+    })
 }
 
 #[cfg(test)]

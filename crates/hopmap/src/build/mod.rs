@@ -15,9 +15,9 @@
 //!   memory, checked by counting in the tests).
 //! - **Bronzes**: the hexagonal tungsten bronze (rings of six corner-sharing octahedra around
 //!   hexagonal tunnels along c, `M3O9` per cell), the tetragonal tungsten bronze (pentagonal,
-//!   square and triangular tunnels along c, `M10O30` per cell) and one intergrowth member (one
-//!   hexagonal-bronze slab between ReO3-type slabs; see [`geometry`]), each with an optional
-//!   tunnel cation.
+//!   square and triangular tunnels along c, `M10O30` per cell) and one intergrowth member
+//!   (single rows of hexagonal tunnels between ReO3-type slabs two octahedra thick, `M10O30`
+//!   per cell; see [`geometry`]), each with an optional tunnel cation.
 //!
 //! # How
 //! Octahedra of a chosen metal-oxygen distance on an ideal grid ([`geometry`]), then every free
@@ -157,7 +157,14 @@ pub struct BuiltFramework {
     /// Plain sentences describing the construction, recorded in the CIF.
     pub construction: Vec<String>,
     pub refinement: Refinement,
+    /// Metal-oxygen distance of the ideal octahedra (A).
+    pub metal_oxygen_a: f64,
 }
+
+/// What a built framework is and is not, for every output that shows one.
+pub const CAUTION: &str = "An idealised model of the framework type refined by bond valence, \
+    not a published or relaxed structure: use it to rank channels and capacities, then check \
+    candidates by DFT or experiment.";
 
 /// What can go wrong building a framework. Every message names the spec.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]

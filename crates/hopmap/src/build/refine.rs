@@ -697,6 +697,7 @@ pub fn finish(
         spec: spec.clone(),
         construction,
         refinement,
+        metal_oxygen_a: ideal.metal_oxygen_a,
     })
 }
 
