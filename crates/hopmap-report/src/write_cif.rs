@@ -254,6 +254,66 @@ mod tests {
         assert_eq!(format_number(1.0 / 3.0), "0.333333");
     }
 
+    /// Record values with quotes, semicolons, CIF reserved words and line starts that would
+    /// open a text field read back unchanged with hopmap's CIF grammar (a CIF 1.1 reader), and
+    /// the structure still reads.
+    #[test]
+    fn a_recorded_cif_reads_back_with_every_value() {
+        let doc = hopmap::cif::parse(
+            b"data_x\n_cell_length_a 4\n_cell_length_b 4\n_cell_length_c 4\n\
+              _cell_angle_alpha 90\n_cell_angle_beta 90\n_cell_angle_gamma 90\n_space_group_IT_number 1\n\
+              loop_\n_atom_site_label\n_atom_site_type_symbol\n_atom_site_fract_x\n\
+              _atom_site_fract_y\n_atom_site_fract_z\nNa1 Na+ 0 0 0\nCl1 Cl- 0.5 0.5 0.5\n",
+        )
+        .unwrap();
+        let block = hopmap::read::cif::blocks_with_atoms(&doc)[0];
+        let s = hopmap::read::cif::structure_from_block(block, "x").unwrap();
+        let odd = [
+            "plain",
+            "two words",
+            "it's",
+            "say \"it's\"",
+            "loop_",
+            "data_x",
+            "_tag",
+            "",
+        ];
+        let items: Vec<(&str, String)> = ["a", "b", "c", "d", "e", "f", "g", "h"]
+            .iter()
+            .zip(odd)
+            .map(|(k, v)| (*k, v.to_string()))
+            .collect();
+        let lines = vec![
+            "first; second".to_string(),
+            ";starts a text field".to_string(),
+            "'quoted' \"both\"".to_string(),
+        ];
+        let text = to_cif_p1_recorded(&s, &items, "steps", &lines);
+        let back = hopmap::cif::parse(text.as_bytes()).unwrap_or_else(|e| panic!("{e:?}\n{text}"));
+        let block = &back.blocks[0];
+        for ((k, _), want) in items.iter().zip(odd) {
+            let got = block
+                .value(&format!("_hopmap_{k}"))
+                .and_then(|v| v.as_str())
+                .unwrap_or("");
+            assert_eq!(got.trim(), want, "{k}");
+        }
+        let lp = block.find_loop("_hopmap_steps").unwrap();
+        assert_eq!(lp.row_count(), 3);
+        assert_eq!(
+            lp.get(1, "_hopmap_steps")
+                .and_then(|v| v.as_str())
+                .map(str::trim),
+            Some("starts a text field")
+        );
+        let again = hopmap::read::cif::structure_from_block(
+            hopmap::read::cif::blocks_with_atoms(&back)[0],
+            "x",
+        )
+        .unwrap();
+        assert_eq!(again.sites.len(), s.sites.len());
+    }
+
     #[test]
     fn block_names_have_no_spaces() {
         assert_eq!(block_name("Li Fe P O4"), "Li_Fe_P_O4");
