@@ -209,3 +209,46 @@ fn a_family_where_nothing_can_be_answered_fails_and_says_why() {
     assert_eq!(doc["members"][0]["error"]["file"], "no/such/one.cif");
     no_temporaries(&out);
 }
+
+/// Every key of `family.json` (members and their nested objects included) is documented in the
+/// README's `hopmap.family/1` section.
+#[test]
+fn every_json_key_is_documented_in_the_readme() {
+    let readme = std::fs::read_to_string(root("README.md")).unwrap();
+    let start = readme
+        .find("### `hopmap family`")
+        .expect("a README section for hopmap family");
+    let rest = &readme[start + 4..];
+    let section = &rest[..rest.find("\n### ").unwrap_or(rest.len())];
+    let dir = tmp("family", "schema");
+    // a built member too, for the keys of `built`
+    ok(&run_family(&dir, &["bronze:hexagonal:W"]));
+    let doc: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("family.json")).unwrap()).unwrap();
+    fn keys(v: &serde_json::Value, out: &mut Vec<String>) {
+        match v {
+            serde_json::Value::Object(m) => {
+                for (k, x) in m {
+                    out.push(k.clone());
+                    keys(x, out);
+                }
+            }
+            serde_json::Value::Array(a) => a.iter().for_each(|x| keys(x, out)),
+            _ => {}
+        }
+    }
+    let mut all = Vec::new();
+    keys(&doc, &mut all);
+    all.sort();
+    all.dedup();
+    assert!(
+        all.iter().any(|k| k == "gii_vu"),
+        "a built member was analysed"
+    );
+    assert!(all.len() > 60, "{} keys", all.len());
+    let missing: Vec<&String> = all
+        .iter()
+        .filter(|k| !section.contains(&format!("`{k}`")) && !section.contains(&format!("`{k}[]`")))
+        .collect();
+    assert!(missing.is_empty(), "undocumented keys: {missing:?}");
+}
