@@ -8,6 +8,16 @@ use std::path::Path;
 /// an interrupted run leaves either the old file or the complete new one. The temporary file is
 /// named `.<name>.<random>.tmp`; [`remove_stale_temporaries`] clears those a killed run left.
 pub fn write_atomic(path: &Path, contents: &[u8]) -> std::io::Result<()> {
+    write_atomic_with(path, |w| w.write_all(contents))
+}
+
+/// [`write_atomic`] for contents written through `body` (buffered). The file gets the usual
+/// permissions of a new file (read and write as the process's umask allows), not the
+/// owner-only mode of a temporary file.
+pub fn write_atomic_with(
+    path: &Path,
+    body: impl FnOnce(&mut std::io::BufWriter<&std::fs::File>) -> std::io::Result<()>,
+) -> std::io::Result<()> {
     let dir = path
         .parent()
         .filter(|p| !p.as_os_str().is_empty())
@@ -16,11 +26,20 @@ pub fn write_atomic(path: &Path, contents: &[u8]) -> std::io::Result<()> {
         .file_name()
         .and_then(|n| n.to_str())
         .unwrap_or("output");
-    let mut tmp = tempfile::Builder::new()
-        .prefix(&format!(".{name}."))
-        .suffix(".tmp")
-        .tempfile_in(dir)?;
-    tmp.write_all(contents)?;
+    let prefix = format!(".{name}.");
+    let mut builder = tempfile::Builder::new();
+    builder.prefix(&prefix).suffix(".tmp");
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        builder.permissions(std::fs::Permissions::from_mode(0o666));
+    }
+    let tmp = builder.tempfile_in(dir)?;
+    {
+        let mut w = std::io::BufWriter::new(tmp.as_file());
+        body(&mut w)?;
+        w.flush()?;
+    }
     tmp.as_file().sync_all()?;
     tmp.persist(path).map_err(|e| e.error)?;
     Ok(())
@@ -73,5 +92,24 @@ mod tests {
         std::fs::write(d.path().join(".other.csv.AbC123.tmp"), b"keep").unwrap();
         assert_eq!(remove_stale_temporaries(&p), 2);
         assert!(d.path().join(".other.csv.AbC123.tmp").exists());
+    }
+
+    /// A written file has the mode of any new file under the process's umask (0644 under the
+    /// common 022), not the owner-only 0600 of a temporary file.
+    #[cfg(target_os = "linux")]
+    #[test]
+    fn a_written_file_has_the_permissions_of_a_new_file() {
+        use std::os::unix::fs::PermissionsExt;
+        let status = std::fs::read_to_string("/proc/self/status").unwrap();
+        let umask = status
+            .lines()
+            .find_map(|l| l.strip_prefix("Umask:"))
+            .map(|v| u32::from_str_radix(v.trim(), 8).unwrap())
+            .unwrap();
+        let d = tempfile::tempdir().unwrap();
+        let p = d.path().join("report.html");
+        write_atomic(&p, b"<p>x</p>").unwrap();
+        let mode = std::fs::metadata(&p).unwrap().permissions().mode() & 0o777;
+        assert_eq!(mode, 0o666 & !umask, "mode {mode:o}, umask {umask:o}");
     }
 }

@@ -218,34 +218,13 @@ pub fn write_npy_file(path: &Path, grid: &Grid) -> io::Result<()> {
     write_atomically(path, |w| write_npy(w, grid))
 }
 
-/// Writes through `body` into `path.<pid>.tmp` in the same directory, then renames it to `path`.
-/// On any failure the temporary file is removed and the error names `path`.
+/// Writes through `body` atomically ([`crate::output::write_atomic_with`]); errors name `path`.
 fn write_atomically(
     path: &Path,
-    body: impl FnOnce(&mut BufWriter<fs::File>) -> io::Result<()>,
+    body: impl FnOnce(&mut BufWriter<&fs::File>) -> io::Result<()>,
 ) -> io::Result<()> {
-    let name = path.file_name().ok_or_else(|| {
-        io::Error::new(
-            io::ErrorKind::InvalidInput,
-            format!("{}: not a file name", path.display()),
-        )
-    })?;
-    let mut tmp_name = name.to_os_string();
-    tmp_name.push(format!(".{}.tmp", std::process::id()));
-    let tmp = path.with_file_name(tmp_name);
-    let with_path = |e: io::Error| io::Error::new(e.kind(), format!("{}: {e}", path.display()));
-    let result = (|| {
-        let file = fs::File::create(&tmp)?;
-        let mut w = BufWriter::new(file);
-        body(&mut w)?;
-        let file = w.into_inner().map_err(|e| e.into_error())?;
-        file.sync_all()?;
-        fs::rename(&tmp, path)
-    })();
-    if result.is_err() {
-        let _ = fs::remove_file(&tmp);
-    }
-    result.map_err(with_path)
+    crate::output::write_atomic_with(path, body)
+        .map_err(|e| io::Error::new(e.kind(), format!("{}: {e}", path.display())))
 }
 
 /// One value as ` -1.23456E-01` (a space and 12 characters, the usual `%12.5E` of cube files),
