@@ -84,7 +84,7 @@ impl Problem {
         let oxygen = Element::from_symbol("O").expect("oxygen");
         let mut index = Vec::new();
         let mut n = 0;
-        for a in &ideal.atoms {
+        for _ in &ideal.atoms {
             let mut ix = [None; 3];
             for (k, slot) in ix.iter_mut().enumerate() {
                 if k != ideal.short_axis || ideal.free_short {
@@ -92,7 +92,6 @@ impl Problem {
                     n += 1;
                 }
             }
-            let _ = a;
             index.push(ix);
         }
         let n_params = n + ideal.strains.len();
