@@ -82,6 +82,7 @@ fn build_json_follows_its_schema() {
     assert!(v["refinement"]["gii_vu"].as_f64().unwrap() < 0.2);
     assert!(v["construction"].as_array().unwrap().len() >= 3);
     assert!(v["caution"].as_str().unwrap().contains("not a published"));
+    assert!(v["cell_accuracy"].as_str().unwrap().contains("%"));
 }
 
 /// A spec that cannot be built is refused with its text named, exit status 2 for a misread spec
