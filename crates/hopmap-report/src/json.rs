@@ -508,6 +508,7 @@ fn build_raw(b: &hopmap::build::BuiltFramework, cif_path: Option<&str>) -> Value
             "alpha_deg": round(p.alpha, 3), "beta_deg": round(p.beta, 3),
             "gamma_deg": round(p.gamma, 3), "volume_a3": round(s.volume(), 2),
         },
+        "cell_accuracy": hopmap::build::CELL_ACCURACY,
         "metal_oxygen_a": round(b.metal_oxygen_a, 4),
         "refinement": {
             "refined": r.iterations > 0,

@@ -552,6 +552,7 @@ pub fn build(b: &hopmap::build::BuiltFramework, cif_path: Option<&str>) -> Strin
         s.volume(),
         s.sites.len()
     );
+    let _ = writeln!(o, "  accuracy: {}", hopmap::build::CELL_ACCURACY);
     let _ = writeln!(
         o,
         "  space group {} ({}), found by a symmetry search on the built cell",

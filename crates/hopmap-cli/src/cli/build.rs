@@ -6,7 +6,7 @@ use std::path::PathBuf;
 #[derive(Args, Debug)]
 pub struct BuildArgs {
     /// What to build: block:NxM:ribbon:METALS, block:NxM:tet:METALS:TETRAHEDRAL_METALS or
-    /// bronze:hexagonal|tetragonal:METALS[:CATION], e.g. block:3x3:ribbon:Ti1Nb2,
+    /// bronze:hexagonal|tetragonal|intergrowth:METALS[:CATION], e.g. block:3x3:ribbon:Ti1Nb2,
     /// block:3x4:tet:Nb:W, bronze:hexagonal:W:K0.3 (METALS: Ti1Nb2 for a ratio, Nb,W to have
     /// the ratio that balances the charge found)
     pub spec: String,

@@ -161,6 +161,11 @@ pub struct BuiltFramework {
     pub metal_oxygen_a: f64,
 }
 
+/// How far a built cell can be trusted: what the tests measure against published cells.
+pub const CELL_ACCURACY: &str = "cell lengths within 3 % of the published cells of the members \
+    checked (TiNb2O7 within 1 %, PNb9O25 and Nb12WO33 within 2.3 %); expect a few percent for \
+    others";
+
 /// What a built framework is and is not, for every output that shows one.
 pub const CAUTION: &str = "An idealised model of the framework type refined by bond valence, \
     not a published or relaxed structure: use it to rank channels and capacities, then check \

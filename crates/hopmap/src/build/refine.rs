@@ -15,8 +15,10 @@
 //! borders collapse, since bond valence alone does not see cation-cation repulsion.
 //!
 //! The coordinate along the octahedron chains stays fixed (atoms on the mirror planes) unless
-//! the framework has none (tetrahedral joins). The starting point and the equations carry the
-//! ideal's symmetry, so the steps keep it.
+//! the framework has none (tetrahedral joins). The unknowns are the coordinate steps that keep the
+//! ideal's symmetry (a basis of the range of the group average) and the cell strains, so the
+//! refined structure has the ideal's space group and the normal equations are smaller by about
+//! the order of the group.
 
 use super::geometry::{Ideal, Role};
 use super::{BuildError, BuildOptions, BuiltFramework, FrameworkSpec, Refinement};
@@ -84,7 +86,7 @@ impl Problem {
         let oxygen = Element::from_symbol("O").expect("oxygen");
         let mut index = Vec::new();
         let mut n = 0;
-        for a in &ideal.atoms {
+        for _ in &ideal.atoms {
             let mut ix = [None; 3];
             for (k, slot) in ix.iter_mut().enumerate() {
                 if k != ideal.short_axis || ideal.free_short {
@@ -92,7 +94,6 @@ impl Problem {
                     n += 1;
                 }
             }
-            let _ = a;
             index.push(ix);
         }
         let n_params = n + ideal.strains.len();
@@ -389,10 +390,10 @@ fn perpendicular_width(lattice: &Matrix3<f64>, k: usize) -> f64 {
     lattice.determinant().abs() / n.norm()
 }
 
-/// The symmetry of the ideal framework as permutations of its atoms: a step is averaged over
-/// the group (`delta_j = 1/|G| sum_g R_g delta_(g^-1 j)`) so that the refinement keeps the
-/// symmetry even where breaking it would lower the residual (a symmetric start is a saddle of
-/// some distortions; rounding would otherwise let them grow).
+/// The symmetry of the ideal framework as permutations of its atoms. The group average of a
+/// step (`delta_j = 1/|G| sum_g R_g delta_(g^-1 j)`) spans the symmetric steps the refinement
+/// may take, so that it keeps the symmetry even where breaking it would lower the residual (a
+/// symmetric start is a saddle of some distortions; rounding would otherwise let them grow).
 struct Symmetrizer {
     ops: Vec<(Matrix3<f64>, Vec<usize>)>,
 }
@@ -455,9 +456,113 @@ struct Fit {
     converged: bool,
 }
 
+/// The refinement's unknowns: the strains, and the coordinate steps that keep the ideal's
+/// symmetry, as coefficients on an orthonormal basis of those steps (the range of the group
+/// average, by Gram-Schmidt). Without symmetry every coordinate is its own unknown. Working in
+/// the symmetric subspace keeps the symmetry exactly and shrinks the normal equations by about
+/// the order of the group.
+struct Unknowns {
+    /// Columns: symmetric coordinate steps (n_coords x k); None: the identity.
+    basis: Option<DMatrix<f64>>,
+    n_coords: usize,
+    n_strains: usize,
+}
+
+impl Unknowns {
+    fn new(problem: &Problem, symmetry: &Symmetrizer) -> Unknowns {
+        let nc = problem.n_coords();
+        let n_strains = problem.n_params - nc;
+        if symmetry.ops.len() < 2 {
+            return Unknowns {
+                basis: None,
+                n_coords: nc,
+                n_strains,
+            };
+        }
+        let mut cols: Vec<DVector<f64>> = Vec::new();
+        for c in 0..nc {
+            let mut v = DVector::zeros(problem.n_params);
+            v[c] = 1.0;
+            symmetry.project(problem, &mut v);
+            let mut w: DVector<f64> = v.rows(0, nc).into_owned();
+            if w.norm() < 1e-9 {
+                continue;
+            }
+            for _ in 0..2 {
+                for b in &cols {
+                    let d = b.dot(&w);
+                    if d != 0.0 {
+                        w.axpy(-d, b, 1.0);
+                    }
+                }
+            }
+            let norm = w.norm();
+            if norm > 1e-6 {
+                cols.push(w / norm);
+            }
+        }
+        let basis = if cols.is_empty() {
+            DMatrix::zeros(nc, 0)
+        } else {
+            DMatrix::from_columns(&cols)
+        };
+        Unknowns {
+            basis: Some(basis),
+            n_coords: nc,
+            n_strains,
+        }
+    }
+
+    fn len(&self) -> usize {
+        self.basis
+            .as_ref()
+            .map(|b| b.ncols())
+            .unwrap_or(self.n_coords)
+            + self.n_strains
+    }
+
+    /// A Jacobian row over the parameters as a row over the unknowns (sparse).
+    fn reduce(&self, row: &[(usize, f64)]) -> Vec<(usize, f64)> {
+        let Some(b) = &self.basis else {
+            return row.to_vec();
+        };
+        let k = b.ncols();
+        let mut dense = vec![0.0; k + self.n_strains];
+        for &(c, v) in row {
+            if c < self.n_coords {
+                for (j, x) in b.row(c).iter().enumerate() {
+                    dense[j] += v * x;
+                }
+            } else {
+                dense[k + c - self.n_coords] += v;
+            }
+        }
+        dense
+            .into_iter()
+            .enumerate()
+            .filter(|(_, v)| *v != 0.0)
+            .collect()
+    }
+
+    /// The parameter step of a step of the unknowns.
+    fn expand(&self, q: &DVector<f64>) -> DVector<f64> {
+        let Some(b) = &self.basis else {
+            return q.clone();
+        };
+        let k = b.ncols();
+        let coords = b * q.rows(0, k);
+        let mut out = DVector::zeros(self.n_coords + self.n_strains);
+        out.rows_mut(0, self.n_coords).copy_from(&coords);
+        out.rows_mut(self.n_coords, self.n_strains)
+            .copy_from(&q.rows(k, self.n_strains));
+        out
+    }
+}
+
 fn levenberg_marquardt(problem: &Problem, symmetry: &Symmetrizer, max_iterations: usize) -> Fit {
-    let n = problem.n_params;
-    let mut p = DVector::zeros(n);
+    let unknowns = Unknowns::new(problem, symmetry);
+    let n = unknowns.len();
+    let mut p = DVector::zeros(problem.n_params);
     let (mut res, mut rows) = problem.evaluate(&p, true);
     let mut cost = res.norm_squared();
     let mut lambda = 1e-3;
@@ -468,16 +573,17 @@ fn levenberg_marquardt(problem: &Problem, symmetry: &Symmetrizer, max_iterations
         let mut jtj = DMatrix::<f64>::zeros(n, n);
         let mut jtr = DVector::<f64>::zeros(n);
         for (row, r) in rows.iter().zip(res.iter()) {
-            for &(a, va) in row {
+            let row = unknowns.reduce(row);
+            for &(a, va) in &row {
                 jtr[a] += va * r;
-                for &(b, vb) in row {
+                for &(b, vb) in &row {
                     jtj[(a, b)] += va * vb;
                 }
             }
         }
         // Marquardt's scaling, floored so that directions with no first-order effect at a
         // symmetric point (a coordinate across a mirror) are still damped.
-        let mean_diag = (0..n).map(|k| jtj[(k, k)]).sum::<f64>() / n as f64;
+        let mean_diag = (0..n).map(|k| jtj[(k, k)]).sum::<f64>() / n.max(1) as f64;
         let floor_diag = 1e-3 * mean_diag + 1e-12;
         let mut improved = false;
         for _ in 0..12 {
@@ -489,8 +595,7 @@ fn levenberg_marquardt(problem: &Problem, symmetry: &Symmetrizer, max_iterations
                 lambda *= 10.0;
                 continue;
             };
-            let mut step = chol.solve(&(-&jtr));
-            symmetry.project(problem, &mut step);
+            let mut step = unknowns.expand(&chol.solve(&(-&jtr)));
             problem.cap_step(&p, &mut step);
             let trial = &p + &step;
             let (r2, _) = problem.evaluate(&trial, false);
