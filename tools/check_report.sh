@@ -41,7 +41,8 @@ echo "check_report: running the demo ..." >&2
 first=$(python3 - "$OUT/demo/report.html" <<'EOF'
 import re, sys
 page = open(sys.argv[1], encoding="utf-8").read()
-links = [h for h in re.findall(r'href="([^"#]+\.html)"', page)]
+# the family page (family.html) is a comparison, not a per-structure report
+links = [h for h in re.findall(r'href="([^"#]+\.html)"', page) if not h.endswith("family.html")]
 print(links[0] if links else "")
 EOF
 )
