@@ -226,6 +226,14 @@ pub struct Block {
 }
 
 impl Block {
+    /// `cells` repeats starting at the field's first grid point.
+    pub fn at_origin(cells: [usize; 3]) -> Block {
+        Block {
+            cells,
+            origin: [0, 0, 0],
+        }
+    }
+
     /// The block's corner in fractional coordinates of the cell, for a field of `dims` points.
     pub fn origin_frac(&self, dims: [usize; 3]) -> [f64; 3] {
         [0, 1, 2].map(|a| self.origin[a] as f64 / dims[a] as f64)
@@ -602,14 +610,7 @@ mod tests {
         let mut g = Grid::new(cubic(4.0), [4, 4, 4], 1.0);
         let i = g.index(2, 2, 2);
         g.values[i] = -1.0;
-        let m = extract(
-            &g,
-            0.0,
-            Block {
-                cells: [1, 1, 1],
-                origin: [0, 0, 0],
-            },
-        );
+        let m = extract(&g, 0.0, Block::at_origin([1, 1, 1]));
         assert!(m.edge_check().closed_manifold(), "{:?}", m.edge_check());
         assert!(m.volume_a3() > 0.0);
         // Euler characteristic of a sphere: V - E + F = 2

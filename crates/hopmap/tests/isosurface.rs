@@ -53,14 +53,7 @@ fn the_periodic_cosine_field_encloses_exactly_half_the_cell() {
     let g = field(lat.clone(), [20, 24, 28], |f| {
         f.iter().map(|x| (2.0 * PI * x).cos()).sum()
     });
-    let m = extract(
-        &g,
-        0.0,
-        Block {
-            cells: [1, 1, 1],
-            origin: [0, 0, 0],
-        },
-    );
+    let m = extract(&g, 0.0, Block::at_origin([1, 1, 1]));
     let check = m.edge_check();
     assert!(check.closed_manifold(), "{check:?}");
     let half = lat.volume() / 2.0;
@@ -94,14 +87,7 @@ fn a_ball_encloses_four_thirds_pi_r_cubed() {
         let d: f64 = f.iter().map(|x| ((x - 0.5) * a).powi(2)).sum();
         d.sqrt() - r
     });
-    let m = extract(
-        &g,
-        0.0,
-        Block {
-            cells: [1, 1, 1],
-            origin: [0, 0, 0],
-        },
-    );
+    let m = extract(&g, 0.0, Block::at_origin([1, 1, 1]));
     assert!(m.edge_check().closed_manifold());
     let exact = 4.0 / 3.0 * PI * r.powi(3);
     let v = m.volume_a3();
@@ -258,14 +244,7 @@ fn coarser_surfaces_stay_closed() {
     });
     assert_eq!(isosurface::resample(&g, g.dims), g);
     let c = isosurface::resample(&g, [20, 24, 28]);
-    let m = extract(
-        &c,
-        0.0,
-        Block {
-            cells: [1, 1, 1],
-            origin: [0, 0, 0],
-        },
-    );
+    let m = extract(&c, 0.0, Block::at_origin([1, 1, 1]));
     assert!(m.edge_check().closed_manifold());
     let half = g.lattice.volume() / 2.0;
     assert!((m.volume_a3() - half).abs() < 0.01 * half);

@@ -116,7 +116,11 @@ pub fn run(g: &GlobalOpts, a: FamilyArgs) -> CmdResult {
     let mut inputs: Vec<MemberInput> = a.members.iter().map(|t| member(t)).collect();
     unique_labels(&mut inputs);
     if !g.quiet {
-        eprintln!("analysing {} members in parallel ...", inputs.len());
+        eprintln!(
+            "analysing {} member{} in parallel ...",
+            inputs.len(),
+            if inputs.len() == 1 { "" } else { "s" }
+        );
     }
     let study = family::study(inputs, &opts);
     let reports = !a.no_member_reports;
