@@ -286,6 +286,13 @@ pub fn run_paths(g: &GlobalOpts, a: PathsArgs) -> CmdResult {
         }
     }
     if let Some(dir) = &a.mesh {
+        if !g.quiet {
+            // seconds for a 2 x 2 x 2 block of a small cell, longer for large ones
+            eprintln!(
+                "drawing the network surfaces over {} x {} x {} cells ...",
+                mesh_cells[0], mesh_cells[1], mesh_cells[2]
+            );
+        }
         let written = hopmap_report::mesh::write_folder(dir, &an, &file, mesh_cells)
             .map_err(|e| format!("cannot write the meshes into {}: {e}", dir.display()))?;
         if !g.quiet {
