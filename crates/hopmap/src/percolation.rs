@@ -879,9 +879,7 @@ impl<'a> Sweep<'a> {
                 .filter(|(_, w)| w.rows.len() >= d)
                 .map(|(&r, _)| r as usize)
                 .collect();
-            members.sort_by_key(|&r| {
-                total_key(self.values[self.low(r)], self.low(r))
-            });
+            members.sort_by_key(|&r| total_key(self.values[self.low(r)], self.low(r)));
             let deepest = self.channel(members[0], energy);
             let voxels: usize = members.iter().map(|&r| self.size(r)).sum();
             let marked_lowest = self.marked_lowest_in(&members);
@@ -1109,12 +1107,7 @@ pub fn regions_at(grid: &Grid, level: f32) -> RegionMap {
     )
 }
 
-fn regions_from(
-    grid: &Grid,
-    level: f32,
-    mut sweep: Sweep<'_>,
-    order: &[u64],
-) -> RegionMap {
+fn regions_from(grid: &Grid, level: f32, mut sweep: Sweep<'_>, order: &[u64]) -> RegionMap {
     let mut label = vec![NONE; grid.len()];
     let mut id_of_root: FastMap<usize, u32> = FastMap::default();
     let mut regions = Vec::new();
