@@ -579,10 +579,10 @@ const NONE: u32 = u32::MAX;
 struct Node {
     /// `NONE` until the point is added; itself at a root.
     parent: u32,
-    /// At a root: `[size, lowest point, rank of the winding lattice]` (the rank a copy of
-    /// `windings[root].rows.len()`, so that the common case, a root without windings, needs no
-    /// look-up). Elsewhere: the image offset relative to the parent, in cells along a, b, c
-    /// (`i32` bits). The root's own offset is zero and is never stored.
+    /// At a root: `[size, lowest point, value of the lowest point (f32 bits)]`, the value kept
+    /// beside the point so that comparing two regions' lowest points reads no grid value
+    /// scattered far away. Elsewhere: the image offset relative to the parent, in cells along
+    /// a, b, c (`i32` bits). The root's own offset is zero and is never stored.
     data: [u32; 3],
 }
 
@@ -656,10 +656,17 @@ impl<'a> Sweep<'a> {
         self.nodes[r].data[1] as usize
     }
 
-    /// Rank of the winding lattice of the region of root `r`.
+    /// Value of the lowest point of the region of root `r`.
+    #[inline]
+    fn low_value(&self, r: usize) -> f32 {
+        f32::from_bits(self.nodes[r].data[2])
+    }
+
+    /// Rank of the winding lattice of the region of root `r` (a look-up in the small map of
+    /// regions that have windings).
     #[inline]
     fn rank(&self, r: usize) -> usize {
-        self.nodes[r].data[2] as usize
+        self.windings.get(&(r as u32)).map_or(0, |w| w.rows.len())
     }
 
     /// Image offset of the non-root `x` relative to its parent.
@@ -716,7 +723,7 @@ impl<'a> Sweep<'a> {
         debug_assert!(!self.is_added(x));
         self.nodes[x] = Node {
             parent: x as u32,
-            data: [1, x as u32, 0],
+            data: [1, x as u32, v.to_bits()],
         };
         self.in_rank[0] += 1;
         self.added += 1;
@@ -751,10 +758,16 @@ impl<'a> Sweep<'a> {
         }
     }
 
+    /// The root of the two whose lowest point comes first in `(value, index)` order.
     #[inline]
-    fn lower(&self, a: u32, b: u32) -> u32 {
-        let (va, vb) = (self.values[a as usize], self.values[b as usize]);
-        if va < vb || (va == vb && a < b) { a } else { b }
+    fn lower(&self, ra: usize, rb: usize) -> usize {
+        let (a, b) = (self.low(ra), self.low(rb));
+        let (va, vb) = (self.low_value(ra), self.low_value(rb));
+        if va < vb || (va == vb && a < b) {
+            ra
+        } else {
+            rb
+        }
     }
 
     /// Joins `u` and `v`, where the image of `v` reached from `u` lies `t` cells away from the
@@ -783,13 +796,13 @@ impl<'a> Sweep<'a> {
         };
         let (rank_big, rank_small) = (self.rank(big), self.rank(small));
         let (size_big, size_small) = (self.size(big), self.size(small));
-        let low = self.lower(self.low(big) as u32, self.low(small) as u32);
+        let lower = self.lower(big, small);
+        let [_, low, low_value] = self.nodes[lower].data;
         self.nodes[small] = Node {
             parent: big as u32,
             data: x.map(|c| c as u32),
         };
-        self.nodes[big].data[0] = (size_big + size_small) as u32;
-        self.nodes[big].data[1] = low;
+        self.nodes[big].data = [(size_big + size_small) as u32, low, low_value];
         self.largest = self.largest.max(size_big + size_small);
         let mut rank = rank_big;
         if rank_small > 0 {
@@ -800,7 +813,6 @@ impl<'a> Sweep<'a> {
             e.rows = hnf(rows);
             e.announced = e.announced.max(ws.announced);
             rank = e.rows.len();
-            self.nodes[big].data[2] = rank as u32;
         }
         self.in_rank[rank_big] -= size_big;
         self.in_rank[rank_small] -= size_small;
@@ -822,7 +834,6 @@ impl<'a> Sweep<'a> {
         rows.push(w);
         e.rows = hnf(rows);
         let new = e.rows.len();
-        self.nodes[root].data[2] = new as u32;
         if new > old {
             self.in_rank[old] -= size;
             self.in_rank[new] += size;
