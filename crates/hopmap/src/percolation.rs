@@ -1194,4 +1194,42 @@ mod tests {
         assert!(offsets_fit_i16([100, 100, 100]));
         assert!(!offsets_fit_i16([2, 700, 700]));
     }
+
+    #[test]
+    fn a_union_find_point_takes_sixteen_bytes_and_a_ring_of_70000_points_winds_once_along_a() {
+        // the memory per point the performance notes state
+        assert_eq!(std::mem::size_of::<Node>(), 16);
+        // a ring of 70,000 points along a (past the range of i16 offsets): joined in order it
+        // closes one loop around the cell, whose winding vector is [1, 0, 0] (exact result)
+        let n = 70_000;
+        let values = vec![0.0f32; n];
+        let lattice = Lattice::from_parameters(crate::lattice::CellParameters {
+            a: 7000.0,
+            b: 1.0,
+            c: 1.0,
+            alpha: 90.0,
+            beta: 90.0,
+            gamma: 90.0,
+        })
+        .unwrap();
+        let mut sweep = Sweep::new(&values, &lattice);
+        for x in 0..n {
+            sweep.add(x, 0.0);
+        }
+        for x in 1..n {
+            sweep.join(x - 1, x, [0, 0, 0]);
+        }
+        let (r, off) = sweep.find(n - 1);
+        assert_eq!(sweep.size(r), n);
+        assert_eq!(sweep.rank(r), 0);
+        sweep.join(n - 1, 0, [1, 0, 0]);
+        sweep.end_group(0.0);
+        let p = sweep.finish(1.0, vec![]);
+        assert_eq!(p.dimension, 1);
+        assert_eq!(p.openings[0].span.translations(), vec![[1, 0, 0]]);
+        assert!(
+            off.iter().all(|&o| o == 0),
+            "an open chain has no winding: {off:?}"
+        );
+    }
 }

@@ -613,3 +613,37 @@ pub fn path_between(
             .collect(),
     )
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_paged_covering_keeps_what_a_hash_map_keeps() {
+        // oracle: the standard library's HashMap, keyed by the same slots
+        let mut store = Covering::new([7, 5, 300]);
+        let mut reference = std::collections::HashMap::new();
+        let mut state = 12345u64;
+        for i in 0..20_000 {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            let p = [0, 1, 2].map(|a| ((state >> (16 * a + 8)) % 4000) as i64 - 2000);
+            let Some(slot) = store.slot(p) else { continue };
+            assert_eq!(
+                store.get(slot),
+                reference.get(&slot).copied(),
+                "point {p:?}"
+            );
+            if i % 3 != 0 {
+                let v = (i as f64 * 0.37, (i % 7) as u8);
+                store.set(slot, v.0, v.1);
+                reference.insert(slot, v);
+            }
+        }
+        for (&slot, &v) in &reference {
+            assert_eq!(store.get(slot), Some(v));
+        }
+        assert!(store.slot([0, 0, 512 * 300]).is_none());
+    }
+}
