@@ -833,16 +833,16 @@ def run_neb(path: Path, ion: str, binary=None, n_images=5, min_image=MIN_IMAGE_A
         res = _run_band(path, struct, ion, ps, vacancy, n_images, min_image, fmax, steps, log,
                         t0)
         no_top = res.barrier_ev < FLAT_EV or any(
-            n.startswith("highest energy at an end point") for n in res.notes)
+            n.startswith(NO_TOP_NOTE) for n in res.notes)
         one_well = not vacancy and ps.kind != "channel repeat" and no_top
         first = (f"the lowest pass ({ps.length_a:.2f} A) gave {res.barrier_ev:.4f} eV with no "
                  "point of the band above both relaxed ends")
     except OracleError as e:
         if (vacancy or hop_mode != "auto" or ps.kind == "channel repeat"
-                or "relax into one site" not in str(e)):
+                or "one site" not in str(e)):
             raise
         one_well = True
-        first = f"the ends of the lowest pass ({ps.length_a:.2f} A) relax into one site"
+        first = f"the ends of the lowest pass ({ps.length_a:.2f} A) are or relax into one site"
     if one_well and hop_mode == "auto":
         log(f"  {first}: one well; running one channel repeat")
         rp = repeat_pass(doc, struct, ps)
@@ -860,7 +860,14 @@ def _run_band(path, struct, ion, ps: Pass, vacancy, n_images, min_image, fmax, s
 
     mode = "vacancy" if vacancy else "interstitial"
     log(f"{path.name} {ion}: {mode} mode; {ps.kind} ({ps.why}): {ps.description}")
+    if ps.length_a < 0.3:
+        raise OracleError(f"{path}: the hop's two ends are one site ({ps.length_a:.2f} A apart)")
     base, path_c, od = build_endpoints(struct, ion, ps, vacancy, min_image)
+    reach = lattice_min_image(np.array(base.cell))
+    if ps.length_a > 0.5 * reach:
+        raise OracleError(f"{path}: the hop ({ps.length_a:.2f} A) is longer than half the "
+                          f"supercell's shortest translation ({reach:.2f} A): the moving ion "
+                          "would meet its own image")
     notes = []
     pts = resample(path_c, n_images + 2)
 
@@ -930,7 +937,7 @@ def _run_band(path, struct, ion, ps: Pass, vacancy, n_images, min_image, fmax, s
         notes.append(f"NEB not converged in {steps} steps (max force {fres:.3f} eV/A)")
     imax = int(np.argmax(energies))
     if imax in (0, len(energies) - 1):
-        notes.append("highest energy at an end point: no barrier between the relaxed ends")
+        notes.append(f"{NO_TOP_NOTE}: no barrier between the relaxed ends")
         if ps.kind == "channel repeat":
             notes.append("flat channel: no barrier over a whole repeat within the NEB's "
                          "resolution")
@@ -1319,6 +1326,11 @@ def cmd_run_set(args):
                 errs.append(f"sites skipped: {e}")
                 print(f"  sites failed: {e}", file=sys.stderr)
         row = row_from(res, verdict, srows, time.time() - t0, errs, path, ref["ion"])
+        old = [r for r in read_table(out) if (r["file"], r["ion"]) == key]
+        if args.no_sites and old and not row["lowest_site_verdict"]:
+            # the site check was not rerun: the stored one still holds
+            for k in ("lowest_site_verdict", "site_energies"):
+                row[k] = old[0].get(k, "")
         table = [r for r in read_table(out) if (r["file"], r["ion"]) != key] + [row]
         order = {(Path(r["file"]).name, r["ion"]): k for k, r in enumerate(rows)}
         table.sort(key=lambda r: (order.get((r["file"], r["ion"]), 10**6), r["file"], r["ion"]))
@@ -1371,12 +1383,24 @@ def cmd_relax(args):
     return 0
 
 
+NO_TOP_NOTE = "highest energy at an end point"
+
+
+def no_barrier(r):
+    """A band whose highest point is one of its relaxed ends between two different wells: the
+    number is the ends' energy difference, not a barrier. (Over a channel repeat the ends are
+    one site and its image: there a band with no top is a flat channel, a barrier of zero.)"""
+    return NO_TOP_NOTE in r.get("notes", "") and r.get("hop_kind") != "channel repeat"
+
+
 def paired_rows(rows):
-    """Rows that enter the rank correlation: a converged NEB and hopmap's barrier of the same
-    hop (`hopmap_hop_barrier_ev`, empty when the row is stale). The evidence bench
-    (crates/hopmap/benches/model_evidence.rs) pairs the same rows the same way."""
+    """Rows that enter the rank correlation: a converged NEB with a barrier (see `no_barrier`)
+    and hopmap's barrier of the same hop (`hopmap_hop_barrier_ev`, empty when the row is
+    stale). The evidence bench (crates/hopmap/benches/model_evidence.rs) pairs the same rows
+    the same way."""
     return [r for r in rows
-            if r.get("barrier_ev") and r.get("hopmap_hop_barrier_ev") and r["converged"] == "yes"]
+            if r.get("barrier_ev") and r.get("hopmap_hop_barrier_ev") and r["converged"] == "yes"
+            and not no_barrier(r)]
 
 
 def cmd_summary(args):
@@ -1390,6 +1414,8 @@ def cmd_summary(args):
         hop = r.get("hop_kind", "")
         if STALE_NOTE in r.get("notes", ""):
             hop = (hop + ", " if hop else "") + "stale"
+        elif no_barrier(r):
+            hop = (hop + ", " if hop else "") + "no barrier"
         print(f"| {r['file']} | {r['ion']} | {r['mode']} | {hop} | {r.get('hop_length_a', '')} "
               f"| {r['atoms']} | {r['barrier_ev']} | {r.get('hopmap_hop_barrier_ev', '')} | "
               f"{r['hopmap_barrier_ev']} | {r['converged']} | {r['wall_s']} | {verdict} |")

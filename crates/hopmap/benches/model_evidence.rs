@@ -52,8 +52,10 @@ struct OracleRow {
 }
 
 /// The oracle's rows, (file, ion) -> row, paired as `mlip_oracle.py summary` pairs them: a
-/// converged NEB (`converged` = yes) and hopmap's barrier of the same hop
-/// (`hopmap_hop_barrier_ev`, empty for a stale row). Other rows are left out.
+/// converged NEB (`converged` = yes) whose band has a top (no "highest energy at an end point"
+/// in `notes`, except over a whole channel repeat, where that is a flat channel) and hopmap's
+/// barrier of the same hop (`hopmap_hop_barrier_ev`, empty for a stale row). Other rows are
+/// left out.
 fn oracle_barriers() -> BTreeMap<(String, String), OracleRow> {
     let path =
         Path::new(concat!(env!("CARGO_MANIFEST_DIR"), "/../..")).join("tools/oracle/results.csv");
@@ -69,16 +71,25 @@ fn oracle_barriers() -> BTreeMap<(String, String), OracleRow> {
         return out;
     };
     let col = |n: &str| h.iter().position(|x| x == n);
-    let (Some(cf), Some(ci), Some(cb), Some(ch), Some(cc)) = (
+    let (Some(cf), Some(ci), Some(cb), Some(ch), Some(cc), Some(cn), Some(ck)) = (
         col("file"),
         col("ion"),
         col("barrier_ev"),
         col("hopmap_hop_barrier_ev"),
         col("converged"),
+        col("notes"),
+        col("hop_kind"),
     ) else {
         return out;
     };
     for rec in r.records().flatten() {
+        let no_top = rec
+            .get(cn)
+            .is_some_and(|n| n.contains("highest energy at an end point"))
+            && rec.get(ck) != Some("channel repeat");
+        if no_top {
+            continue;
+        }
         let num = |c: usize| rec.get(c).and_then(|x| x.parse::<f64>().ok());
         if let (Some(f), Some(i), Some(b), Some(hb), Some("yes")) =
             (rec.get(cf), rec.get(ci), num(cb), num(ch), rec.get(cc))
