@@ -1272,7 +1272,17 @@ def refresh_hopmap(rows, refs, out, table, binary, hop_mode="auto"):
         r.update({"hopmap_barrier_ev": fmt(ps.hopmap_barrier_ev),
                   "hopmap_pass_barrier_ev": fmt(ps.hopmap_pass_barrier_ev),
                   "hopmap_dimension": ps.dimension})
-        if was is not None and abs(was - ps.length_a) <= 0.02:
+        reach = None
+        if r.get("supercell"):
+            mult = np.array([int(x) for x in r["supercell"].split("x")])
+            reach = lattice_min_image(struct.lattice.matrix * mult[:, None])
+        if was is not None and reach is not None and was > 0.5 * reach:
+            # a band written before run_neb refused such hops: its ion meets its own image
+            r["hopmap_hop_barrier_ev"] = ""
+            notes.append(f"{STALE_NOTE}: the hop ({was:.2f} A) is longer than half the "
+                         f"supercell's shortest translation ({reach:.2f} A), refused now")
+            state = "STALE: hop longer than half the supercell"
+        elif was is not None and abs(was - ps.length_a) <= 0.02:
             r.update({"hop_kind": ps.kind, "hop_length_a": fmt(ps.length_a, 2),
                       "hopmap_hop_barrier_ev": fmt(ps.hop_barrier_ev)})
             state = f"{ps.kind}, {ps.length_a:.2f} A, {ps.hop_barrier_ev:.4f} eV"
