@@ -672,7 +672,9 @@ def choose_hop(doc, struct, ion, vacancy: bool, hop_mode="auto") -> Pass:
         err = e
     if hop_mode == "repeat" or (not vacancy and hop_mode == "auto" and ps is None):
         rp = repeat_pass(doc, struct, ps)
-        if ps is None:
+        if hop_mode == "repeat":
+            rp.why = "asked for"
+        elif ps is None:
             rp.why = f"the lowest pass could not be set up ({err})"
         return rp
     if not vacancy or hop_mode == "pass":
