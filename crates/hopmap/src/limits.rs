@@ -42,10 +42,11 @@ pub const MIN_SPACING_A: f64 = 0.02;
 pub const MAX_SPACING_A: f64 = 2.0;
 
 /// Peak memory per grid point (bytes) over the whole analysis: two f32 fields (8 bytes), the
-/// union-find arrays of the percolation and the basin labels of the site network. Measured with
-/// `/usr/bin/time -v` on olivine LiFePO4 (`hopmap paths`, spacings 0.1 and 0.07 A: 20.2 and
-/// 42.1 MB for 0.31e6 and 0.87e6 points, 40 bytes per point), rounded up.
-pub const BYTES_PER_GRID_POINT: u64 = 48;
+/// 16-byte union-find records of the two percolations running side by side, the basin labels of
+/// the site network and the profiles' covering. Measured as the peak heap of `analyse` by
+/// `cargo bench -p hopmap --bench paths_stages` (olivine LiFePO4, TiNb2O7, LLZO garnet and the
+/// olivine supercells up to 3x3x3: 54-55 bytes per point), rounded up.
+pub const BYTES_PER_GRID_POINT: u64 = 56;
 
 /// Grid evaluation cost (seconds per grid point and framework atom within the 6 A cutoff, one
 /// core), for the time estimate. Measured on olivine LiFePO4 at 0.07 A (3.2 s for 0.87e6
