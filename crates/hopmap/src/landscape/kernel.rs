@@ -1,30 +1,37 @@
 //! The grid kernel: both landscapes in f32 SIMD over grid points.
 //!
-//! **Layout.** The grid is cut into blocks of 4 x 4 x 4 points. Framework atoms are first
-//! grouped by position: the occupants of a mixed site share one position, and at a position
-//! the occupants with the same kind of term are summed into one contribution (anions of one
-//! kind: their occupancies; cations whose screening lengths are equal: their weights `occ k q_A
-//! q_M`). The images of the positions around the cell are binned once into Cartesian cubes of
-//! 2 A; each block lists the images within (reach + the block's radius) of its centre from the
-//! bins it overlaps (so the cost per block does not grow with the cell), in f32 coordinates
-//! relative to the block's centre (a few A, so that f32 differences lose nothing). The points
-//! of a block are evaluated a vector at a time (16 lanes with AVX-512, 8 with AVX2 or the
-//! portable arrays) against each image of the list, broadcast; a lane outside the cutoff of a
-//! term gets weight 0.
+//! **Layout.** The grid is cut into blocks of 8 x 8 x 8 points. Blocks of one shape differ by
+//! a lattice translation, so the points of each shape (at most 8: whole, and the remainder
+//! along each axis) are laid out once ([`Layout`]), relative to the block's centre, in tiles of
+//! 2 x 2 x 4 points: one compact vector of 16 lanes with AVX-512, two of 8 with AVX2 or the
+//! portable arrays. Framework atoms are first grouped by position: the occupants of a mixed
+//! site share one position, and at a position the occupants with the same kind of term are
+//! summed into one contribution (anions of one kind: their occupancies; cations whose
+//! screening lengths are equal: their weights `occ k q_A q_M`). The images of the positions
+//! around the cell are binned once into Cartesian cubes of 2 A; each block visits the bins its
+//! sphere of reach overlaps (row by row, so the visit follows the sphere, not its cube) and
+//! lists the images within (reach + the block's radius) of its centre, in f32 coordinates
+//! relative to it (a few A, so that f32 differences lose nothing), one list per kind of term
+//! with the kind's constants held in registers. Each list is cut in two: the *core*, images
+//! within the cutoff of every point of the block (no test, no mask: the count grows by the
+//! list's length), and the *shell*, where each lane is tested, a vector none of whose lanes
+//! is inside is skipped after its distances, and a lane outside gets weight 0.
 //!
 //! **Arithmetic per pair** (f32): the distance (3 subtractions, a multiplication and two FMAs,
 //! a square root); per anion term `x = exp((Rmin - R)/b)` (one FMA for the argument, the
-//! vectorised [`simd::exp`]), the bond valence and the shifted Morse term (3 FMAs and a
-//! subtraction), the count; per cation term the screened Coulomb `erfc(R/rho)/R` from
-//! [`simd::erfc_poly`] (one division, 12 FMAs and the exp). The mobile-ion repulsion with its
-//! nearest sites excluded keeps the k nearest distances and terms per lane (compare and blend).
+//! vectorised [`simd::exp_in_range`], 5 FMAs of polynomial, without the clamp when the kind's
+//! exponent cannot leave the f32 range), the bond valence and the shifted Morse term (2 FMAs
+//! and a subtraction); per cation term the screened Coulomb `erfc(R/rho)/R` from
+//! [`simd::erfc_poly`] (one division, 12 FMAs and the exp, whose exponent is bounded within
+//! the reach). A shell pair adds the cutoff test, the selects of the weights and the count.
+//! The mobile-ion repulsion with its nearest sites excluded keeps the k nearest distances and
+//! terms per lane (compare and blend).
 //!
 //! **Precision.** Terms and sums are f32; the grids are stored as f32 anyway. Tested against
 //! the f64 path (`compute_f64`) on every instruction set the processor has: values agree within
 //! 1e-5 relative (1e-5 eV or v.u. near zero). Symmetry-equivalent points are evaluated relative
-//! to different block centres and may differ by a few units in the last place, which is why
-//! `compute` (the main job) keeps the f64 path: its channel profiles rely on equivalent saddles
-//! tying exactly.
+//! to different block centres and may differ by a few units in the last place; the stages
+//! after the grid do not rely on exact ties.
 
 use super::compute::{Cancelled, ComputeStats, Progress};
 use super::model::{COULOMB_EV_A, FrameworkKind, LandscapeModel};
@@ -60,7 +67,7 @@ pub enum Fields {
 /// The constants of one kind of anion term (its bond-valence and Morse parameters), shared by
 /// every position of that kind, so that the kernel keeps them in registers over a run of images.
 #[derive(Debug, Clone, Copy)]
-struct AnionKind {
+struct AnionConstants {
     cutoff2: f32,
     /// `-1/b` and `Rmin/b`: the exponent is `R * neg_inv_b + rmin_inv_b`.
     neg_inv_b: f32,
@@ -84,7 +91,7 @@ struct AnionEntry {
 
 /// The constants of one kind of screened Coulomb term (one screening length and reach).
 #[derive(Debug, Clone, Copy)]
-struct CationKind {
+struct CationConstants {
     reach2: f32,
     /// `1 / (2 rho)` and `1 / rho^2` (1/A, 1/A^2).
     half_inv_rho: f32,
@@ -185,10 +192,10 @@ fn group<E: Copy, K: PartialEq + Copy>(
 
 /// The model resolved into kinds, positions and f32 terms.
 struct Terms {
-    anion_kinds: Vec<AnionKind>,
+    anion_kinds: Vec<AnionConstants>,
     /// Cutoff of each anion kind (A).
     anion_reach: Vec<f64>,
-    cation_kinds: Vec<CationKind>,
+    cation_kinds: Vec<CationConstants>,
     /// Reach of each cation kind (A).
     cation_reach: Vec<f64>,
     anions: Positions<AnionEntry>,
@@ -208,7 +215,7 @@ fn terms(model: &LandscapeModel) -> Terms {
     let mut an = Vec::new();
     let mut ca = Vec::new();
     let mut mo = Vec::new();
-    let anion_kinds: Vec<AnionKind> = model
+    let anion_kinds: Vec<AnionConstants> = model
         .anions
         .iter()
         .map(|k| {
@@ -216,7 +223,7 @@ fn terms(model: &LandscapeModel) -> Terms {
             let xc = ((k.rmin - k.cutoff) / k.b).exp();
             let cut = k.cutoff.max(0.0);
             let (hi, lo) = (k.rmin / k.b, (k.rmin - cut) / k.b);
-            AnionKind {
+            AnionConstants {
                 cutoff2: (cut * cut) as f32,
                 neg_inv_b: (-1.0 / k.b) as f32,
                 rmin_inv_b: (k.rmin / k.b) as f32,
@@ -237,7 +244,7 @@ fn terms(model: &LandscapeModel) -> Terms {
             Some(i) => i,
             None => {
                 cation_keys.push(key);
-                cation_kinds.push(CationKind {
+                cation_kinds.push(CationConstants {
                     reach2: (reach * reach) as f32,
                     half_inv_rho: (0.5 / k.rho) as f32,
                     inv_rho2: (1.0 / (k.rho * k.rho)) as f32,
@@ -738,7 +745,7 @@ fn dist2_run<V: Lanes>(px: V, py: V, pz: V, x: f32, y: f32, z: f32) -> V {
 /// `erfc(z)/R = t exp(-z^2 + P(t)) / R`, one division for both. Within the reach
 /// (R <= 6.5 rho) the exponent lies in [-44, 0], so the exponential needs no clamp.
 #[inline(always)]
-fn coulomb<V: Lanes>(c: &CationKind, d2: V, r: V) -> V {
+fn coulomb<V: Lanes>(c: &CationConstants, d2: V, r: V) -> V {
     let inv = V::splat(1.0).div(V::splat(c.half_inv_rho).fma(d2, r));
     let t = inv.mul(r);
     let arg = V::splat(-c.inv_rho2).fma(d2, simd::erfc_poly(t));
@@ -758,7 +765,7 @@ struct Sums<V> {
 /// exponent may leave the range of normal f32 results.
 #[inline(always)]
 fn anion_run<V: Lanes, const ENERGY: bool, const SHELL: bool, const CLAMP: bool>(
-    c: &AnionKind,
+    c: &AnionConstants,
     run: &Run,
     p: (V, V, V),
     acc: &mut Sums<V>,
@@ -822,7 +829,7 @@ fn anion_run<V: Lanes, const ENERGY: bool, const SHELL: bool, const CLAMP: bool>
 /// Adds one run of images of a cation kind (screened Coulomb); `SHELL` as in [`anion_run`].
 #[inline(always)]
 fn cation_run<V: Lanes, const SHELL: bool>(
-    c: &CationKind,
+    c: &CationConstants,
     run: &Run,
     p: (V, V, V),
     acc: &mut Sums<V>,
@@ -1122,4 +1129,154 @@ pub(crate) fn compute_simd(
         seconds: started.elapsed().as_secs_f64(),
     };
     Ok((mismatch, energy_grid, stats))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::compute::{compute_f64, compute_with_isa, evaluate_point};
+    use super::super::model::*;
+    use super::{Isa, Lattice, Progress, TILE, blocks, layouts};
+    use crate::element::Element;
+    use crate::lattice::CellParameters;
+    use crate::lattice::Frac;
+    use crate::structure::Species;
+
+    /// A triclinic cell with a mixed anion site (two kinds at one position, different cutoffs),
+    /// an anion kind whose exponent leaves the f32 range within its cutoff (the clamped path),
+    /// a mixed cation site of two screening lengths, and mobile ions with their nearest site
+    /// excluded.
+    fn mixed_model() -> LandscapeModel {
+        let el = |s: &str| Element::from_symbol(s).unwrap();
+        let lattice = Lattice::from_parameters(CellParameters {
+            a: 4.1,
+            b: 4.6,
+            c: 5.2,
+            alpha: 84.0,
+            beta: 97.0,
+            gamma: 101.0,
+        })
+        .unwrap();
+        let atom = |f: [f64; 3], kind, occupancy| FrameworkAtom {
+            frac: Frac::new(f[0], f[1], f[2]),
+            kind,
+            occupancy,
+            label: "X".into(),
+        };
+        let anion = |sym: &str, q: f64, r0: f64, b: f64, cutoff: f64| AnionKind {
+            species: Species::new(el(sym), Some(q)),
+            r0,
+            b,
+            rmin: r0 + b * 5f64.ln(),
+            d0: 0.3,
+            cutoff,
+            radius: 1.4,
+            source: "test".into(),
+        };
+        let cation = |sym: &str, q: f64, rho: f64| CationKind {
+            species: Species::new(el(sym), Some(q)),
+            charge: q,
+            rho,
+            radius: 0.6,
+        };
+        LandscapeModel {
+            lattice,
+            probe: ProbeIon {
+                element: el("Li"),
+                valence: 1.0,
+                charge: 1.0,
+                coordination: 5.0,
+                radius: 0.76,
+            },
+            anions: vec![
+                // Li-O: Adams 2001 (bvparm2013), r0 = 1.1745 A, b = 0.514 A.
+                anion("O", -2.0, 1.1745, 0.514, 6.0),
+                // Li-F: Brese and O'Keeffe 1991, r0 = 1.360 A, b = 0.37 A (from memory).
+                anion("F", -1.0, 1.360, 0.37, 4.0),
+                // Li-Cl: Brese and O'Keeffe 1991, r0 = 1.91 A, b = 0.37 A (from memory), with a
+                // cutoff so long that (Rmin - cutoff)/b < -87: the clamped exponential.
+                anion("Cl", -1.0, 1.91, 0.37, 35.0),
+            ],
+            cations: vec![cation("Ti", 4.0, 1.05), cation("Mg", 2.0, 0.9)],
+            atoms: vec![
+                atom([0.1, 0.2, 0.3], FrameworkKind::Anion(0), 0.5),
+                atom([0.1, 0.2, 0.3], FrameworkKind::Anion(1), 0.5),
+                atom([0.6, 0.15, 0.8], FrameworkKind::Anion(0), 1.0),
+                atom([0.3, 0.7, 0.55], FrameworkKind::Anion(2), 0.25),
+                atom([0.45, 0.4, 0.05], FrameworkKind::Cation(0), 0.7),
+                atom([0.45, 0.4, 0.05], FrameworkKind::Cation(1), 0.3),
+                atom([0.9, 0.85, 0.5], FrameworkKind::Cation(1), 1.0),
+            ],
+            mobile: Some(MobileRepulsion {
+                kind: cation("Li", 1.0, 1.2),
+                sites: vec![
+                    (Frac::new(0.8, 0.5, 0.2), 1.0),
+                    (Frac::new(0.2, 0.9, 0.7), 0.5),
+                ],
+                excluded_nearest: 1,
+            }),
+            coulomb_cutoff: 8.0,
+            energy_cap: 10.0,
+            mismatch_cap: 10.0,
+        }
+    }
+
+    #[test]
+    fn core_and_shell_lists_give_the_plain_sums_at_every_point() {
+        // The plain per-point loop (`evaluate_point`, f64, libm's exp and erfc written straight
+        // from the formulas) is the reference; grids whose sides are not multiples of the block
+        // (9 = 8 + 1, 13 = 8 + 5, 17 = 16 + 1) give partial blocks and padded tiles, and one
+        // grid fits in a single partial block.
+        let model = mixed_model();
+        for dims in [[9, 13, 17], [3, 4, 5]] {
+            let reference = compute_f64(&model, dims, &Progress::Silent).unwrap();
+            for isa in Isa::available() {
+                let got = compute_with_isa(&model, dims, &Progress::Silent, isa).unwrap();
+                assert_eq!(
+                    got.stats.neighbour_evaluations, reference.stats.neighbour_evaluations,
+                    "{isa:?} {dims:?}: pairs within the cutoffs"
+                );
+                for idx in 0..got.energy.values.len() {
+                    let (dv, e) = evaluate_point(&model, got.energy.frac(got.energy.ijk(idx)));
+                    for (name, plain, f64_loop, have) in [
+                        ("energy", e, &reference.energy, &got.energy),
+                        ("mismatch", dv, &reference.mismatch, &got.mismatch),
+                    ] {
+                        let (want, have) = (f64_loop.values[idx] as f64, have.values[idx] as f64);
+                        assert!(
+                            (plain - want).abs() <= 1e-6 * plain.abs().max(1.0),
+                            "{dims:?} point {idx}: {name} of the f64 loop {want} against {plain}"
+                        );
+                        assert!(
+                            (want - have).abs() <= 1e-5 * want.abs().max(1.0),
+                            "{isa:?} {dims:?} point {idx}: {name} {have} against {want}"
+                        );
+                    }
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn blocks_of_one_shape_share_one_layout() {
+        // Every point of the grid appears once, in a tile of at most 16 slots, within the
+        // radius of its block's centre.
+        let m = *mixed_model().lattice.matrix();
+        let dims = [9, 13, 17];
+        let layouts = layouts(&m, dims);
+        assert_eq!(layouts.len(), 8);
+        let mut seen = vec![0u32; dims[0] * dims[1] * dims[2]];
+        for b in blocks(dims) {
+            let shape = [0, 1, 2].map(|a| b.hi[a] - b.lo[a]);
+            let l = layouts.iter().find(|l| l.shape == shape).unwrap();
+            assert_eq!(l.px.len() % TILE, 0);
+            let first = (b.lo[0] * dims[1] + b.lo[1]) * dims[2] + b.lo[2];
+            for &(q, g) in &l.slots {
+                seen[first + g] += 1;
+                let q = q as usize;
+                let d = (l.px[q].powi(2) + l.py[q].powi(2) + l.pz[q].powi(2)).sqrt();
+                assert!(d as f64 <= l.radius + 1e-5);
+            }
+        }
+        assert!(seen.iter().all(|&n| n == 1));
+    }
 }
