@@ -704,7 +704,7 @@ fn layouts(m: &Matrix3<f64>, dims: [usize; 3]) -> Vec<Layout> {
                                     }
                                 }
                             }
-                            while l.px.len() % TILE != 0 {
+                            while !l.px.len().is_multiple_of(TILE) {
                                 let q = l.px.len() - 1;
                                 let (x, y, z) = (l.px[q], l.py[q], l.pz[q]);
                                 l.px.push(x);
