@@ -62,6 +62,9 @@ KICK_A = 0.05  # end-point ion displaced along the path, away from the saddle, b
 RATTLE_A = 0.02  # rattle of the perfect crystal before relaxing it (site check)
 ON_SITE_A = 0.6  # a hopmap site this close to an ion of the file is that ion's site
 ON_PATH_A = 0.5  # a path point this close to an ion site passes through it
+NEAREST_TOL_A = 0.15  # a pair of ion sites this much above the shortest distance is still nearest
+MAX_CHAIN = 3  # network hops in one nearest-neighbour hop (up to two intermediate minima)
+FLAT_EV = 0.005  # a band whose highest image is within this of an end has no barrier
 CI_FILE = "TiO2_rutile.cif"
 CI_ION = "Li"
 CI_TOL_EV = 0.02  # barrier (the c channel of rutile is nearly flat under the model)
@@ -70,7 +73,8 @@ CI_ENERGY_TOL_EV = 0.005  # relaxed end-point total energy
 CSV_COLUMNS = [
     "file", "ion", "mode", "pass", "supercell", "atoms", "images", "barrier_ev",
     "start_energy_ev", "end_energy_ev", "end_minus_start_ev", "max_force_ev_a", "converged",
-    "neb_steps", "hopmap_barrier_ev", "hopmap_pass_barrier_ev", "hopmap_dimension",
+    "neb_steps", "hop_kind", "hop_length_a", "hopmap_hop_barrier_ev", "hopmap_barrier_ev",
+    "hopmap_pass_barrier_ev", "hopmap_dimension",
     "lowest_site_verdict", "site_energies", "ordering", "model", "ase_version", "date",
     "wall_s", "notes",
 ]
@@ -376,6 +380,13 @@ class Pass:
     description: str
     start_orbit: int | None
     end_orbit: int | None
+    kind: str = "lowest pass"  # "lowest pass", "nearest hop" or "channel repeat"
+    hop_barrier_ev: float | None = None  # hopmap's barrier of this very hop (see hop_barrier)
+    length_a: float = 0.0  # end to end, A
+    network_hops: list = field(default_factory=list)  # indices into paths --json hops[]
+    start_d: float = -1.0  # distance of the start along the channel profile (A), lowest pass
+    chain: int = 1  # network hops between the ends
+    why: str = ""  # why this kind was chosen
 
 
 def nearest_site(doc, frac, matrix):
@@ -503,7 +514,191 @@ def choose_pass(doc, struct, ion, vacancy: bool) -> Pass:
             + (f", through {len(inner)} intermediate minim{'a' if len(inner) != 1 else 'um'}"
                if inner else ""))
     return Pass(ch["dimension"], ch["barrier_ev"], sad["energy_ev"] - e_lo, fa, fb, path, desc,
-                ha["orbit"] if ha else None, hb["orbit"] if hb else None)
+                ha["orbit"] if ha else None, hb["orbit"] if hb else None,
+                hop_barrier_ev=sad["energy_ev"] - e_lo,
+                length_a=float(np.linalg.norm((fb - fa) @ m)), start_d=float(a["d"]),
+                chain=len(inner) + 1)
+
+
+def shortest_ion_distance(ion_c, matrix):
+    """Shortest distance (A) between two sites of the ion in the periodic crystal (a site and
+    its own image count), from Cartesian positions in the cell `matrix`."""
+    best = lattice_min_image(matrix)
+    for i in range(len(ion_c)):
+        for j in range(i + 1, len(ion_c)):
+            best = min(best, min_image_dist(ion_c[i], ion_c[j], matrix))
+    return best
+
+
+def nearest_hop(doc, struct, ion):
+    """hopmap's easiest hop between two nearest sites of the ion (vacancy mode).
+
+    Walks hopmap's site network (`hops[]` of `paths --json`) from each site on an ion site of
+    the file, through empty minima only (at most MAX_CHAIN network hops), to another site on an
+    ion site of the file whose distance is the shortest ion-ion distance (within
+    NEAREST_TOL_A). Of those chains the one with the lowest highest saddle is the hop; its
+    barrier is that saddle minus the lower of its two end sites (eV), the number paired with
+    the oracle's barrier from the lower relaxed end. The path handed to the NEB runs through
+    the ion sites at the ends and hopmap's saddles and intermediate minima in between
+    (fractional coordinates of the file's cell, unwrapped). Returns None when no such chain.
+    """
+    m = struct.lattice.matrix
+    inv = np.linalg.inv(m)
+    ion_c = ion_positions(struct, ion, majority=True)
+    if len(ion_c) == 0:
+        return None
+    d_min = shortest_ion_distance(ion_c, m)
+    sites = {s["index"]: s for s in doc["sites"]}
+
+    def ion_image(frac):
+        c = np.asarray(frac) @ m
+        for x in ion_c:
+            if min_image_dist(c, x, m) < ON_SITE_A:
+                d = x @ inv - np.asarray(frac)
+                return np.asarray(frac) + (d - np.round(d))
+        return None
+
+    on_ion = {k: ion_image(s["frac"]) for k, s in sites.items()}
+    # out-going edges: (to, image, saddle frac relative to the from site's cell, saddle eV, hop)
+    edges = {k: [] for k in sites}
+    for n, h in enumerate(doc.get("hops") or []):
+        u, v, t = h["from"], h["to"], np.array(h["image"], float)
+        fu, fv = np.array(sites[u]["frac"]), np.array(sites[v]["frac"]) + t
+        sf = np.array(h["saddle_frac"], float)
+        sf = sf + np.round(0.5 * (fu + fv) - sf)
+        edges[u].append((v, t, sf, h["saddle_ev"], n))
+        edges[v].append((u, -t, sf - t, h["saddle_ev"], n))
+    best = None
+    seen_orbits = set()
+    for k, s in sorted(sites.items()):
+        if on_ion[k] is None or s["orbit"] in seen_orbits:
+            continue
+        seen_orbits.add(s["orbit"])
+        start = on_ion[k]
+        # depth-first over chains of hops through empty minima
+        stack = [(k, np.zeros(3), [start], -math.inf, [], {(k, (0, 0, 0))})]
+        while stack:
+            u, off, pts, top, used, visited = stack.pop()
+            for v, t, sf, e_sad, n in edges[u]:
+                o2 = off + t
+                key = (v, tuple(int(x) for x in np.round(o2)))
+                if key in visited:
+                    continue
+                top2 = max(top, e_sad)
+                fv = np.array(sites[v]["frac"]) + o2
+                if on_ion[v] is not None:
+                    end = on_ion[v] + o2
+                    dist = float(np.linalg.norm((end - start) @ m))
+                    if dist < 0.3 or dist > d_min + NEAREST_TOL_A:
+                        continue
+                    e_lo = min(s["energy_ev"], sites[v]["energy_ev"])
+                    path = np.vstack(pts + [sf + off, end])
+                    arc = float(np.linalg.norm(np.diff(path @ m, axis=0), axis=1).sum())
+                    cand = (top2 - e_lo, len(used) + 1, arc)
+                    if best is None or cand < best[0]:
+                        best = (cand, k, v, path, used + [n], dist)
+                elif len(used) + 1 < MAX_CHAIN:
+                    stack.append((v, o2, pts + [sf + off, fv], top2, used + [n],
+                                  visited | {key}))
+    if best is None:
+        return None
+    (barrier, nchain, _), k, v, path, used, dist = best
+    sa, sb = sites[k], sites[v]
+
+    def lab(x):
+        return f"orbit {x['orbit']}" + (f" ({x['label']})" if x.get("label") else "")
+
+    desc = (f"nearest hop: {lab(sa)} -> {lab(sb)}, {dist:.2f} A apart (shortest {ion}-{ion} "
+            f"distance {d_min:.2f} A), over {nchain} network hop{'s' if nchain > 1 else ''} "
+            f"(hops[] {', '.join(map(str, used))})")
+    ch = min(doc["channels"], key=lambda c: (c["threshold_ev"], c["dimension"]))
+    return Pass(ch["dimension"], ch["barrier_ev"], barrier, path[0], path[-1], path, desc,
+                sa["orbit"], sb["orbit"], kind="nearest hop", hop_barrier_ev=barrier,
+                length_a=dist, network_hops=used, chain=nchain,
+                why=f"shortest {ion}-{ion} distance {d_min:.2f} A")
+
+
+def repeat_pass(doc, struct, ps: Pass | None) -> Pass:
+    """Interstitial mode: from the pass's start minimum to the same minimum one repeat of the
+    channel away, along hopmap's lowest path (the whole repeat, every saddle of it). hopmap's
+    barrier of it: the highest point of the repeat minus its lowest (eV)."""
+    ch = min(doc["channels"], key=lambda c: (c["threshold_ev"], c["dimension"]))
+    prof = next(p for p in doc["profiles"] if p["dimension"] == ch["dimension"])
+    m = struct.lattice.matrix
+    T = np.array(prof["translation"], float)
+    L = prof["length_a"]
+    d = np.array([p[0] for p in prof["points"]])
+    e = np.array([p[1] for p in prof["points"]])
+    f = np.array(prof["points_frac"], float)
+    ext_d = np.concatenate([d, d[1:] + L, d[1:] + 2 * L])
+    ext_e = np.concatenate([e, e[1:], e[1:]])
+    ext_f = np.concatenate([f, f[1:] + T, f[1:] + 2 * T])
+    if ps is not None and ps.start_d >= 0:
+        d0 = ps.start_d
+        # the start point as a position on the first repeat of the extended path
+        while d0 >= L:
+            d0 -= L
+        j0 = int(np.argmin(np.abs(ext_d - d0)))
+        fa = ps.start_frac
+    else:
+        # no usable pass: start at the lowest point of the profile
+        j0 = int(np.argmin(e))
+        d0, fa = float(d[j0]), f[j0]
+    sel = (ext_d > d0 + 1e-6) & (ext_d < d0 + L - 1e-6)
+    shift = ext_f[j0] - fa
+    path = np.vstack([fa, ext_f[sel] - shift, fa + T])
+    seg = (ext_d >= d0 - 1e-6) & (ext_d <= d0 + L + 1e-6)
+    barrier = float(ext_e[seg].max() - ext_e[seg].min())
+    desc = (f"channel repeat: {ch['dimension']}D channel, from the start minimum of the lowest "
+            f"pass to its image one repeat away, {float(np.linalg.norm(T @ m)):.2f} A apart")
+    orbit = ps.start_orbit if ps is not None else None
+    return Pass(ch["dimension"], ch["barrier_ev"], barrier, fa, fa + T, path,
+                desc, orbit, orbit, kind="channel repeat",
+                hop_barrier_ev=barrier, length_a=float(np.linalg.norm(T @ m)),
+                why="the ends of the lowest pass relax into one well")
+
+
+def choose_hop(doc, struct, ion, vacancy: bool, hop_mode="auto") -> Pass:
+    """The hop the oracle runs. `hop_mode`: "pass" (the lowest pass, see choose_pass),
+    "nearest" (nearest_hop), "repeat" (interstitial: repeat_pass) or "auto": in vacancy mode
+    the nearest hop when the lowest pass joins sites farther apart than the shortest ion-ion
+    distance, so that it spans more than one vacancy hop (or when it cannot be set up at all),
+    else the lowest pass, whose ends are then a nearest pair; in interstitial mode the lowest
+    pass (run_neb turns to the channel repeat when its ends relax into one well)."""
+    ps, err = None, None
+    try:
+        ps = choose_pass(doc, struct, ion, vacancy)
+    except OracleError as e:
+        err = e
+    if hop_mode == "repeat" or (not vacancy and hop_mode == "auto" and ps is None):
+        rp = repeat_pass(doc, struct, ps)
+        if hop_mode == "repeat":
+            rp.why = "asked for"
+        elif ps is None:
+            rp.why = f"the lowest pass could not be set up ({err})"
+        return rp
+    if not vacancy or hop_mode == "pass":
+        if ps is None:
+            raise err
+        ps.why = "interstitial mode" if not vacancy else "asked for"
+        return ps
+    ion_c = ion_positions(struct, ion, majority=True)
+    d_min = shortest_ion_distance(ion_c, struct.lattice.matrix)
+    if hop_mode == "auto" and ps is not None and ps.length_a <= d_min + NEAREST_TOL_A:
+        ps.why = (f"its ends are a nearest pair ({ps.length_a:.2f} A; shortest {ion}-{ion} "
+                  f"distance {d_min:.2f} A)")
+        return ps
+    nn = nearest_hop(doc, struct, ion)
+    if nn is None:
+        if ps is None:
+            raise OracleError(f"{err}; and no chain of hops joins two nearest sites of {ion}")
+        ps.why = "no chain of hops joins two nearest sites of the ion"
+        return ps
+    if ps is None:
+        nn.why += f"; the lowest pass could not be set up ({err})"
+    else:
+        nn.why += f"; the lowest pass joins sites {ps.length_a:.2f} A apart"
+    return nn
 
 
 def resample(points_cart: np.ndarray, n: int) -> np.ndarray:
@@ -570,6 +765,9 @@ class NebResult:
     hopmap_dimension: int
     ordering: str
     wall_s: float
+    hop_kind: str = ""
+    hop_length_a: float = 0.0
+    hopmap_hop_barrier_ev: float | None = None
     notes: list = field(default_factory=list)
     profile: list = field(default_factory=list)
 
@@ -622,20 +820,56 @@ def build_endpoints(struct, ion, ps: Pass, vacancy, min_image):
 
 
 def run_neb(path: Path, ion: str, binary=None, n_images=5, min_image=MIN_IMAGE_A,
-            fmax=NEB_FMAX, steps=NEB_STEPS, log=print) -> NebResult:
-    from ase import Atoms
-    from ase.mep import NEB
-    from ase.optimize import FIRE
-
+            fmax=NEB_FMAX, steps=NEB_STEPS, log=print, hop_mode="auto") -> NebResult:
+    """The oracle's barrier of the hop chosen by `choose_hop`. In interstitial mode with
+    `hop_mode` "auto", a lowest pass whose relaxed ends turn out to be one well (they relax
+    onto one point, or the band has no point above both ends by more than FLAT_EV) is run
+    again over one whole channel repeat (`repeat_pass`), and the row says so."""
     t0 = time.time()
     binary = hopmap_bin(binary)
     struct = load_structure(path)
     doc = run_hopmap(binary, path, ion)
     vacancy = any(ion in site_elements(s) for s in struct)
+    ps = choose_hop(doc, struct, ion, vacancy, hop_mode)
+    try:
+        res = _run_band(path, struct, ion, ps, vacancy, n_images, min_image, fmax, steps, log,
+                        t0)
+        no_top = res.barrier_ev < FLAT_EV or any(
+            n.startswith(NO_TOP_NOTE) for n in res.notes)
+        one_well = not vacancy and ps.kind != "channel repeat" and no_top
+        first = (f"the lowest pass ({ps.length_a:.2f} A) gave {res.barrier_ev:.4f} eV with no "
+                 "point of the band above both relaxed ends")
+    except OracleError as e:
+        if (vacancy or hop_mode != "auto" or ps.kind == "channel repeat"
+                or "one site" not in str(e)):
+            raise
+        one_well = True
+        first = f"the ends of the lowest pass ({ps.length_a:.2f} A) are or relax into one site"
+    if one_well and hop_mode == "auto":
+        log(f"  {first}: one well; running one channel repeat")
+        rp = repeat_pass(doc, struct, ps)
+        res = _run_band(path, struct, ion, rp, vacancy, n_images, min_image, fmax, steps, log,
+                        t0)
+        res.notes.insert(0, f"{first}: {REPEAT_NOTE}")
+    return res
+
+
+def _run_band(path, struct, ion, ps: Pass, vacancy, n_images, min_image, fmax, steps, log,
+              t0) -> NebResult:
+    from ase import Atoms
+    from ase.mep import NEB
+    from ase.optimize import FIRE
+
     mode = "vacancy" if vacancy else "interstitial"
-    ps = choose_pass(doc, struct, ion, vacancy)
-    log(f"{path.name} {ion}: {mode} mode; pass: {ps.description}")
+    log(f"{path.name} {ion}: {mode} mode; {ps.kind} ({ps.why}): {ps.description}")
+    if ps.length_a < 0.3:
+        raise OracleError(f"{path}: the hop's two ends are one site ({ps.length_a:.2f} A apart)")
     base, path_c, od = build_endpoints(struct, ion, ps, vacancy, min_image)
+    reach = lattice_min_image(np.array(base.cell))
+    if ps.length_a > 0.5 * reach:
+        raise OracleError(f"{path}: the hop ({ps.length_a:.2f} A) is longer than half the "
+                          f"supercell's shortest translation ({reach:.2f} A): the moving ion "
+                          "would meet its own image")
     notes = []
     pts = resample(path_c, n_images + 2)
 
@@ -705,17 +939,21 @@ def run_neb(path: Path, ion: str, binary=None, n_images=5, min_image=MIN_IMAGE_A
         notes.append(f"NEB not converged in {steps} steps (max force {fres:.3f} eV/A)")
     imax = int(np.argmax(energies))
     if imax in (0, len(energies) - 1):
-        notes.append("highest energy at an end point: no barrier between the relaxed ends")
+        notes.append(f"{NO_TOP_NOTE}: no barrier between the relaxed ends")
+        if ps.kind == "channel repeat":
+            notes.append("flat channel: no barrier over a whole repeat within the NEB's "
+                         "resolution")
     wall = time.time() - t0
     log(f"  barrier {barrier:.3f} eV from the lower end; max force {fres:.3f} eV/A; "
         f"{'converged' if conv else 'NOT converged'} after {opt.nsteps} steps; {wall:.0f} s")
     return NebResult(
-        file=path.name, ion=ion, mode=mode, pass_desc=ps.description,
+        file=path.name, ion=ion, mode=mode, pass_desc=f"{ps.description} [{ps.why}]",
         supercell="x".join(map(str, od.mult)), atoms=len(start), images=n_images,
         barrier_ev=barrier, start_energy_ev=e0, end_energy_ev=e1, max_force_ev_a=fres,
         converged=conv, neb_steps=opt.nsteps, hopmap_barrier_ev=ps.hopmap_barrier_ev,
         hopmap_pass_barrier_ev=ps.hopmap_pass_barrier_ev, hopmap_dimension=ps.dimension,
-        ordering=od.note, wall_s=wall, notes=notes, profile=prof)
+        ordering=od.note, wall_s=wall, notes=notes, profile=prof, hop_kind=ps.kind,
+        hop_length_a=ps.length_a, hopmap_hop_barrier_ev=ps.hop_barrier_ev)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -939,6 +1177,8 @@ def row_from(res: NebResult | None, verdict, site_rows, wall, err_notes, path, i
                  end_minus_start_ev=fmt(res.end_energy_ev - res.start_energy_ev),
                  max_force_ev_a=fmt(res.max_force_ev_a, 3),
                  converged="yes" if res.converged else "no", neb_steps=res.neb_steps,
+                 hop_kind=res.hop_kind, hop_length_a=fmt(res.hop_length_a, 2),
+                 hopmap_hop_barrier_ev=fmt(res.hopmap_hop_barrier_ev),
                  hopmap_barrier_ev=fmt(res.hopmap_barrier_ev),
                  hopmap_pass_barrier_ev=fmt(res.hopmap_pass_barrier_ev),
                  hopmap_dimension=res.hopmap_dimension, ordering=res.ordering)
@@ -988,9 +1228,27 @@ def refs_rows(refs: Path):
     return rows
 
 
-def refresh_hopmap(rows, refs, out, table, binary):
-    """Recompute the hopmap columns (pass, barriers, dimension) of the rows in `out` from the
-    current hopmap, without the model."""
+REPEAT_NOTE = "one well, so the hop is one channel repeat"
+STALE_NOTE = "stale: the stored NEB ran a different hop"
+
+
+def stored_hop_length(r):
+    """End-to-end length (A) of the hop a stored row's NEB ran: the `hop_length_a` column, or
+    for rows written before it the "X A apart" of the `pass` column."""
+    import re
+
+    if r.get("hop_length_a"):
+        return float(r["hop_length_a"])
+    m = re.search(r"([0-9.]+) A apart", r.get("pass", ""))
+    return float(m.group(1)) if m else None
+
+
+def refresh_hopmap(rows, refs, out, table, binary, hop_mode="auto"):
+    """Recompute the hopmap columns of the rows in `out` from the current hopmap, without the
+    model: the network barrier, the pass barrier, and the barrier of the hop the current rules
+    choose (`hopmap_hop_barrier_ev`, paired with the oracle's barrier). When that hop is not
+    the one the stored NEB ran (another end-to-end length), the hop barrier is left empty and
+    the row is marked stale: it needs a rerun before it counts."""
     binary = hopmap_bin(binary)
     files = {(Path(r["file"]).name, r["ion"]): (refs.parent / r["file"]).resolve() for r in rows}
     for r in table:
@@ -999,12 +1257,45 @@ def refresh_hopmap(rows, refs, out, table, binary):
             continue
         struct = load_structure(path)
         doc = run_hopmap(binary, path, r["ion"])
-        ps = choose_pass(doc, struct, r["ion"], r["mode"] == "vacancy")
-        r.update({"pass": ps.description, "hopmap_barrier_ev": fmt(ps.hopmap_barrier_ev),
+        vacancy = r["mode"] == "vacancy"
+        mode = hop_mode
+        if not vacancy and hop_mode == "auto" and REPEAT_NOTE in r.get("notes", ""):
+            mode = "repeat"
+        notes = [n for n in (r.get("notes") or "").split("; ")
+                 if n and not n.startswith(STALE_NOTE)]
+        try:
+            ps = choose_hop(doc, struct, r["ion"], vacancy, mode)
+        except OracleError as e:
+            r["hopmap_hop_barrier_ev"] = ""
+            r["notes"] = "; ".join(notes + [f"{STALE_NOTE}: hopmap gives no hop now ({e})"])
+            print(f"{r['file']} {r['ion']}: no hop now: {e}")
+            continue
+        was = stored_hop_length(r)
+        r.update({"hopmap_barrier_ev": fmt(ps.hopmap_barrier_ev),
                   "hopmap_pass_barrier_ev": fmt(ps.hopmap_pass_barrier_ev),
                   "hopmap_dimension": ps.dimension})
+        reach = None
+        if r.get("supercell"):
+            mult = np.array([int(x) for x in r["supercell"].split("x")])
+            reach = lattice_min_image(struct.lattice.matrix * mult[:, None])
+        if was is not None and reach is not None and was > 0.5 * reach:
+            # a band written before run_neb refused such hops: its ion meets its own image
+            r["hopmap_hop_barrier_ev"] = ""
+            notes.append(f"{STALE_NOTE}: the hop ({was:.2f} A) is longer than half the "
+                         f"supercell's shortest translation ({reach:.2f} A), refused now")
+            state = "STALE: hop longer than half the supercell"
+        elif was is not None and abs(was - ps.length_a) <= 0.02:
+            r.update({"hop_kind": ps.kind, "hop_length_a": fmt(ps.length_a, 2),
+                      "hopmap_hop_barrier_ev": fmt(ps.hop_barrier_ev)})
+            state = f"{ps.kind}, {ps.length_a:.2f} A, {ps.hop_barrier_ev:.4f} eV"
+        else:
+            r["hopmap_hop_barrier_ev"] = ""
+            notes.append(f"{STALE_NOTE} ({was} A) from the one chosen now ({ps.kind}, "
+                         f"{ps.length_a:.2f} A): rerun")
+            state = "STALE: rerun"
+        r["notes"] = "; ".join(notes)
         sanity_notes(r)
-        print(f"{r['file']} {r['ion']}: hopmap columns refreshed")
+        print(f"{r['file']} {r['ion']}: hopmap columns refreshed ({state})")
     write_table(out, table)
     return 0
 
@@ -1023,7 +1314,7 @@ def cmd_run_set(args):
             only += [i for i in picked if i not in only and 1 <= i <= len(rows)]
     table = read_table(out)
     if args.refresh_hopmap:
-        return refresh_hopmap(rows, refs, out, table, args.hopmap)
+        return refresh_hopmap(rows, refs, out, table, args.hopmap, args.hop_mode)
     done = {(r["file"], r["ion"]) for r in table}
     for i in (only if only is not None else range(1, len(rows) + 1)):
         ref = rows[i - 1]
@@ -1036,7 +1327,7 @@ def cmd_run_set(args):
         res, verdict, srows, errs = None, "", [], []
         try:
             res = run_neb(path, ref["ion"], args.hopmap, args.images, args.min_image,
-                          steps=args.steps)
+                          steps=args.steps, hop_mode=args.hop_mode)
         except Exception as e:  # one bad row never stops the set
             errs.append(f"neb skipped: {e}")
             print(f"  neb failed: {e}", file=sys.stderr)
@@ -1047,6 +1338,11 @@ def cmd_run_set(args):
                 errs.append(f"sites skipped: {e}")
                 print(f"  sites failed: {e}", file=sys.stderr)
         row = row_from(res, verdict, srows, time.time() - t0, errs, path, ref["ion"])
+        old = [r for r in read_table(out) if (r["file"], r["ion"]) == key]
+        if args.no_sites and old and not row["lowest_site_verdict"]:
+            # the site check was not rerun: the stored one still holds
+            for k in ("lowest_site_verdict", "site_energies"):
+                row[k] = old[0].get(k, "")
         table = [r for r in read_table(out) if (r["file"], r["ion"]) != key] + [row]
         order = {(Path(r["file"]).name, r["ion"]): k for k, r in enumerate(rows)}
         table.sort(key=lambda r: (order.get((r["file"], r["ion"]), 10**6), r["file"], r["ion"]))
@@ -1057,7 +1353,7 @@ def cmd_run_set(args):
 
 def cmd_neb(args):
     res = run_neb(Path(args.file), args.ion, args.hopmap, args.images, args.min_image,
-                  steps=args.steps)
+                  steps=args.steps, hop_mode=args.hop_mode)
     if args.json:
         d = dict(res.__dict__)
         d["model"] = model_name()
@@ -1099,23 +1395,67 @@ def cmd_relax(args):
     return 0
 
 
+NO_TOP_NOTE = "highest energy at an end point"
+
+
+def no_barrier(r):
+    """A band whose highest point is one of its relaxed ends between two different wells: the
+    number is the ends' energy difference, not a barrier. (Over a channel repeat the ends are
+    one site and its image: there a band with no top is a flat channel, a barrier of zero.)"""
+    return NO_TOP_NOTE in r.get("notes", "") and r.get("hop_kind") != "channel repeat"
+
+
+def paired_rows(rows):
+    """Rows that enter the rank correlation: a converged NEB with a barrier (see `no_barrier`)
+    and hopmap's barrier of the same hop (`hopmap_hop_barrier_ev`, empty when the row is
+    stale). The evidence bench (crates/hopmap/benches/model_evidence.rs) pairs the same rows
+    the same way."""
+    return [r for r in rows
+            if r.get("barrier_ev") and r.get("hopmap_hop_barrier_ev") and r["converged"] == "yes"
+            and not no_barrier(r)]
+
+
 def cmd_summary(args):
-    """results.csv as a Markdown table."""
+    """results.csv as a Markdown table, then the rank correlations."""
     rows = read_table(Path(args.results))
-    print("| file | ion | mode | atoms | oracle barrier (eV) | hopmap barrier (eV) | "
-          "converged | wall (s) | lowest site |")
-    print("|---|---|---|---|---|---|---|---|---|")
+    print("| file | ion | mode | hop | hop length (A) | atoms | oracle barrier (eV) | "
+          "hopmap, same hop (eV) | hopmap network (eV) | converged | wall (s) | lowest site |")
+    print("|---|---|---|---|---|---|---|---|---|---|---|---|")
     for r in rows:
         verdict = r["lowest_site_verdict"].split(":")[0] if r["lowest_site_verdict"] else ""
-        print(f"| {r['file']} | {r['ion']} | {r['mode']} | {r['atoms']} | {r['barrier_ev']} | "
+        hop = r.get("hop_kind", "")
+        if STALE_NOTE in r.get("notes", ""):
+            hop = (hop + ", " if hop else "") + "stale"
+        elif no_barrier(r):
+            hop = (hop + ", " if hop else "") + "no barrier"
+        print(f"| {r['file']} | {r['ion']} | {r['mode']} | {hop} | {r.get('hop_length_a', '')} "
+              f"| {r['atoms']} | {r['barrier_ev']} | {r.get('hopmap_hop_barrier_ev', '')} | "
               f"{r['hopmap_barrier_ev']} | {r['converged']} | {r['wall_s']} | {verdict} |")
-    pairs = [(float(r["barrier_ev"]), float(r["hopmap_barrier_ev"]), r["file"], r["ion"])
-             for r in rows
-             if r["barrier_ev"] and r["hopmap_barrier_ev"] and r["converged"] == "yes"]
+    pairs = paired_rows(rows)
     if len(pairs) >= 3:
-        rho = spearman([p[0] for p in pairs], [p[1] for p in pairs])
-        print(f"\nrank correlation (Spearman) of hopmap's barrier with the oracle's, converged "
-              f"rows: {rho:.2f} over {len(pairs)} rows")
+        ora = [float(r["barrier_ev"]) for r in pairs]
+        rho = spearman(ora, [float(r["hopmap_hop_barrier_ev"]) for r in pairs])
+        rho_net = spearman(ora, [float(r["hopmap_barrier_ev"]) for r in pairs])
+        print(f"\nrank correlation (Spearman) of hopmap's barrier of the same hop with the "
+              f"oracle's, converged rows: {rho:.2f} over {len(pairs)} rows (hopmap's network "
+              f"barrier instead: {rho_net:.2f})")
+        # both against the published values (mid-points of references.csv's ranges), over the
+        # paired rows that have one
+        refs = Path(args.refs)
+        mids = {}
+        if refs.exists():
+            for r in refs_rows(refs):
+                if r.get("barrier_low_eV") and r.get("barrier_high_eV"):
+                    mids[(Path(r["file"]).name, r["ion"])] = 0.5 * (
+                        float(r["barrier_low_eV"]) + float(r["barrier_high_eV"]))
+        pub = [(mids[(r["file"], r["ion"])], float(r["barrier_ev"]),
+                float(r["hopmap_hop_barrier_ev"])) for r in pairs
+               if (r["file"], r["ion"]) in mids]
+        if len(pub) >= 3:
+            mid = [p[0] for p in pub]
+            print(f"against the published mid-points ({refs.name}), the {len(pub)} of these rows "
+                  f"that have one: the oracle {spearman(mid, [p[1] for p in pub]):.2f}, "
+                  f"hopmap {spearman(mid, [p[2] for p in pub]):.2f}")
     verdicts = [r["lowest_site_verdict"] for r in rows if r["lowest_site_verdict"]]
     agree = sum(v.startswith("agrees") for v in verdicts)
     if verdicts:
@@ -1143,6 +1483,74 @@ def spearman(x, y):
     vx = sum((a - mx) ** 2 for a in rx) ** 0.5
     vy = sum((b - my) ** 2 for b in ry) ** 0.5
     return cov / (vx * vy) if vx and vy else float("nan")
+
+
+def cmd_self_test(args):
+    """Checks of the hop choice against geometry facts, without the model (pymatgen, NumPy and
+    the hopmap binary only). Prints one line per check and a closing "N passed, N failed"."""
+    binary = hopmap_bin(args.hopmap)
+    ref = REPO / "structures" / "reference"
+    results = []
+
+    def check(name, ok, detail=""):
+        results.append(bool(ok))
+        print(f"self-test: {'ok    ' if ok else 'FAILED'} {name}"
+              + (f" ({detail})" if detail else ""))
+
+    def hop(fname, ion, hop_mode="auto"):
+        path = ref / fname
+        struct = load_structure(path)
+        doc = run_hopmap(binary, path, ion)
+        vac = any(ion in site_elements(x) for x in struct)
+        return struct, doc, choose_hop(doc, struct, ion, vac, hop_mode)
+
+    # rock salt: the cation sublattice is face-centred cubic, nearest cations a/sqrt(2) apart
+    # (textbook crystallography); hopmap's lowest pass there joins next-nearest cations, so the
+    # nearest hop is taken; it passes the empty tetrahedral site of the anion sublattice, a
+    # quarter of a body diagonal from a corner ((1/4, 1/4, 1/4) and its images).
+    for fname, ion in (("LiF_rocksalt.cif", "Li"), ("NaCl_rocksalt.cif", "Na")):
+        struct, doc, h = hop(fname, ion)
+        a = struct.lattice.a
+        check(f"{fname}: nearest hop chosen", h.kind == "nearest hop", h.why)
+        check(f"{fname}: hop length a/sqrt(2)", abs(h.length_a - a / math.sqrt(2)) < 0.01,
+              f"{h.length_a:.3f} A against {a / math.sqrt(2):.3f} A")
+        mids = h.path_frac[2:-2:2] if len(h.path_frac) > 3 else []
+        tet = [x for x in mids if np.allclose(np.abs((x % 0.5) - 0.25), 0.0, atol=0.02)]
+        check(f"{fname}: through the tetrahedral site", h.chain == 2 and len(tet) == 1,
+              f"{h.chain} network hops, intermediate {np.round(mids, 3).tolist()}")
+        by = {x["index"]: x for x in doc["sites"]}
+        sad = max(doc["hops"][n]["saddle_ev"] for n in h.network_hops)
+        e0 = by[doc["hops"][h.network_hops[0]]["from"]]["energy_ev"]
+        e0 = min(e0, *(x["energy_ev"] for x in doc["sites"] if x["orbit"] == h.start_orbit))
+        check(f"{fname}: hop barrier = highest saddle of its hops minus the end site",
+              abs(h.hop_barrier_ev - (sad - e0)) < 1e-6, f"{h.hop_barrier_ev:.4f} eV")
+    # olivine LiFePO4: Li on the 4a inversion centres, nearest along b at b/2 (the olivine
+    # structure, Pnma): the lowest pass already joins a nearest pair and is kept
+    struct, doc, h = hop("LiFePO4_olivine.cif", "Li")
+    b = struct.lattice.b
+    check("LiFePO4_olivine.cif: lowest pass kept", h.kind == "lowest pass", h.why)
+    check("LiFePO4_olivine.cif: hop length b/2", abs(h.length_a - b / 2) < 0.01,
+          f"{h.length_a:.3f} A against {b / 2:.3f} A")
+    # alpha-Li3N: Li2 on the 2c sites of the Li2N layer, a/sqrt(3) apart (P6/mmm)
+    struct, doc, h = hop("Li3N_alpha.cif", "Li")
+    a = struct.lattice.a
+    check("Li3N_alpha.cif: nearest hop within the Li2N layer",
+          h.kind == "nearest hop" and abs(h.length_a - a / math.sqrt(3)) < 0.01,
+          f"{h.kind}, {h.length_a:.3f} A against {a / math.sqrt(3):.3f} A")
+    # interstitial channel repeat: the end is the start translated by the channel's lattice
+    # vector (rutile TiO2, c axis)
+    struct, doc, h = hop("TiO2_rutile.cif", "Li", "repeat")
+    c = struct.lattice.c
+    check("TiO2_rutile.cif: channel repeat ends one c apart",
+          np.allclose(h.end_frac - h.start_frac, [0, 0, 1], atol=1e-6)
+          and abs(h.length_a - c) < 1e-6, f"{h.length_a:.3f} A against c = {c:.3f} A")
+    # Spearman's coefficient, exact small cases: 1 - 6 sum d^2 / (n (n^2 - 1))
+    check("spearman: one swap in four is 0.8", abs(spearman([1, 2, 3, 4], [1, 3, 2, 4]) - 0.8)
+          < 1e-12)
+    check("spearman: reversed order is -1", abs(spearman([1, 2, 3], [3, 2, 1]) + 1) < 1e-12)
+    passed = sum(results)
+    print(f"{passed} passed, {len(results) - passed} failed")
+    return 0 if passed == len(results) else 1
 
 
 def cmd_ci(args):
@@ -1179,6 +1587,11 @@ def main(argv=None):
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     sub = ap.add_subparsers(dest="cmd", required=True)
 
+    def hop_mode(p):
+        p.add_argument("--hop-mode", choices=["auto", "pass", "nearest", "repeat"],
+                       default="auto", help="which hop: the lowest pass, the nearest-neighbour "
+                       "vacancy hop, one channel repeat, or auto (default; see README)")
+
     def common(p, ion=True):
         p.add_argument("--hopmap", help="hopmap binary (default: $HOPMAP_BIN or "
                        "target/release/hopmap)")
@@ -1193,6 +1606,7 @@ def main(argv=None):
     p.add_argument("--steps", type=int, default=NEB_STEPS, help="NEB step cap")
     p.add_argument("--json", action="store_true")
     common(p)
+    hop_mode(p)
     p.set_defaults(fn=cmd_neb)
 
     p = sub.add_parser("sites", help="is hopmap's lowest site the real lowest site?")
@@ -1219,11 +1633,19 @@ def main(argv=None):
     p.add_argument("--refresh-hopmap", action="store_true",
                    help="only recompute the hopmap columns of the rows already in --out")
     common(p)
+    hop_mode(p)
     p.set_defaults(fn=cmd_run_set)
 
     p = sub.add_parser("summary", help="results.csv as a Markdown table")
     p.add_argument("--results", default=str(DEFAULT_RESULTS))
+    p.add_argument("--refs", default=str(DEFAULT_REFS),
+                   help="references table with the published barrier ranges")
     p.set_defaults(fn=cmd_summary)
+
+    p = sub.add_parser("self-test", help="hop choice checked against geometry facts "
+                       "(no model; seconds)")
+    p.add_argument("--hopmap")
+    p.set_defaults(fn=cmd_self_test)
 
     p = sub.add_parser("ci", help=f"fast check: {CI_FILE} {CI_ION} NEB against results.csv")
     p.add_argument("--results", default=str(DEFAULT_RESULTS))

@@ -41,8 +41,22 @@ fn folder() -> PathBuf {
     Path::new(concat!(env!("CARGO_MANIFEST_DIR"), "/../..")).join("structures/reference")
 }
 
-/// Barrier per row from the oracle's results table, when present: (file, ion) -> eV.
-fn oracle_barriers() -> BTreeMap<(String, String), f64> {
+/// One oracle row that enters the rank correlation.
+#[derive(Debug, Clone, Copy)]
+struct OracleRow {
+    /// The oracle's NEB barrier (eV).
+    barrier_ev: f64,
+    /// hopmap's barrier of the same hop (eV): its highest saddle minus the lower end site, as
+    /// stored by `mlip_oracle.py run-set` (refreshed with `--refresh-hopmap`).
+    hop_barrier_ev: f64,
+}
+
+/// The oracle's rows, (file, ion) -> row, paired as `mlip_oracle.py summary` pairs them: a
+/// converged NEB (`converged` = yes) whose band has a top (no "highest energy at an end point"
+/// in `notes`, except over a whole channel repeat, where that is a flat channel) and hopmap's
+/// barrier of the same hop (`hopmap_hop_barrier_ev`, empty for a stale row). Other rows are
+/// left out.
+fn oracle_barriers() -> BTreeMap<(String, String), OracleRow> {
     let path =
         Path::new(concat!(env!("CARGO_MANIFEST_DIR"), "/../..")).join("tools/oracle/results.csv");
     let mut out = BTreeMap::new();
@@ -57,18 +71,40 @@ fn oracle_barriers() -> BTreeMap<(String, String), f64> {
         return out;
     };
     let col = |n: &str| h.iter().position(|x| x == n);
-    let (Some(cf), Some(ci), Some(cb)) = (col("file"), col("ion"), col("barrier_ev")) else {
+    let (Some(cf), Some(ci), Some(cb), Some(ch), Some(cc), Some(cn), Some(ck)) = (
+        col("file"),
+        col("ion"),
+        col("barrier_ev"),
+        col("hopmap_hop_barrier_ev"),
+        col("converged"),
+        col("notes"),
+        col("hop_kind"),
+    ) else {
         return out;
     };
     for rec in r.records().flatten() {
-        if let (Some(f), Some(i), Some(b)) = (rec.get(cf), rec.get(ci), rec.get(cb))
-            && let Ok(b) = b.parse::<f64>()
+        let no_top = rec
+            .get(cn)
+            .is_some_and(|n| n.contains("highest energy at an end point"))
+            && rec.get(ck) != Some("channel repeat");
+        if no_top {
+            continue;
+        }
+        let num = |c: usize| rec.get(c).and_then(|x| x.parse::<f64>().ok());
+        if let (Some(f), Some(i), Some(b), Some(hb), Some("yes")) =
+            (rec.get(cf), rec.get(ci), num(cb), num(ch), rec.get(cc))
         {
             let name = Path::new(f)
                 .file_name()
                 .map(|x| x.to_string_lossy().to_string())
                 .unwrap_or_default();
-            out.insert((name, i.to_string()), b);
+            out.insert(
+                (name, i.to_string()),
+                OracleRow {
+                    barrier_ev: b,
+                    hop_barrier_ev: hb,
+                },
+            );
         }
     }
     out
@@ -269,7 +305,7 @@ fn summarise(
     data: &[Loaded],
     tables: &[Vec<Vec<Result1>>],
     settings: &[Setting],
-    oracle: &BTreeMap<(String, String), f64>,
+    oracle: &BTreeMap<(String, String), OracleRow>,
     print_rows: bool,
 ) {
     let rows: Vec<ReferenceRow> = data.iter().map(|d| d.row.clone()).collect();
@@ -316,7 +352,10 @@ fn summarise(
     }
     let (mut fit_out, mut fit_mid, mut lo_out, mut lo_mid) = (vec![], vec![], vec![], vec![]);
     let (mut topo_ok, mut site_ok, mut site_n) = (0, 0, 0);
+    // the oracle against hopmap's barrier of the same hop (the summary's pairing), and against
+    // this table's barrier of the published dimension
     let mut oracle_pairs = Vec::new();
+    let mut oracle_network_pairs = Vec::new();
     let mut published_pairs = Vec::new();
     for (k, d) in data.iter().enumerate() {
         let r = &d.row;
@@ -356,11 +395,15 @@ fn summarise(
             .unwrap()
             .to_string_lossy()
             .to_string();
-        let orc = oracle
+        let orc_row = oracle
             .get(&(name.clone(), r.ion.symbol().to_string()))
             .copied();
-        if let (Some(o), Some(b)) = (orc, at_fit.barrier) {
-            oracle_pairs.push((b, o));
+        let orc = orc_row.map(|o| o.barrier_ev);
+        if let Some(o) = orc_row {
+            oracle_pairs.push((o.hop_barrier_ev, o.barrier_ev));
+            if let Some(b) = at_fit.barrier {
+                oracle_network_pairs.push((b, o.barrier_ev));
+            }
         }
         if print_rows {
             println!(
@@ -407,11 +450,15 @@ fn summarise(
         rows.len()
     );
     println!(
-        "rank correlation (Spearman) with the oracle: {} over {} rows; with the published mid-points: {} over {} rows",
+        "rank correlation (Spearman) with the oracle (converged rows, hopmap's barrier of the same hop): {} over {} rows (this table's barrier instead: {} over {} rows); with the published mid-points: {} over {} rows",
         scoring::spearman(&oracle_pairs)
             .map(|x| format!("{x:.2}"))
             .unwrap_or("-".into()),
         oracle_pairs.len(),
+        scoring::spearman(&oracle_network_pairs)
+            .map(|x| format!("{x:.2}"))
+            .unwrap_or("-".into()),
+        oracle_network_pairs.len(),
         scoring::spearman(&published_pairs)
             .map(|x| format!("{x:.2}"))
             .unwrap_or("-".into()),

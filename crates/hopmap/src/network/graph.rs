@@ -117,7 +117,7 @@ pub(crate) fn percolate_links(
         .map(|(i, l)| (total_key(l.energy, l.voxel), i, l))
         .collect();
     links.sort_unstable_by_key(|&(k, i, _)| (k, i));
-    let mut sweep = Sweep::<i32>::new(energies, lattice);
+    let mut sweep = Sweep::new(energies, lattice);
     for (pos, (_, _, l)) in links.iter().enumerate() {
         for s in [l.a, l.b] {
             if !sweep.is_added(s) {

@@ -188,15 +188,40 @@ fn bottleneck_key(grid: &Grid, start: usize, translation: [i32; 3], ceiling: f32
 
 /// Where pass 2 keeps, for each point of the covering it reaches, the best cost found so far
 /// and the step that reached it. Points are unwrapped grid coordinates (the voxel plus `n_a`
-/// times the cell along each axis); they are stored under the grid index of the voxel in the
-/// low 32 bits (which the multiplicative hasher spreads over the buckets) and the cell in the
-/// high bits, 10 bits per axis.
+/// times the cell along each axis); their slot is the grid index of the voxel in the low 32
+/// bits and the cell in the high bits, 10 bits per axis. Slots are kept in dense pages of
+/// [`PAGE`] consecutive slots (a run of voxels of one cell), made when first reached and found
+/// through a small map: the search walks a compact region, so neighbouring points share a page
+/// and a look-up touches memory that is already loaded, where one hash-map entry per point
+/// touched memory at random. 9 bytes per slot of a page reached.
 struct Covering {
     dims: [i64; 3],
-    reached: FastMap<u64, (f64, u8)>,
+    /// Page key (slot >> [`PAGE_BITS`]) -> position in `pages`.
+    index: FastMap<u64, u32>,
+    pages: Vec<Page>,
 }
 
+/// log2 of the slots per page of the covering.
+const PAGE_BITS: u32 = 12;
+const PAGE: usize = 1 << PAGE_BITS;
+
+/// One page of the covering: the cost (A) and arriving direction of each slot;
+/// [`UNREACHED`] in `dir` for a slot not reached yet.
+struct Page {
+    cost: Box<[f64]>,
+    dir: Box<[u8]>,
+}
+
+const UNREACHED: u8 = u8::MAX;
+
 impl Covering {
+    fn new(dims: [i64; 3]) -> Self {
+        Covering {
+            dims,
+            index: FastMap::default(),
+            pages: Vec::new(),
+        }
+    }
     /// Key of a point; None for cells 512 or more from the start's along some axis.
     fn slot(&self, p: [i64; 3]) -> Option<u64> {
         const BIAS: i64 = 512;
@@ -212,10 +237,24 @@ impl Covering {
     }
     /// Cost and arriving direction (0..6, or [`SOURCE`]) of a point reached.
     fn get(&self, slot: u64) -> Option<(f64, u8)> {
-        self.reached.get(&slot).copied()
+        let page = &self.pages[*self.index.get(&(slot >> PAGE_BITS))? as usize];
+        let at = slot as usize & (PAGE - 1);
+        let dir = page.dir[at];
+        (dir != UNREACHED).then(|| (page.cost[at], dir))
     }
     fn set(&mut self, slot: u64, cost: f64, dir: u8) {
-        self.reached.insert(slot, (cost, dir));
+        let next = self.pages.len() as u32;
+        let k = *self.index.entry(slot >> PAGE_BITS).or_insert(next);
+        if k == next {
+            self.pages.push(Page {
+                cost: vec![0.0; PAGE].into_boxed_slice(),
+                dir: vec![UNREACHED; PAGE].into_boxed_slice(),
+            });
+        }
+        let page = &mut self.pages[k as usize];
+        let at = slot as usize & (PAGE - 1);
+        page.cost[at] = cost;
+        page.dir[at] = dir;
     }
 }
 
@@ -244,10 +283,7 @@ fn least_cost_path(
     weight: f64,
     window: Option<[[i64; 2]; 3]>,
 ) -> Option<Vec<[i64; 3]>> {
-    let mut store = Covering {
-        dims: grid.dims.map(|d| d as i64),
-        reached: FastMap::default(),
-    };
+    let mut store = Covering::new(grid.dims.map(|d| d as i64));
     let values = &grid.values;
     let dims = grid.dims.map(|d| d as i64);
     let voxel = |p: [i64; 3]| {
@@ -276,13 +312,17 @@ fn least_cost_path(
     // `to` leaves the queue its cost is the least.
     let rise_of = |v: f32| ((v as f64 - e0) / span).max(0.0);
     let mut low = [0, 1, 2].map(|a| vec![f64::INFINITY; grid.dims[a]]);
-    for (x, &v) in values.iter().enumerate() {
-        if open(v) {
-            let r = rise_of(v);
-            let ijk = grid.ijk(x);
-            for a in 0..3 {
-                let l = &mut low[a][ijk[a]];
-                *l = l.min(r);
+    // the grid in storage order, one row of c at a time (no division per voxel)
+    let nb = grid.dims[1];
+    for (row, values_of_row) in values.chunks_exact(grid.dims[2]).enumerate() {
+        let (i, j) = (row / nb, row % nb);
+        for (k, &v) in values_of_row.iter().enumerate() {
+            if open(v) {
+                let r = rise_of(v);
+                for (a, at) in [i, j, k].into_iter().enumerate() {
+                    let l = &mut low[a][at];
+                    *l = l.min(r);
+                }
             }
         }
     }
@@ -572,4 +612,38 @@ pub fn path_between(
             })
             .collect(),
     )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_paged_covering_keeps_what_a_hash_map_keeps() {
+        // oracle: the standard library's HashMap, keyed by the same slots
+        let mut store = Covering::new([7, 5, 300]);
+        let mut reference = std::collections::HashMap::new();
+        let mut state = 12345u64;
+        for i in 0..20_000 {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            let p = [0, 1, 2].map(|a| ((state >> (16 * a + 8)) % 4000) as i64 - 2000);
+            let Some(slot) = store.slot(p) else { continue };
+            assert_eq!(
+                store.get(slot),
+                reference.get(&slot).copied(),
+                "point {p:?}"
+            );
+            if i % 3 != 0 {
+                let v = (i as f64 * 0.37, (i % 7) as u8);
+                store.set(slot, v.0, v.1);
+                reference.insert(slot, v);
+            }
+        }
+        for (&slot, &v) in &reference {
+            assert_eq!(store.get(slot), Some(v));
+        }
+        assert!(store.slot([0, 0, 512 * 300]).is_none());
+    }
 }
