@@ -623,11 +623,23 @@ pub fn neb_setup(a: &Analysis, o: &NebOptions) -> Result<NebSetup, HandoffError>
                 count: net.hops.len(),
             })?;
             let (sa, sb) = (&net.sites[hop.from], &net.sites[hop.to]);
+            // The hop's image runs between the sites' stored positions; a site refined to just
+            // below a cell face is stored on the far side of its voxel, so the path between the
+            // voxels takes the image between the voxels' cells.
+            let beyond_voxel = |frac: Vector3<f64>, voxel: usize| {
+                let v = grid.frac(grid.ijk(voxel)).0;
+                [0, 1, 2].map(|k| (frac[k] - v[k]).round() as i32)
+            };
+            let (da, db) = (
+                beyond_voxel(sa.frac.0, sa.voxel),
+                beyond_voxel(sb.frac.0, sb.voxel),
+            );
+            let voxel_image = [0, 1, 2].map(|k| hop.image[k] + db[k] - da[k]);
             let path = path_between(
                 grid,
                 sa.voxel,
                 sb.voxel,
-                hop.image,
+                voxel_image,
                 hop.saddle_voxel,
                 crate::network::ProfileOptions::default().energy_weight,
             )

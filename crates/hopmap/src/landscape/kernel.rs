@@ -1,30 +1,37 @@
 //! The grid kernel: both landscapes in f32 SIMD over grid points.
 //!
-//! **Layout.** The grid is cut into blocks of 4 x 4 x 4 points. Framework atoms are first
-//! grouped by position: the occupants of a mixed site share one position, and at a position
-//! the occupants with the same kind of term are summed into one contribution (anions of one
-//! kind: their occupancies; cations whose screening lengths are equal: their weights `occ k q_A
-//! q_M`). The images of the positions around the cell are binned once into Cartesian cubes of
-//! 2 A; each block lists the images within (reach + the block's radius) of its centre from the
-//! bins it overlaps (so the cost per block does not grow with the cell), in f32 coordinates
-//! relative to the block's centre (a few A, so that f32 differences lose nothing). The points
-//! of a block are evaluated a vector at a time (16 lanes with AVX-512, 8 with AVX2 or the
-//! portable arrays) against each image of the list, broadcast; a lane outside the cutoff of a
-//! term gets weight 0.
+//! **Layout.** The grid is cut into blocks of 8 x 8 x 8 points. Blocks of one shape differ by
+//! a lattice translation, so the points of each shape (at most 8: whole, and the remainder
+//! along each axis) are laid out once ([`Layout`]), relative to the block's centre, in tiles of
+//! 2 x 2 x 4 points: one compact vector of 16 lanes with AVX-512, two of 8 with AVX2 or the
+//! portable arrays. Framework atoms are first grouped by position: the occupants of a mixed
+//! site share one position, and at a position the occupants with the same kind of term are
+//! summed into one contribution (anions of one kind: their occupancies; cations whose
+//! screening lengths are equal: their weights `occ k q_A q_M`). The images of the positions
+//! around the cell are binned once into Cartesian cubes of 2 A; each block visits the bins its
+//! sphere of reach overlaps (row by row, so the visit follows the sphere, not its cube) and
+//! lists the images within (reach + the block's radius) of its centre, in f32 coordinates
+//! relative to it (a few A, so that f32 differences lose nothing), one list per kind of term
+//! with the kind's constants held in registers. Each list is cut in two: the *core*, images
+//! within the cutoff of every point of the block (no test, no mask: the count grows by the
+//! list's length), and the *shell*, where each lane is tested, a vector none of whose lanes
+//! is inside is skipped after its distances, and a lane outside gets weight 0.
 //!
 //! **Arithmetic per pair** (f32): the distance (3 subtractions, a multiplication and two FMAs,
 //! a square root); per anion term `x = exp((Rmin - R)/b)` (one FMA for the argument, the
-//! vectorised [`simd::exp`]), the bond valence and the shifted Morse term (3 FMAs and a
-//! subtraction), the count; per cation term the screened Coulomb `erfc(R/rho)/R` from
-//! [`simd::erfc_poly`] (one division, 12 FMAs and the exp). The mobile-ion repulsion with its
-//! nearest sites excluded keeps the k nearest distances and terms per lane (compare and blend).
+//! vectorised [`simd::exp_in_range`], 5 FMAs of polynomial, without the clamp when the kind's
+//! exponent cannot leave the f32 range), the bond valence and the shifted Morse term (2 FMAs
+//! and a subtraction); per cation term the screened Coulomb `erfc(R/rho)/R` from
+//! [`simd::erfc_poly`] (one division, 12 FMAs and the exp, whose exponent is bounded within
+//! the reach). A shell pair adds the cutoff test, the selects of the weights and the count.
+//! The mobile-ion repulsion with its nearest sites excluded keeps the k nearest distances and
+//! terms per lane (compare and blend).
 //!
 //! **Precision.** Terms and sums are f32; the grids are stored as f32 anyway. Tested against
 //! the f64 path (`compute_f64`) on every instruction set the processor has: values agree within
 //! 1e-5 relative (1e-5 eV or v.u. near zero). Symmetry-equivalent points are evaluated relative
-//! to different block centres and may differ by a few units in the last place, which is why
-//! `compute` (the main job) keeps the f64 path: its channel profiles rely on equivalent saddles
-//! tying exactly.
+//! to different block centres and may differ by a few units in the last place; the stages
+//! after the grid do not rely on exact ties.
 
 use super::compute::{Cancelled, ComputeStats, Progress};
 use super::model::{COULOMB_EV_A, FrameworkKind, LandscapeModel};
@@ -38,9 +45,9 @@ use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::time::Instant;
 
 /// Points per block edge.
-const BLOCK: usize = 4;
-/// Points per block, at most.
-const BLOCK_POINTS: usize = BLOCK * BLOCK * BLOCK;
+const BLOCK: usize = 8;
+/// Points per tile of 2 x 2 x 4: the vectors of the kernel (16 lanes, or two of 8).
+const TILE: usize = 16;
 /// Side of the bins of the cell-wide image list (A).
 const BIN_A: f64 = 2.0;
 /// Smallest distance used in a formula (A), as in the f64 path.
@@ -57,30 +64,70 @@ pub enum Fields {
     MismatchOnly,
 }
 
-/// One anion term at a position: occupancy folded into the weights.
+/// The constants of one kind of anion term (its bond-valence and Morse parameters), shared by
+/// every position of that kind, so that the kernel keeps them in registers over a run of images.
 #[derive(Debug, Clone, Copy)]
-struct AnionEntry {
+struct AnionConstants {
     cutoff2: f32,
     /// `-1/b` and `Rmin/b`: the exponent is `R * neg_inv_b + rmin_inv_b`.
     neg_inv_b: f32,
     rmin_inv_b: f32,
+    /// Morse term `x^2 - 2x` at the cutoff.
+    morse_cut: f32,
+    /// The exponent `(Rmin - R)/b` stays within [-87, 87] (normal f32 results) for every R in
+    /// [0, cutoff], so the exponential needs no clamp.
+    in_range: bool,
+}
+
+/// One anion term at a position: its kind, with the occupancy folded into the weights.
+#[derive(Debug, Clone, Copy)]
+struct AnionEntry {
+    kind: u32,
     /// `occ * s_eq` (v.u.): the bond valence is `x` times this.
     w_bv: f32,
     /// `occ * D0` (eV).
     w_d0: f32,
-    /// Morse term `x^2 - 2x` at the cutoff.
-    morse_cut: f32,
+}
+
+/// The constants of one kind of screened Coulomb term (one screening length and reach).
+#[derive(Debug, Clone, Copy)]
+struct CationConstants {
+    reach2: f32,
+    /// `1 / (2 rho)` and `1 / rho^2` (1/A, 1/A^2).
+    half_inv_rho: f32,
+    inv_rho2: f32,
 }
 
 /// One screened Coulomb term at a position.
 #[derive(Debug, Clone, Copy)]
 struct CationEntry {
-    reach2: f32,
-    /// `1 / (2 rho)` and `1 / rho^2` (1/A, 1/A^2).
-    half_inv_rho: f32,
-    inv_rho2: f32,
+    kind: u32,
     /// `occ k q_A q_M` summed over the occupants with this screening length (eV A).
     weight: f32,
+}
+
+/// What the image lists need of an entry: its kind and its one or two weights.
+trait Entry {
+    fn kind(&self) -> usize;
+    fn weights(&self) -> (f32, f32);
+}
+
+impl Entry for AnionEntry {
+    fn kind(&self) -> usize {
+        self.kind as usize
+    }
+    fn weights(&self) -> (f32, f32) {
+        (self.w_bv, self.w_d0)
+    }
+}
+
+impl Entry for CationEntry {
+    fn kind(&self) -> usize {
+        self.kind as usize
+    }
+    fn weights(&self) -> (f32, f32) {
+        (self.weight, 0.0)
+    }
 }
 
 /// Positions of one family of terms (anions, cations, or the mobile ions with exclusion):
@@ -143,8 +190,14 @@ fn group<E: Copy, K: PartialEq + Copy>(
     out
 }
 
-/// The model resolved into positions and f32 terms.
+/// The model resolved into kinds, positions and f32 terms.
 struct Terms {
+    anion_kinds: Vec<AnionConstants>,
+    /// Cutoff of each anion kind (A).
+    anion_reach: Vec<f64>,
+    cation_kinds: Vec<CationConstants>,
+    /// Reach of each cation kind (A).
+    cation_reach: Vec<f64>,
     anions: Positions<AnionEntry>,
     cations: Positions<CationEntry>,
     /// The mobile ions when their nearest sites are excluded (else they are among `cations`).
@@ -155,37 +208,68 @@ struct Terms {
     mismatch_cap: f32,
 }
 
+/// Largest magnitude of an f32 exponent whose exponential is a normal f32.
+const EXP_RANGE: f64 = 87.0;
+
 fn terms(model: &LandscapeModel) -> Terms {
     let mut an = Vec::new();
     let mut ca = Vec::new();
     let mut mo = Vec::new();
-    let cation_entry = |k: &super::model::CationKind, occ: f64| -> (u64, CationEntry, f64) {
+    let anion_kinds: Vec<AnionConstants> = model
+        .anions
+        .iter()
+        .map(|k| {
+            let morse = |x: f64| x * (x - 2.0);
+            let xc = ((k.rmin - k.cutoff) / k.b).exp();
+            let cut = k.cutoff.max(0.0);
+            let (hi, lo) = (k.rmin / k.b, (k.rmin - cut) / k.b);
+            AnionConstants {
+                cutoff2: (cut * cut) as f32,
+                neg_inv_b: (-1.0 / k.b) as f32,
+                rmin_inv_b: (k.rmin / k.b) as f32,
+                morse_cut: morse(xc) as f32,
+                // a little inside the range, for the f32 rounding of the argument
+                in_range: k.b > 0.0 && hi.abs() < EXP_RANGE - 1.0 && lo.abs() < EXP_RANGE - 1.0,
+            }
+        })
+        .collect();
+    let anion_reach = model.anions.iter().map(|k| k.cutoff.max(0.0)).collect();
+    let mut cation_kinds = Vec::new();
+    let mut cation_reach = Vec::new();
+    let mut cation_keys: Vec<(u64, u64)> = Vec::new();
+    let mut cation_entry = |k: &super::model::CationKind, occ: f64| -> (u64, CationEntry, f64) {
         let reach = model.coulomb_cutoff.min(ERFC_NEGLIGIBLE * k.rho).max(0.0);
+        let key = (k.rho.to_bits(), reach.to_bits());
+        let kind = match cation_keys.iter().position(|&x| x == key) {
+            Some(i) => i,
+            None => {
+                cation_keys.push(key);
+                cation_kinds.push(CationConstants {
+                    reach2: (reach * reach) as f32,
+                    half_inv_rho: (0.5 / k.rho) as f32,
+                    inv_rho2: (1.0 / (k.rho * k.rho)) as f32,
+                });
+                cation_reach.push(reach);
+                cation_kinds.len() - 1
+            }
+        };
         let e = CationEntry {
-            reach2: (reach * reach) as f32,
-            half_inv_rho: (0.5 / k.rho) as f32,
-            inv_rho2: (1.0 / (k.rho * k.rho)) as f32,
+            kind: kind as u32,
             weight: (occ * COULOMB_EV_A * model.probe.charge * k.charge) as f32,
         };
-        (k.rho.to_bits() ^ reach.to_bits().rotate_left(17), e, reach)
+        (kind as u64, e, reach)
     };
     for a in &model.atoms {
         match a.kind {
             FrameworkKind::Anion(i) => {
                 let k = &model.anions[i];
-                let morse = |x: f64| x * (x - 2.0);
-                let xc = ((k.rmin - k.cutoff) / k.b).exp();
                 let s_eq = ((k.r0 - k.rmin) / k.b).exp();
-                let cut = k.cutoff.max(0.0);
                 let e = AnionEntry {
-                    cutoff2: (cut * cut) as f32,
-                    neg_inv_b: (-1.0 / k.b) as f32,
-                    rmin_inv_b: (k.rmin / k.b) as f32,
+                    kind: i as u32,
                     w_bv: (a.occupancy * s_eq) as f32,
                     w_d0: (a.occupancy * k.d0) as f32,
-                    morse_cut: morse(xc) as f32,
                 };
-                an.push((a.frac.0, i, e, cut));
+                an.push((a.frac.0, i, e, k.cutoff.max(0.0)));
             }
             FrameworkKind::Cation(i) => {
                 let (key, e, reach) = cation_entry(&model.cations[i], a.occupancy);
@@ -212,6 +296,10 @@ fn terms(model: &LandscapeModel) -> Terms {
     };
     let sum_cation = |x: &mut CationEntry, y: &CationEntry| x.weight += y.weight;
     Terms {
+        anion_kinds,
+        anion_reach,
+        cation_kinds,
+        cation_reach,
         anions: group(an, sum_anion),
         cations: group(ca, sum_cation),
         mobile: group(mo, sum_cation),
@@ -310,10 +398,50 @@ impl Bins {
         }
     }
 
-    /// The images within (the reach of their position + `radius`) of `centre`, relative to it.
-    fn near<E>(&self, p: &Positions<E>, centre: [f64; 3], radius: f64, out: &mut List) {
-        out.clear();
-        let r = self.max_reach + radius;
+    /// The images within (the reach of their kind + `radius`) of `centre`, relative to it,
+    /// sorted into one list per kind, each cut in two: the images that are within the reach
+    /// of every point of the sphere (`core`: no point needs a cutoff test) and the others
+    /// (`shell`). `out` gets one list per kind.
+    fn near_kinds<E: Entry>(
+        &self,
+        p: &Positions<E>,
+        kind_reach: &[f64],
+        centre: [f64; 3],
+        radius: f64,
+        out: &mut Vec<KindImages>,
+    ) {
+        out.resize_with(kind_reach.len(), KindImages::default);
+        for k in out.iter_mut() {
+            k.core.clear();
+            k.shell.clear();
+        }
+        self.visit(centre, self.max_reach + radius, |d, q| {
+            let reach = p.reach[q] + radius;
+            let dist2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
+            if dist2 > reach * reach {
+                return;
+            }
+            let dist = dist2.sqrt();
+            let rel = d.map(|x| x as f32);
+            for e in p.entries_of(q) {
+                let k = e.kind();
+                let reach = kind_reach[k];
+                if dist > reach + radius {
+                    continue;
+                }
+                let run = if dist + radius + CORE_MARGIN_A < reach {
+                    &mut out[k].core
+                } else {
+                    &mut out[k].shell
+                };
+                run.push(rel, e.weights());
+            }
+        });
+    }
+
+    /// Calls `f(image - centre, position)` for every image in the bins that the cube of half
+    /// side `r` around `centre` overlaps.
+    fn visit(&self, centre: [f64; 3], r: f64, mut f: impl FnMut([f64; 3], usize)) {
         let range = |a: usize| {
             let lo = ((centre[a] - r - self.lo[a]) / BIN_A).floor();
             let hi = ((centre[a] + r - self.lo[a]) / BIN_A).floor();
@@ -326,29 +454,104 @@ impl Bins {
         if a1 < 0.0 || b1 < 0.0 || c1 < 0.0 {
             return;
         }
+        // the gap along axis `a` from the centre to bin `i` (A)
+        let gap = |a: usize, i: usize| {
+            let lo = self.lo[a] + i as f64 * BIN_A;
+            (lo - centre[a]).max(centre[a] - lo - BIN_A).max(0.0)
+        };
         for ia in a0..=a1 as usize {
+            let ga = gap(0, ia);
             for ib in b0..=b1 as usize {
+                // the bins of this row that the sphere of radius r reaches
+                let left = (r + 1e-9).powi(2) - ga * ga - gap(1, ib).powi(2);
+                if left < 0.0 {
+                    continue;
+                }
+                let h = left.sqrt();
+                let top = self.n[2] as f64 - 1.0;
+                let lo = ((centre[2] - h - self.lo[2]) / BIN_A)
+                    .floor()
+                    .clamp(0.0, top) as usize;
+                let hi = ((centre[2] + h - self.lo[2]) / BIN_A)
+                    .floor()
+                    .clamp(-1.0, top);
+                if hi < lo as f64 {
+                    continue;
+                }
+                let (c0, c1) = (lo.max(c0), (hi as usize).min(c1 as usize));
+                if c1 < c0 {
+                    continue;
+                }
                 let row = (ia * self.n[1] + ib) * self.n[2];
                 let (s, e) = (
                     self.start[row + c0] as usize,
-                    self.start[row + c1 as usize + 1] as usize,
+                    self.start[row + c1 + 1] as usize,
                 );
                 for k in s..e {
                     let c = self.xyz[k];
-                    let q = self.pos[k] as usize;
-                    let d = [c[0] - centre[0], c[1] - centre[1], c[2] - centre[2]];
-                    let reach = p.reach[q] + radius;
-                    if d[0] * d[0] + d[1] * d[1] + d[2] * d[2] <= reach * reach {
-                        out.x.push(d[0] as f32);
-                        out.y.push(d[1] as f32);
-                        out.z.push(d[2] as f32);
-                        out.pos.push(q as u32);
-                        out.reach2 = out.reach2.max((p.reach[q] * p.reach[q]) as f32);
-                    }
+                    f(
+                        [c[0] - centre[0], c[1] - centre[1], c[2] - centre[2]],
+                        self.pos[k] as usize,
+                    );
                 }
             }
         }
     }
+
+    /// The images within (the reach of their position + `radius`) of `centre`, relative to it.
+    fn near<E>(&self, p: &Positions<E>, centre: [f64; 3], radius: f64, out: &mut List) {
+        out.clear();
+        self.visit(centre, self.max_reach + radius, |d, q| {
+            let reach = p.reach[q] + radius;
+            if d[0] * d[0] + d[1] * d[1] + d[2] * d[2] <= reach * reach {
+                out.x.push(d[0] as f32);
+                out.y.push(d[1] as f32);
+                out.z.push(d[2] as f32);
+                out.pos.push(q as u32);
+                out.reach2 = out.reach2.max((p.reach[q] * p.reach[q]) as f32);
+            }
+        });
+    }
+}
+
+/// How far inside its reach an image must be from every point of a block to count as `core`
+/// (A): far more than the f32 rounding of the coordinates relative to the block (below 1e-6 A),
+/// so that the kernel's own cutoff test would pass at every point.
+const CORE_MARGIN_A: f64 = 1e-3;
+
+/// Images of one kind near a block, relative to its centre, with their weights (the second is
+/// the Morse weight of an anion, unused for a cation).
+#[derive(Default)]
+struct Run {
+    x: Vec<f32>,
+    y: Vec<f32>,
+    z: Vec<f32>,
+    w: Vec<f32>,
+    w2: Vec<f32>,
+}
+
+impl Run {
+    fn clear(&mut self) {
+        self.x.clear();
+        self.y.clear();
+        self.z.clear();
+        self.w.clear();
+        self.w2.clear();
+    }
+    fn push(&mut self, d: [f32; 3], (w, w2): (f32, f32)) {
+        self.x.push(d[0]);
+        self.y.push(d[1]);
+        self.z.push(d[2]);
+        self.w.push(w);
+        self.w2.push(w2);
+    }
+}
+
+/// The images of one kind near a block: within the reach of every point (`core`), or of some.
+#[derive(Default)]
+struct KindImages {
+    core: Run,
+    shell: Run,
 }
 
 /// The images near one block, relative to its centre.
@@ -375,8 +578,8 @@ impl List {
 /// Per-thread scratch.
 #[derive(Default)]
 struct Scratch {
-    anions: List,
-    cations: List,
+    anions: Vec<KindImages>,
+    cations: Vec<KindImages>,
     mobile: List,
     px: Vec<f32>,
     py: Vec<f32>,
@@ -435,6 +638,89 @@ fn block_sphere(m: &Matrix3<f64>, inv_dims: [f64; 3], b: &Block) -> ([f64; 3], f
     ([c.x, c.y, c.z], r)
 }
 
+/// The points of every block of one shape, in the order the kernel evaluates them: blocks of
+/// one shape differ by a lattice translation, so this is computed once per shape (at most 8).
+struct Layout {
+    /// Points along a, b, c.
+    shape: [usize; 3],
+    /// Centre of the block relative to its first point, and the radius of its bounding sphere
+    /// (A).
+    centre: [f64; 3],
+    radius: f64,
+    /// Cartesian coordinates relative to the centre (A), in tiles of 2 x 2 x 4 points, each
+    /// one compact vector of 16 lanes (two of 8); a partial tile is padded with copies of its
+    /// last point.
+    px: Vec<f32>,
+    py: Vec<f32>,
+    pz: Vec<f32>,
+    /// (slot in the vectors, index in the grid relative to the block's first point) per point.
+    slots: Vec<(u16, usize)>,
+}
+
+/// The layouts of the block shapes of a grid of `dims` points: along each axis a whole block,
+/// and the remainder where the axis is not a multiple of the block.
+fn layouts(m: &Matrix3<f64>, dims: [usize; 3]) -> Vec<Layout> {
+    let inv_dims = dims.map(|n| 1.0 / n as f64);
+    let sizes = dims.map(|n| {
+        let mut v = vec![BLOCK.min(n)];
+        if n > BLOCK && n % BLOCK != 0 {
+            v.push(n % BLOCK);
+        }
+        v
+    });
+    let mut out = Vec::new();
+    for &sa in &sizes[0] {
+        for &sb in &sizes[1] {
+            for &sc in &sizes[2] {
+                let shape = [sa, sb, sc];
+                let b = Block {
+                    lo: [0; 3],
+                    hi: shape,
+                };
+                let (centre, radius) = block_sphere(m, inv_dims, &b);
+                let mut l = Layout {
+                    shape,
+                    centre,
+                    radius,
+                    px: Vec::new(),
+                    py: Vec::new(),
+                    pz: Vec::new(),
+                    slots: Vec::new(),
+                };
+                for ti in (0..sa).step_by(2) {
+                    for tj in (0..sb).step_by(2) {
+                        for tk in (0..sc).step_by(4) {
+                            for kh in 0..2 {
+                                for i in ti..(ti + 2).min(sa) {
+                                    for j in tj..(tj + 2).min(sb) {
+                                        for k in tk + 2 * kh..(tk + 2 * kh + 2).min(sc) {
+                                            let p = point_cart(m, inv_dims, [i, j, k]);
+                                            let slot = l.px.len() as u16;
+                                            l.slots.push((slot, (i * dims[1] + j) * dims[2] + k));
+                                            l.px.push((p.x - centre[0]) as f32);
+                                            l.py.push((p.y - centre[1]) as f32);
+                                            l.pz.push((p.z - centre[2]) as f32);
+                                        }
+                                    }
+                                }
+                            }
+                            while !l.px.len().is_multiple_of(TILE) {
+                                let q = l.px.len() - 1;
+                                let (x, y, z) = (l.px[q], l.py[q], l.pz[q]);
+                                l.px.push(x);
+                                l.py.push(y);
+                                l.pz.push(z);
+                            }
+                        }
+                    }
+                }
+                out.push(l);
+            }
+        }
+    }
+    out
+}
+
 /// Squared distances from the points to image `j` of a list. (Helpers of the kernel are
 /// functions, not closures, so that they inline into the entry points compiled for each
 /// instruction set and inherit its features.)
@@ -446,14 +732,139 @@ fn dist2<V: Lanes>(px: V, py: V, pz: V, l: &List, j: usize) -> V {
     dx.fma(dx, dy.fma(dy, dz.mul(dz)))
 }
 
-/// The screened Coulomb factor `erfc(R/rho)/R` of one term: with `t = 1/(1 + z/2)`,
-/// `erfc(z)/R = t exp(-z^2 + P(t)) / R`, one division for both.
+/// Squared distances from the points to image `j` of a run.
 #[inline(always)]
-fn coulomb<V: Lanes>(e: &CationEntry, d2: V, r: V) -> V {
-    let inv = V::splat(1.0).div(V::splat(e.half_inv_rho).fma(d2, r));
+fn dist2_run<V: Lanes>(px: V, py: V, pz: V, x: f32, y: f32, z: f32) -> V {
+    let dx = px.sub(V::splat(x));
+    let dy = py.sub(V::splat(y));
+    let dz = pz.sub(V::splat(z));
+    dx.fma(dx, dy.fma(dy, dz.mul(dz)))
+}
+
+/// The screened Coulomb factor `erfc(R/rho)/R` of one term: with `t = 1/(1 + z/2)`,
+/// `erfc(z)/R = t exp(-z^2 + P(t)) / R`, one division for both. Within the reach
+/// (R <= 6.5 rho) the exponent lies in [-44, 0], so the exponential needs no clamp.
+#[inline(always)]
+fn coulomb<V: Lanes>(c: &CationConstants, d2: V, r: V) -> V {
+    let inv = V::splat(1.0).div(V::splat(c.half_inv_rho).fma(d2, r));
     let t = inv.mul(r);
-    let arg = V::splat(-e.inv_rho2).fma(d2, simd::erfc_poly(t));
-    inv.mul(exp(arg))
+    let arg = V::splat(-c.inv_rho2).fma(d2, simd::erfc_poly(t));
+    inv.mul(simd::exp_in_range(arg))
+}
+
+/// Running sums of one vector of points: bond-valence sum (v.u.), energy (eV), pairs counted.
+struct Sums<V> {
+    bvs: V,
+    energy: V,
+    count: V,
+}
+
+/// Adds one run of images of an anion kind. `SHELL`: the images are within the cutoff of some
+/// points only, so each lane is tested (and a vector none of whose lanes is inside is skipped);
+/// otherwise every lane is inside and the count grows by the run's length. `CLAMP`: the
+/// exponent may leave the range of normal f32 results.
+#[inline(always)]
+fn anion_run<V: Lanes, const ENERGY: bool, const SHELL: bool, const CLAMP: bool>(
+    c: &AnionConstants,
+    run: &Run,
+    p: (V, V, V),
+    acc: &mut Sums<V>,
+) {
+    let (px, py, pz) = p;
+    let zero = V::splat(0.0);
+    let one = V::splat(1.0);
+    let two = V::splat(2.0);
+    let cutoff2 = V::splat(c.cutoff2);
+    let (slope, offset) = (V::splat(c.neg_inv_b), V::splat(c.rmin_inv_b));
+    let neg_cut = V::splat(-c.morse_cut);
+    let n = run.x.len();
+    let (xs, ys, zs, ws, w2s) = (
+        &run.x[..n],
+        &run.y[..n],
+        &run.z[..n],
+        &run.w[..n],
+        &run.w2[..n],
+    );
+    let (mut bvs, mut energy, mut count) = (acc.bvs, acc.energy, acc.count);
+    for j in 0..n {
+        let d2 = dist2_run(px, py, pz, xs[j], ys[j], zs[j]);
+        let inside = d2.lt(cutoff2);
+        if SHELL && !V::any(inside) {
+            continue;
+        }
+        // lanes outside the cutoff are masked below; held at the cutoff, their exponent
+        // stays in the range the unclamped exponential handles
+        let d2 = if SHELL { d2.min(cutoff2) } else { d2 };
+        // no guard at R = 0: the exponential is finite there (the f64 loop's guard of 1e-6 A
+        // moves the term by 1e-6/b relative, well inside the tested agreement)
+        let r = d2.sqrt();
+        let arg = r.fma(slope, offset);
+        let x = if CLAMP {
+            exp(arg)
+        } else {
+            simd::exp_in_range(arg)
+        };
+        let (w, w2) = if SHELL {
+            count = count.add(V::select(inside, one, zero));
+            (
+                V::select(inside, V::splat(ws[j]), zero),
+                V::select(inside, V::splat(w2s[j]), zero),
+            )
+        } else {
+            (V::splat(ws[j]), V::splat(w2s[j]))
+        };
+        bvs = w.fma(x, bvs);
+        if ENERGY {
+            let morse = x.fma(x.sub(two), neg_cut);
+            energy = w2.fma(morse, energy);
+        }
+    }
+    if !SHELL {
+        // n is a whole number below 2^24: exact in f32
+        count = count.add(V::splat(n as f32));
+    }
+    *acc = Sums { bvs, energy, count };
+}
+
+/// Adds one run of images of a cation kind (screened Coulomb); `SHELL` as in [`anion_run`].
+#[inline(always)]
+fn cation_run<V: Lanes, const SHELL: bool>(
+    c: &CationConstants,
+    run: &Run,
+    p: (V, V, V),
+    acc: &mut Sums<V>,
+) {
+    let (px, py, pz) = p;
+    let zero = V::splat(0.0);
+    let one = V::splat(1.0);
+    let g2 = V::splat(R_GUARD * R_GUARD);
+    let reach2 = V::splat(c.reach2);
+    let n = run.x.len();
+    let (xs, ys, zs, ws) = (&run.x[..n], &run.y[..n], &run.z[..n], &run.w[..n]);
+    let (mut energy, mut count) = (acc.energy, acc.count);
+    for j in 0..n {
+        let d2 = dist2_run(px, py, pz, xs[j], ys[j], zs[j]);
+        let inside = d2.lt(reach2);
+        if SHELL && !V::any(inside) {
+            continue;
+        }
+        // masked lanes held at the reach, where the exponent stays in range
+        let d2 = if SHELL { d2.min(reach2) } else { d2 };
+        let d2 = d2.max(g2);
+        let term = coulomb(c, d2, d2.sqrt());
+        let w = if SHELL {
+            count = count.add(V::select(inside, one, zero));
+            V::select(inside, V::splat(ws[j]), zero)
+        } else {
+            V::splat(ws[j])
+        };
+        energy = w.fma(term, energy);
+    }
+    if !SHELL {
+        count = count.add(V::splat(n as f32));
+    }
+    acc.energy = energy;
+    acc.count = count;
 }
 
 /// The two fields of one vector of points, written to `out[0][..N]` and `out[1][..N]`, and the
@@ -469,47 +880,35 @@ fn points<V: Lanes, const ENERGY: bool>(
     let (px, py, pz) = (V::load(p[0]), V::load(p[1]), V::load(p[2]));
     let zero = V::splat(0.0);
     let one = V::splat(1.0);
-    let two = V::splat(2.0);
     let g2 = V::splat(R_GUARD * R_GUARD);
-    let mut bvs = zero;
-    let mut energy = zero;
-    let mut count = zero;
-    let l = &s.anions;
-    let reach2 = V::splat(l.reach2);
-    for j in 0..l.x.len() {
-        let d2 = dist2(px, py, pz, l, j);
-        if !V::any(d2.lt(reach2)) {
-            continue;
-        }
-        let r = d2.max(g2).sqrt();
-        for e in t.anions.entries_of(l.pos[j] as usize) {
-            let inside = d2.lt(V::splat(e.cutoff2));
-            let x = exp(r.fma(V::splat(e.neg_inv_b), V::splat(e.rmin_inv_b)));
-            bvs = V::select(inside, V::splat(e.w_bv), zero).fma(x, bvs);
-            count = count.add(V::select(inside, one, zero));
-            if ENERGY {
-                let morse = x.fma(x.sub(two), V::splat(-e.morse_cut));
-                energy = V::select(inside, V::splat(e.w_d0), zero).fma(morse, energy);
-            }
+    let mut acc = Sums {
+        bvs: zero,
+        energy: zero,
+        count: zero,
+    };
+    let pv = (px, py, pz);
+    for (c, k) in t.anion_kinds.iter().zip(&s.anions) {
+        if c.in_range {
+            anion_run::<V, ENERGY, false, false>(c, &k.core, pv, &mut acc);
+            anion_run::<V, ENERGY, true, false>(c, &k.shell, pv, &mut acc);
+        } else {
+            anion_run::<V, ENERGY, false, true>(c, &k.core, pv, &mut acc);
+            anion_run::<V, ENERGY, true, true>(c, &k.shell, pv, &mut acc);
         }
     }
+    let Sums {
+        bvs,
+        mut energy,
+        mut count,
+    } = acc;
     if ENERGY {
-        let l = &s.cations;
-        let reach2 = V::splat(l.reach2);
-        for j in 0..l.x.len() {
-            let d2 = dist2(px, py, pz, l, j);
-            if !V::any(d2.lt(reach2)) {
-                continue;
-            }
-            let d2 = d2.max(g2);
-            let r = d2.sqrt();
-            for e in t.cations.entries_of(l.pos[j] as usize) {
-                let inside = d2.lt(V::splat(e.reach2));
-                let term = coulomb(e, d2, r);
-                energy = V::select(inside, V::splat(e.weight), zero).fma(term, energy);
-                count = count.add(V::select(inside, one, zero));
-            }
+        let mut acc = Sums { bvs, energy, count };
+        for (c, k) in t.cation_kinds.iter().zip(&s.cations) {
+            cation_run::<V, false>(c, &k.core, pv, &mut acc);
+            cation_run::<V, true>(c, &k.shell, pv, &mut acc);
         }
+        energy = acc.energy;
+        count = acc.count;
         if t.exclude > 0 {
             // the mobile ions: the k nearest sites of each point take no part
             let far = V::splat(f32::INFINITY);
@@ -519,12 +918,13 @@ fn points<V: Lanes, const ENERGY: bool>(
             for j in 0..l.x.len() {
                 let d2 = dist2(px, py, pz, l, j).max(g2);
                 let e = &t.mobile.entries_of(l.pos[j] as usize)[0];
-                let inside = d2.lt(V::splat(e.reach2));
+                let c = &t.cation_kinds[e.kind as usize];
+                let inside = d2.lt(V::splat(c.reach2));
                 if !V::any(inside) {
                     continue;
                 }
                 let r = d2.sqrt();
-                let term = V::select(inside, V::splat(e.weight), zero).mul(coulomb(e, d2, r));
+                let term = V::select(inside, V::splat(e.weight), zero).mul(coulomb(c, d2, r));
                 energy = energy.add(term);
                 count = count.add(V::select(inside, one, zero));
                 // insert (r, term) into the sorted k nearest of each lane
@@ -639,10 +1039,8 @@ pub(crate) fn compute_simd(
     let m = *model.lattice.matrix();
     let inv_dims = dims.map(|n| 1.0 / n as f64);
     let blocks = blocks(dims);
-    let margin = blocks
-        .iter()
-        .map(|b| block_sphere(&m, inv_dims, b).1)
-        .fold(0.0, f64::max);
+    let layouts = layouts(&m, dims);
+    let margin = layouts.iter().map(|l| l.radius).fold(0.0, f64::max);
     let energy = fields == Fields::Both;
     let bins_a = Bins::new(&model.lattice, &t.anions, margin);
     let empty = Positions::<CationEntry>::empty();
@@ -672,7 +1070,6 @@ pub(crate) fn compute_simd(
     let done = AtomicU64::new(0);
     let stop = AtomicBool::new(false);
     let total = blocks.len() as u64;
-    let lanes = isa.lanes();
     let (nb, nc) = (dims[1], dims[2]);
     let evaluations: u64 = blocks
         .par_iter()
@@ -680,47 +1077,38 @@ pub(crate) fn compute_simd(
             if stop.load(Ordering::Relaxed) {
                 return 0;
             }
-            let (centre, radius) = block_sphere(&m, inv_dims, b);
-            bins_a.near(&t.anions, centre, radius, &mut s.anions);
+            let shape = [0, 1, 2].map(|a| b.hi[a] - b.lo[a]);
+            let layout = layouts
+                .iter()
+                .find(|l| l.shape == shape)
+                .expect("a layout for every block shape");
+            let origin = point_cart(&m, inv_dims, b.lo);
+            let centre = [0, 1, 2].map(|a| origin[a] + layout.centre[a]);
+            let radius = layout.radius;
+            bins_a.near_kinds(&t.anions, &t.anion_reach, centre, radius, &mut s.anions);
             if energy {
-                bins_c.near(&t.cations, centre, radius, &mut s.cations);
+                bins_c.near_kinds(&t.cations, &t.cation_reach, centre, radius, &mut s.cations);
                 bins_m.near(&t.mobile, centre, radius, &mut s.mobile);
             }
-            s.px.clear();
-            s.py.clear();
-            s.pz.clear();
-            let mut idx = [0usize; BLOCK_POINTS];
-            let mut n = 0;
-            for i in b.lo[0]..b.hi[0] {
-                for j in b.lo[1]..b.hi[1] {
-                    for k in b.lo[2]..b.hi[2] {
-                        let p = point_cart(&m, inv_dims, [i, j, k]);
-                        s.px.push((p.x - centre[0]) as f32);
-                        s.py.push((p.y - centre[1]) as f32);
-                        s.pz.push((p.z - centre[2]) as f32);
-                        idx[n] = (i * nb + j) * nc + k;
-                        n += 1;
-                    }
-                }
-            }
-            // pad to whole vectors with copies of the last point
-            while s.px.len() % lanes != 0 {
-                let (x, y, z) = (s.px[n - 1], s.py[n - 1], s.pz[n - 1]);
-                s.px.push(x);
-                s.py.push(y);
-                s.pz.push(z);
-            }
+            s.px.clone_from(&layout.px);
+            s.py.clone_from(&layout.py);
+            s.pz.clone_from(&layout.pz);
             if energy {
                 block_with::<true>(isa, &t, s)
             } else {
                 block_with::<false>(isa, &t, s)
             }
             // counts are whole numbers well below 2^24: exact in f32
-            let count: u64 = s.cnt[..n].iter().map(|&c| c as u64).sum();
-            for (q, &g) in idx[..n].iter().enumerate() {
-                out_dv.write(g, s.dv[q]);
+            let first = (b.lo[0] * nb + b.lo[1]) * nc + b.lo[2];
+            let count: u64 = layout
+                .slots
+                .iter()
+                .map(|&(q, _)| s.cnt[q as usize] as u64)
+                .sum();
+            for &(q, g) in &layout.slots {
+                out_dv.write(first + g, s.dv[q as usize]);
                 if energy {
-                    out_en.write(g, s.en[q]);
+                    out_en.write(first + g, s.en[q as usize]);
                 }
             }
             if let Some(sink) = sink {
@@ -741,4 +1129,154 @@ pub(crate) fn compute_simd(
         seconds: started.elapsed().as_secs_f64(),
     };
     Ok((mismatch, energy_grid, stats))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::compute::{compute_f64, compute_with_isa, evaluate_point};
+    use super::super::model::*;
+    use super::{Isa, Lattice, Progress, TILE, blocks, layouts};
+    use crate::element::Element;
+    use crate::lattice::CellParameters;
+    use crate::lattice::Frac;
+    use crate::structure::Species;
+
+    /// A triclinic cell with a mixed anion site (two kinds at one position, different cutoffs),
+    /// an anion kind whose exponent leaves the f32 range within its cutoff (the clamped path),
+    /// a mixed cation site of two screening lengths, and mobile ions with their nearest site
+    /// excluded.
+    fn mixed_model() -> LandscapeModel {
+        let el = |s: &str| Element::from_symbol(s).unwrap();
+        let lattice = Lattice::from_parameters(CellParameters {
+            a: 4.1,
+            b: 4.6,
+            c: 5.2,
+            alpha: 84.0,
+            beta: 97.0,
+            gamma: 101.0,
+        })
+        .unwrap();
+        let atom = |f: [f64; 3], kind, occupancy| FrameworkAtom {
+            frac: Frac::new(f[0], f[1], f[2]),
+            kind,
+            occupancy,
+            label: "X".into(),
+        };
+        let anion = |sym: &str, q: f64, r0: f64, b: f64, cutoff: f64| AnionKind {
+            species: Species::new(el(sym), Some(q)),
+            r0,
+            b,
+            rmin: r0 + b * 5f64.ln(),
+            d0: 0.3,
+            cutoff,
+            radius: 1.4,
+            source: "test".into(),
+        };
+        let cation = |sym: &str, q: f64, rho: f64| CationKind {
+            species: Species::new(el(sym), Some(q)),
+            charge: q,
+            rho,
+            radius: 0.6,
+        };
+        LandscapeModel {
+            lattice,
+            probe: ProbeIon {
+                element: el("Li"),
+                valence: 1.0,
+                charge: 1.0,
+                coordination: 5.0,
+                radius: 0.76,
+            },
+            anions: vec![
+                // Li-O: Adams 2001 (bvparm2013), r0 = 1.1745 A, b = 0.514 A.
+                anion("O", -2.0, 1.1745, 0.514, 6.0),
+                // Li-F: Brese and O'Keeffe 1991, r0 = 1.360 A, b = 0.37 A (from memory).
+                anion("F", -1.0, 1.360, 0.37, 4.0),
+                // Li-Cl: Brese and O'Keeffe 1991, r0 = 1.91 A, b = 0.37 A (from memory), with a
+                // cutoff so long that (Rmin - cutoff)/b < -87: the clamped exponential.
+                anion("Cl", -1.0, 1.91, 0.37, 35.0),
+            ],
+            cations: vec![cation("Ti", 4.0, 1.05), cation("Mg", 2.0, 0.9)],
+            atoms: vec![
+                atom([0.1, 0.2, 0.3], FrameworkKind::Anion(0), 0.5),
+                atom([0.1, 0.2, 0.3], FrameworkKind::Anion(1), 0.5),
+                atom([0.6, 0.15, 0.8], FrameworkKind::Anion(0), 1.0),
+                atom([0.3, 0.7, 0.55], FrameworkKind::Anion(2), 0.25),
+                atom([0.45, 0.4, 0.05], FrameworkKind::Cation(0), 0.7),
+                atom([0.45, 0.4, 0.05], FrameworkKind::Cation(1), 0.3),
+                atom([0.9, 0.85, 0.5], FrameworkKind::Cation(1), 1.0),
+            ],
+            mobile: Some(MobileRepulsion {
+                kind: cation("Li", 1.0, 1.2),
+                sites: vec![
+                    (Frac::new(0.8, 0.5, 0.2), 1.0),
+                    (Frac::new(0.2, 0.9, 0.7), 0.5),
+                ],
+                excluded_nearest: 1,
+            }),
+            coulomb_cutoff: 8.0,
+            energy_cap: 10.0,
+            mismatch_cap: 10.0,
+        }
+    }
+
+    #[test]
+    fn core_and_shell_lists_give_the_plain_sums_at_every_point() {
+        // The plain per-point loop (`evaluate_point`, f64, libm's exp and erfc written straight
+        // from the formulas) is the reference; grids whose sides are not multiples of the block
+        // (9 = 8 + 1, 13 = 8 + 5, 17 = 16 + 1) give partial blocks and padded tiles, and one
+        // grid fits in a single partial block.
+        let model = mixed_model();
+        for dims in [[9, 13, 17], [3, 4, 5]] {
+            let reference = compute_f64(&model, dims, &Progress::Silent).unwrap();
+            for isa in Isa::available() {
+                let got = compute_with_isa(&model, dims, &Progress::Silent, isa).unwrap();
+                assert_eq!(
+                    got.stats.neighbour_evaluations, reference.stats.neighbour_evaluations,
+                    "{isa:?} {dims:?}: pairs within the cutoffs"
+                );
+                for idx in 0..got.energy.values.len() {
+                    let (dv, e) = evaluate_point(&model, got.energy.frac(got.energy.ijk(idx)));
+                    for (name, plain, f64_loop, have) in [
+                        ("energy", e, &reference.energy, &got.energy),
+                        ("mismatch", dv, &reference.mismatch, &got.mismatch),
+                    ] {
+                        let (want, have) = (f64_loop.values[idx] as f64, have.values[idx] as f64);
+                        assert!(
+                            (plain - want).abs() <= 1e-6 * plain.abs().max(1.0),
+                            "{dims:?} point {idx}: {name} of the f64 loop {want} against {plain}"
+                        );
+                        assert!(
+                            (want - have).abs() <= 1e-5 * want.abs().max(1.0),
+                            "{isa:?} {dims:?} point {idx}: {name} {have} against {want}"
+                        );
+                    }
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn blocks_of_one_shape_share_one_layout() {
+        // Every point of the grid appears once, in a tile of at most 16 slots, within the
+        // radius of its block's centre.
+        let m = *mixed_model().lattice.matrix();
+        let dims = [9, 13, 17];
+        let layouts = layouts(&m, dims);
+        assert_eq!(layouts.len(), 8);
+        let mut seen = vec![0u32; dims[0] * dims[1] * dims[2]];
+        for b in blocks(dims) {
+            let shape = [0, 1, 2].map(|a| b.hi[a] - b.lo[a]);
+            let l = layouts.iter().find(|l| l.shape == shape).unwrap();
+            assert_eq!(l.px.len() % TILE, 0);
+            let first = (b.lo[0] * dims[1] + b.lo[1]) * dims[2] + b.lo[2];
+            for &(q, g) in &l.slots {
+                seen[first + g] += 1;
+                let q = q as usize;
+                let d = (l.px[q].powi(2) + l.py[q].powi(2) + l.pz[q].powi(2)).sqrt();
+                assert!(d as f64 <= l.radius + 1e-5);
+            }
+        }
+        assert!(seen.iter().all(|&n| n == 1));
+    }
 }
