@@ -399,10 +399,10 @@ def nearest_site(doc, frac, matrix):
     return bi, best
 
 
-def choose_pass(doc, struct, ion, vacancy: bool) -> Pass:
-    """The rate-limiting pass of hopmap's lowest channel: the highest saddle of the channel's
-    profile and the nearest minima on both sides that qualify as end points (vacancy mode: on
-    an ion site of the file; interstitial mode: not a shallow minimum)."""
+def lowest_profile(doc, ion):
+    """hopmap's lowest channel (`channels[]` of `paths --json`) and its profile over one repeat:
+    (channel, profile, translation (fractional), repeat length (A), distances (A), energies
+    (eV), fractional positions of the path points)."""
     chans = doc.get("channels") or []
     if not chans:
         raise OracleError(f"{doc['file']}: hopmap finds no channel for {ion}")
@@ -410,12 +410,19 @@ def choose_pass(doc, struct, ion, vacancy: bool) -> Pass:
     prof = next((p for p in doc["profiles"] if p["dimension"] == ch["dimension"]), None)
     if prof is None:
         raise OracleError(f"{doc['file']}: no profile for the {ch['dimension']}D channel")
-    m = struct.lattice.matrix
     T = np.array(prof["translation"], float)
-    L = prof["length_a"]
-    pts_d = np.array([p[0] for p in prof["points"]])
-    pts_e = np.array([p[1] for p in prof["points"]])
-    pts_f = np.array(prof["points_frac"], float)
+    d = np.array([p[0] for p in prof["points"]])
+    e = np.array([p[1] for p in prof["points"]])
+    f = np.array(prof["points_frac"], float)
+    return ch, prof, T, prof["length_a"], d, e, f
+
+
+def choose_pass(doc, struct, ion, vacancy: bool) -> Pass:
+    """The rate-limiting pass of hopmap's lowest channel: the highest saddle of the channel's
+    profile and the nearest minima on both sides that qualify as end points (vacancy mode: on
+    an ion site of the file; interstitial mode: not a shallow minimum)."""
+    ch, prof, T, L, pts_d, pts_e, pts_f = lowest_profile(doc, ion)
+    m = struct.lattice.matrix
     # three repeats so that end points may lie across the repeat boundary
     ext_d, ext_f, ext_e = [], [], []
     for k in (-1, 0, 1):
@@ -622,14 +629,8 @@ def repeat_pass(doc, struct, ps: Pass | None) -> Pass:
     """Interstitial mode: from the pass's start minimum to the same minimum one repeat of the
     channel away, along hopmap's lowest path (the whole repeat, every saddle of it). hopmap's
     barrier of it: the highest point of the repeat minus its lowest (eV)."""
-    ch = min(doc["channels"], key=lambda c: (c["threshold_ev"], c["dimension"]))
-    prof = next(p for p in doc["profiles"] if p["dimension"] == ch["dimension"])
+    ch, _prof, T, L, d, e, f = lowest_profile(doc, doc.get("ion", {}).get("element", "the ion"))
     m = struct.lattice.matrix
-    T = np.array(prof["translation"], float)
-    L = prof["length_a"]
-    d = np.array([p[0] for p in prof["points"]])
-    e = np.array([p[1] for p in prof["points"]])
-    f = np.array(prof["points_frac"], float)
     ext_d = np.concatenate([d, d[1:] + L, d[1:] + 2 * L])
     ext_e = np.concatenate([e, e[1:], e[1:]])
     ext_f = np.concatenate([f, f[1:] + T, f[1:] + 2 * T])
