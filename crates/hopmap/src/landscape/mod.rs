@@ -5,6 +5,8 @@
 //! points); the volumetric files (cube, XSF, `.npy`) are written by `hopmap-report`.
 
 pub mod compute;
+#[cfg(test)]
+mod fixtures;
 mod kernel;
 pub mod model;
 mod simd;
