@@ -4,7 +4,7 @@
 //! with nothing written.
 
 mod common;
-use common::{hopmap, ok, tmp};
+use common::{hopmap, ok, python_oracle, tmp};
 
 const SPEC: &str = "block:3x3:ribbon:Ti1Nb2";
 
@@ -109,10 +109,6 @@ fn a_bad_spec_is_refused_by_name_and_writes_nothing() {
 /// same cell, the record items, every atom-site row, and pymatgen's cell composition Ti6Nb12O42.
 #[test]
 fn general_cif_readers_read_the_built_cif() {
-    let Ok(python) = std::env::var("HOPMAP_PYTHON") else {
-        eprintln!("skipped: set HOPMAP_PYTHON to a python with gemmi, PyCifRW and pymatgen");
-        return;
-    };
     let dir = tmp("build", "oracle");
     let out = dir.join("tno.cif");
     ok(&hopmap(&["build", SPEC, "--out", out.to_str().unwrap()]));
@@ -133,14 +129,9 @@ s = Structure.from_file(path)
 amounts = s.composition.get_el_amt_dict()
 print("pymatgen", " ".join(f"{e}{amounts[e]:.3f}" for e in sorted(amounts)), len(s))
 "#;
-    let o = std::process::Command::new(&python)
-        .arg("-c")
-        .arg(script)
-        .arg(&out)
-        .output()
-        .expect("HOPMAP_PYTHON must run");
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let text = String::from_utf8_lossy(&o.stdout);
+    let Some(text) = python_oracle(script, &[&out], "gemmi, PyCifRW and pymatgen") else {
+        return;
+    };
     let cif = std::fs::read_to_string(&out).unwrap();
     let a = cif
         .lines()
@@ -173,10 +164,6 @@ print("pymatgen", " ".join(f"{e}{amounts[e]:.3f}" for e in sorted(amounts)), len
 /// J. Solid State Chem. 100 (1992) 201; common practice).
 #[test]
 fn pymatgen_finds_plausible_bond_valence_sums_in_the_built_tinb2o7() {
-    let Ok(python) = std::env::var("HOPMAP_PYTHON") else {
-        eprintln!("skipped: set HOPMAP_PYTHON to a python with pymatgen");
-        return;
-    };
     let dir = tmp("build", "pymatgen-bvs");
     let out = dir.join("tno.cif");
     ok(&hopmap(&["build", SPEC, "--out", out.to_str().unwrap()]));
@@ -194,14 +181,9 @@ for site in s:
     devs.append(abs(bvs) - abs(formal))
 print(len(devs), max(abs(d) for d in devs), math.sqrt(sum(d * d for d in devs) / len(devs)))
 "#;
-    let o = std::process::Command::new(&python)
-        .arg("-c")
-        .arg(script)
-        .arg(&out)
-        .output()
-        .expect("HOPMAP_PYTHON must run");
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let text = String::from_utf8_lossy(&o.stdout);
+    let Some(text) = python_oracle(script, &[&out], "pymatgen") else {
+        return;
+    };
     let v: Vec<f64> = text
         .split_whitespace()
         .map(|x| x.parse().unwrap())

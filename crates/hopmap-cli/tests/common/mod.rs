@@ -36,3 +36,21 @@ pub fn ok(o: &Output) -> String {
     );
     String::from_utf8_lossy(&o.stdout).into_owned()
 }
+
+/// Runs `script` with the Python of `HOPMAP_PYTHON` (a venv with the general-purpose libraries
+/// the cross-checks use: gemmi, PyCifRW, pymatgen, ...) and `args` as `sys.argv[1:]`, and
+/// returns its stdout; None, with a note, when `HOPMAP_PYTHON` is not set (`.ci/run` sets it).
+pub fn python_oracle(script: &str, args: &[&std::path::Path], needs: &str) -> Option<String> {
+    let Ok(python) = std::env::var("HOPMAP_PYTHON") else {
+        eprintln!("skipped: set HOPMAP_PYTHON to a python with {needs}");
+        return None;
+    };
+    let o = Command::new(&python)
+        .arg("-c")
+        .arg(script)
+        .args(args)
+        .output()
+        .expect("HOPMAP_PYTHON must run");
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    Some(String::from_utf8_lossy(&o.stdout).into_owned())
+}
