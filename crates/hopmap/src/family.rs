@@ -461,9 +461,23 @@ fn run_member(input: MemberInput, opts: &AnalysisOptions) -> FamilyMember {
 
 /// Runs the main job over every member, in parallel, and ranks the rows ([`RANKING_RULE`]).
 pub fn study(inputs: Vec<MemberInput>, opts: &AnalysisOptions) -> FamilyStudy {
+    study_reporting(inputs, opts, &|_| {})
+}
+
+/// [`study`], calling `done` as each member's analysis ends (members run in parallel, so in
+/// the order they finish): what a front end needs to show progress.
+pub fn study_reporting(
+    inputs: Vec<MemberInput>,
+    opts: &AnalysisOptions,
+    done: &(dyn Fn(&FamilyMember) + Sync),
+) -> FamilyStudy {
     let members: Vec<FamilyMember> = inputs
         .into_par_iter()
-        .map(|m| run_member(m, opts))
+        .map(|m| {
+            let member = run_member(m, opts);
+            done(&member);
+            member
+        })
         .collect();
     FamilyStudy {
         ion: opts.ion,

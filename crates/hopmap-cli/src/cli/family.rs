@@ -115,14 +115,22 @@ pub fn run(g: &GlobalOpts, a: FamilyArgs) -> CmdResult {
     super::prepare_output_dir(&a.out)?;
     let mut inputs: Vec<MemberInput> = a.members.iter().map(|t| member(t)).collect();
     unique_labels(&mut inputs);
-    if !g.quiet {
-        eprintln!(
-            "analysing {} member{} in parallel ...",
-            inputs.len(),
-            if inputs.len() == 1 { "" } else { "s" }
-        );
-    }
-    let study = family::study(inputs, &opts);
+    let bar = if g.quiet {
+        indicatif::ProgressBar::hidden()
+    } else {
+        let b = indicatif::ProgressBar::new(inputs.len() as u64);
+        if let Ok(style) = indicatif::ProgressStyle::with_template(
+            "{bar:40} {pos}/{len} members analysed  {elapsed} (eta {eta})  {msg}",
+        ) {
+            b.set_style(style);
+        }
+        b
+    };
+    let study = family::study_reporting(inputs, &opts, &|m| {
+        bar.set_message(m.label.clone());
+        bar.inc(1);
+    });
+    bar.finish_and_clear();
     let reports = !a.no_member_reports;
     // every file's contents first, then the writes (each atomic)
     let mut files: Vec<(PathBuf, Vec<u8>)> = Vec::new();
