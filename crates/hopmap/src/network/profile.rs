@@ -19,7 +19,9 @@
 
 use crate::grid::Grid;
 use crate::lattice::Frac;
-use crate::percolation::{FastMap, Percolation, face_neighbours, hnf, in_lattice, total_key};
+use crate::percolation::{
+    FastMap, Percolation, Threshold, face_neighbours, hnf, in_lattice, total_key,
+};
 use nalgebra::Vector3;
 use rayon::prelude::*;
 use std::cmp::Reverse;
@@ -96,6 +98,10 @@ impl Profile {
 /// deepest channel, one profile per generating translation of its span. Thresholds reached by
 /// the same channel (a cubic network opens in 1D, 2D and 3D at once) share the same start and
 /// translations: each path is searched once.
+///
+/// `percolation` is the percolation of `grid` (the grid's, not the site graph's) below
+/// `options.ceiling`: its thresholds give each search its bottleneck, or a candidate for it
+/// (see [`Bottleneck`]), so that the least-cost pass need not wait for the bottleneck pass.
 pub fn channel_profiles(
     grid: &Grid,
     percolation: &Percolation,
@@ -103,17 +109,20 @@ pub fn channel_profiles(
 ) -> Vec<Profile> {
     // the distinct searches, in order of first use, run in parallel
     let mut jobs: Vec<(usize, [i32; 3])> = Vec::new();
+    let mut levels: Vec<Bottleneck> = Vec::new();
     for t in percolation.thresholds.iter().flatten() {
         for tr in t.channel.span.translations() {
             let job = (t.channel.lowest_point, tr);
             if !jobs.contains(&job) {
                 jobs.push(job);
+                levels.push(known_bottleneck(grid, percolation, options, t, job));
             }
         }
     }
     let found: Vec<Option<Profile>> = jobs
         .par_iter()
-        .map(|&(start, tr)| channel_profile(grid, start, tr, options))
+        .zip(levels.par_iter())
+        .map(|(&(start, tr), &level)| search_profile(grid, start, tr, level, options))
         .collect();
     let mut out: Vec<Profile> = Vec::new();
     for t in percolation.thresholds.iter().flatten() {
@@ -127,6 +136,66 @@ pub fn channel_profiles(
         }
     }
     out
+}
+
+/// What is known of the bottleneck of a search (the highest value on the lowest path from the
+/// start to its image) before the bottleneck pass runs.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Bottleneck {
+    /// Proved by the percolation: the value itself.
+    Known(f32),
+    /// A value the percolation suggests; checked by [`bottleneck_is`] while the least-cost pass
+    /// runs under it, and replaced by the bottleneck pass's value when it is not the one.
+    Candidate(f32),
+    /// Nothing known: the bottleneck pass runs first.
+    Unknown,
+}
+
+/// The bottleneck of the search `(start, translation)` of threshold `t`, as far as the
+/// percolation tells it.
+///
+/// Proved: when `t` opens at the first threshold energy `E_1` (the lowest), the bottleneck of
+/// every translation of its channel is `E_1`. The start is connected to its image at `E_1` (the
+/// translation is in the winding lattice of the start's region then), and not below it:
+/// a path from a voxel to its own translated image below `E_1` would close a loop with a
+/// nonzero winding vector there, while no region winds below `E_1`. This holds for the
+/// percolation of this grid below the same ceiling, which is checked (point count and
+/// ceiling); anything else gets no proof.
+///
+/// Otherwise the candidate is the onset of the first opening whose region has the same lowest
+/// voxel and whose winding lattice holds the translation (the region opened along it
+/// earlier), else the threshold's energy: the bottleneck is never above it.
+fn known_bottleneck(
+    grid: &Grid,
+    percolation: &Percolation,
+    options: &ProfileOptions,
+    t: &Threshold,
+    (start, translation): (usize, [i32; 3]),
+) -> Bottleneck {
+    if percolation.points != grid.len() || start >= grid.len() {
+        return Bottleneck::Unknown;
+    }
+    let first = percolation
+        .thresholds
+        .iter()
+        .flatten()
+        .map(|t| t.energy)
+        .fold(f32::INFINITY, f32::min);
+    if percolation.ceiling == options.ceiling && t.energy == first {
+        return Bottleneck::Known(t.energy);
+    }
+    let target = translation.map(i64::from);
+    let opened_along = percolation
+        .openings
+        .iter()
+        .take_while(|o| o.onset <= t.energy)
+        .find(|o| {
+            o.lowest_point == start && {
+                let rows = o.span.translations().iter().map(|r| r.map(i64::from)).collect();
+                in_lattice(&hnf(rows), target)
+            }
+        });
+    Bottleneck::Candidate(opened_along.map_or(t.energy, |o| o.onset))
 }
 
 /// Pass 1: the key (see `total_key`) of the highest voxel on the lowest path from `start` to
@@ -267,19 +336,105 @@ fn step(dir: usize) -> [i64; 3] {
     d
 }
 
-/// Pass 2: the path of least cost from `from` to `to` (unwrapped grid coordinates) through
-/// voxels whose key is at most `bkey`, by A* (see the estimate below). Returns the points of
-/// the path, `from` first; None when `to` is not reached within 511 cells of the start.
 /// Relative tolerance (of the value, or absolute below 1) within which a voxel ties with the
 /// bottleneck: symmetry-equivalent points of the f32 grid differ by a few units in the last
 /// place (about 1e-7 relative); 1e-5 is the kernel's tested agreement with the f64 reference.
 pub const TIE_TOLERANCE: f32 = 1e-5;
 
+/// What pass 2 needs of the whole grid for one start and one level, computed once and shared
+/// by the windows the search tries: which voxels are open, the cost of a step, and the
+/// estimate of the remaining cost.
+struct UnderLevel {
+    /// Energy of the start.
+    e0: f64,
+    /// Bottleneck value minus `e0` (at least 1e-30).
+    span: f64,
+    /// Open voxels: energy at most this (the level within the tie tolerance).
+    level_open: f32,
+    /// Length of one face step along each axis, A.
+    steps: [f64; 3],
+    /// `prefix[a][k]`: least cost of stepping into layers `0..k` along axis `a` (one period).
+    prefix: [Vec<f64>; 3],
+}
+
+impl UnderLevel {
+    /// The open voxels under `level` (the bottleneck's value) seen from a start of energy `e0`.
+    fn new(grid: &Grid, e0: f64, level: f32, weight: f64) -> Self {
+        let values = &grid.values;
+        let bval = level as f64;
+        let span = (bval - e0).max(1e-30);
+        // Open voxels: energy at most the bottleneck's, within a tie tolerance. Compared by
+        // energy, not by key, so that saddles tied with the bottleneck (the symmetry-equivalent
+        // ones of a cubic network) are all open, whatever their grid index, and equivalent
+        // directions get equivalent paths; the tolerance absorbs the last-place differences
+        // between equivalent points of the f32 grid.
+        let level_open = level + TIE_TOLERANCE * level.abs().max(1.0);
+        let steps: [f64; 3] =
+            [0, 1, 2].map(|a| grid.lattice.vector(a).norm() / grid.dims[a] as f64);
+        // The estimate of the remaining cost. A chain of face steps from p to `to` must step
+        // into every layer of voxels (a plane of fixed index along an axis) between them, one
+        // step along that axis each; such a step costs at least its length times 1 + w r, with
+        // r the lowest rise among the open voxels of the layer it lands in. The sum of those
+        // least costs over the layers still to cross, axis by axis, never exceeds the remaining
+        // cost, and a step changes it by at most the step's cost (the triangle inequality): the
+        // first time `to` leaves the queue its cost is the least.
+        let rise_of = |v: f32| ((v as f64 - e0) / span).max(0.0);
+        let mut low = [0, 1, 2].map(|a| vec![f64::INFINITY; grid.dims[a]]);
+        // the grid in storage order, one row of c at a time (no division per voxel)
+        let nb = grid.dims[1];
+        for (row, values_of_row) in values.chunks_exact(grid.dims[2]).enumerate() {
+            let (i, j) = (row / nb, row % nb);
+            for (k, &v) in values_of_row.iter().enumerate() {
+                if v <= level_open {
+                    let r = rise_of(v);
+                    for (a, at) in [i, j, k].into_iter().enumerate() {
+                        let l = &mut low[a][at];
+                        *l = l.min(r);
+                    }
+                }
+            }
+        }
+        let prefix = [0, 1, 2].map(|a| {
+            let mut acc = vec![0.0; grid.dims[a] + 1];
+            for k in 0..grid.dims[a] {
+                let r = if low[a][k].is_finite() {
+                    low[a][k]
+                } else {
+                    0.0
+                };
+                acc[k + 1] = acc[k] + steps[a] * (1.0 + weight * r);
+            }
+            acc
+        });
+        UnderLevel {
+            e0,
+            span,
+            level_open,
+            steps,
+            prefix,
+        }
+    }
+
+    #[inline]
+    fn open(&self, v: f32) -> bool {
+        v <= self.level_open
+    }
+
+    #[inline]
+    fn rise_of(&self, v: f32) -> f64 {
+        ((v as f64 - self.e0) / self.span).max(0.0)
+    }
+}
+
+/// Pass 2: the path of least cost from `from` to `to` (unwrapped grid coordinates) through
+/// the voxels open under `under` (see [`UnderLevel`]), by A* (see the estimate there), with
+/// cells outside `window` (per axis, the lowest and highest cell) closed. Returns the points of
+/// the path, `from` first; None when `to` is not reached within 511 cells of the start.
 fn least_cost_path(
     grid: &Grid,
     from: [i64; 3],
     to: [i64; 3],
-    bkey: u64,
+    under: &UnderLevel,
     weight: f64,
     window: Option<[[i64; 2]; 3]>,
 ) -> Option<Vec<[i64; 3]>> {
@@ -290,55 +445,8 @@ fn least_cost_path(
         let w = [0, 1, 2].map(|a| p[a].rem_euclid(dims[a]) as usize);
         grid.index(w[0], w[1], w[2])
     };
-    let e0 = values[voxel(from)] as f64;
-    // the low half of a key is the grid index of the voxel that sets it
-    let level = values[(bkey & 0xffff_ffff) as usize];
-    let bval = level as f64;
-    let span = (bval - e0).max(1e-30);
-    // Open voxels: energy at most the bottleneck's, within a tie tolerance. Compared by
-    // energy, not by key, so that saddles tied with the bottleneck (the symmetry-equivalent
-    // ones of a cubic network) are all open, whatever their grid index, and equivalent
-    // directions get equivalent paths; the tolerance absorbs the last-place differences
-    // between equivalent points of the f32 grid.
-    let level_open = level + TIE_TOLERANCE * level.abs().max(1.0);
-    let open = |v: f32| v <= level_open;
-    let steps: [f64; 3] = [0, 1, 2].map(|a| grid.lattice.vector(a).norm() / grid.dims[a] as f64);
-    // The estimate of the remaining cost. A chain of face steps from p to `to` must step into
-    // every layer of voxels (a plane of fixed index along an axis) between them, one step
-    // along that axis each; such a step costs at least its length times 1 + w r, with r the
-    // lowest rise among the open voxels of the layer it lands in. The sum of those least costs
-    // over the layers still to cross, axis by axis, never exceeds the remaining cost, and a
-    // step changes it by at most the step's cost (the triangle inequality): the first time
-    // `to` leaves the queue its cost is the least.
-    let rise_of = |v: f32| ((v as f64 - e0) / span).max(0.0);
-    let mut low = [0, 1, 2].map(|a| vec![f64::INFINITY; grid.dims[a]]);
-    // the grid in storage order, one row of c at a time (no division per voxel)
-    let nb = grid.dims[1];
-    for (row, values_of_row) in values.chunks_exact(grid.dims[2]).enumerate() {
-        let (i, j) = (row / nb, row % nb);
-        for (k, &v) in values_of_row.iter().enumerate() {
-            if open(v) {
-                let r = rise_of(v);
-                for (a, at) in [i, j, k].into_iter().enumerate() {
-                    let l = &mut low[a][at];
-                    *l = l.min(r);
-                }
-            }
-        }
-    }
-    // prefix[a][k]: least cost of stepping into layers 0..k along axis a (one period)
-    let prefix = [0, 1, 2].map(|a| {
-        let mut acc = vec![0.0; grid.dims[a] + 1];
-        for k in 0..grid.dims[a] {
-            let r = if low[a][k].is_finite() {
-                low[a][k]
-            } else {
-                0.0
-            };
-            acc[k + 1] = acc[k] + steps[a] * (1.0 + weight * r);
-        }
-        acc
-    });
+    let steps = under.steps;
+    let prefix = &under.prefix;
     // least cost of stepping into the unwrapped layers below k along axis a (from layer 0)
     let below = |a: usize, k: i64| {
         let n = dims[a];
@@ -382,11 +490,11 @@ fn least_cost_path(
                 }
             }
             let y = voxel(q);
-            if !open(values[y]) {
+            if !under.open(values[y]) {
                 continue;
             }
             let Some(qs) = store.slot(q) else { continue };
-            let rise = rise_of(values[y]);
+            let rise = under.rise_of(values[y]);
             let nd = g + steps[dir / 2] * (1.0 + weight * rise);
             if store.get(qs).is_none_or(|(b, _)| nd < b) {
                 store.set(qs, nd, dir as u8);
@@ -413,12 +521,142 @@ fn least_cost_path(
     Some(path)
 }
 
+/// Pass 2 as the profiles and the hops run it: the windows of the cells spanned by
+/// `translation` (the unwrapped cell of `to`), then those and one more on each side, then the
+/// unbounded covering (see the module notes), all under the same level.
+fn least_cost_in_windows(
+    grid: &Grid,
+    from: [i64; 3],
+    to: [i64; 3],
+    translation: [i32; 3],
+    level: f32,
+    weight: f64,
+) -> Option<Vec<[i64; 3]>> {
+    let e0 = grid.values[{
+        let dims = grid.dims.map(|d| d as i64);
+        let w = [0, 1, 2].map(|a| from[a].rem_euclid(dims[a]) as usize);
+        grid.index(w[0], w[1], w[2])
+    }] as f64;
+    let under = UnderLevel::new(grid, e0, level, weight);
+    let window = |margin: i64| {
+        Some([0, 1, 2].map(|a| {
+            let t = translation[a] as i64;
+            [t.min(0) - margin, t.max(0) + margin]
+        }))
+    };
+    least_cost_path(grid, from, to, &under, weight, window(0))
+        .or_else(|| least_cost_path(grid, from, to, &under, weight, window(1)))
+        .or_else(|| least_cost_path(grid, from, to, &under, weight, None))
+}
+
+/// True when the bottleneck of the path from `start` to its image translated by `translation`
+/// (below `ceiling`) is exactly `level`: the start is connected to that image through voxels
+/// at or below `level`, and not through voxels strictly below it. The answer of
+/// [`bottleneck_key`]'s value, by two breadth-first floods of the cell instead of a search in
+/// minimax order: first the voxels below `level` connected to the start, each remembering the
+/// image of the cell it was reached in, the loops closed by the edges between visited voxels
+/// generating the winding lattice of that region (any spanning tree's fundamental cycles do);
+/// then the flood goes on through the voxels equal to `level` it met. No queue ordered by
+/// value, and each voxel is visited once.
+fn bottleneck_is(
+    grid: &Grid,
+    start: usize,
+    translation: [i32; 3],
+    level: f32,
+    ceiling: f32,
+) -> bool {
+    let values = &grid.values;
+    if start >= values.len() || !(level < ceiling) || !(values[start] <= level) {
+        return false;
+    }
+    let target = translation.map(i64::from);
+    const UNSEEN: i32 = i32::MIN;
+    let mut image = vec![[UNSEEN, 0, 0]; values.len()];
+    let mut rows: Vec<[i64; 3]> = Vec::new();
+    let mut queue: Vec<u32> = Vec::new();
+    // voxels equal to `level` met in the first flood, with the image they were met in
+    let mut at_level: Vec<(u32, [i32; 3])> = Vec::new();
+    if values[start] < level {
+        image[start] = [0, 0, 0];
+        queue.push(start as u32);
+    } else {
+        at_level.push((start as u32, [0, 0, 0]));
+    }
+    // adds the winding vector of a loop; true when the translation is then in the lattice
+    let close = |rows: &mut Vec<[i64; 3]>, w: [i64; 3]| -> bool {
+        if w != [0, 0, 0] && !in_lattice(rows, w) {
+            rows.push(w);
+            *rows = hnf(std::mem::take(rows));
+            return in_lattice(rows, target);
+        }
+        false
+    };
+    for second in [false, true] {
+        if second {
+            for &(y, iy) in &at_level {
+                let y = y as usize;
+                if image[y][0] == UNSEEN {
+                    image[y] = iy;
+                    queue.push(y as u32);
+                } else if close(&mut rows, [0, 1, 2].map(|a| (iy[a] - image[y][a]) as i64)) {
+                    return true;
+                }
+            }
+        }
+        let mut head = 0;
+        while head < queue.len() {
+            let x = queue[head] as usize;
+            head += 1;
+            let ix = image[x];
+            for (y, t) in face_neighbours(grid.dims, grid.ijk(x)) {
+                let iy = [ix[0] + t[0], ix[1] + t[1], ix[2] + t[2]];
+                if image[y][0] != UNSEEN {
+                    // a loop (y == x on an axis of one point is a loop of one step)
+                    if close(&mut rows, [0, 1, 2].map(|a| (iy[a] - image[y][a]) as i64)) {
+                        // below the level: the bottleneck is lower
+                        return second;
+                    }
+                    continue;
+                }
+                let v = values[y];
+                if v < level {
+                    image[y] = iy;
+                    queue.push(y as u32);
+                } else if v == level {
+                    if second {
+                        image[y] = iy;
+                        queue.push(y as u32);
+                    } else {
+                        at_level.push((y as u32, iy));
+                    }
+                }
+            }
+        }
+        queue.clear();
+    }
+    false
+}
+
 /// The profile from `start` to its image translated by `translation`; None when the two are not
 /// connected below the ceiling, or the translation is zero or too long to search.
 pub fn channel_profile(
     grid: &Grid,
     start: usize,
     translation: [i32; 3],
+    options: &ProfileOptions,
+) -> Option<Profile> {
+    search_profile(grid, start, translation, Bottleneck::Unknown, options)
+}
+
+/// [`channel_profile`] with what is known of the bottleneck beforehand: a proved level skips
+/// pass 1; a candidate level lets pass 2 run under it on one thread while the other checks it
+/// ([`bottleneck_is`]); pass 2 runs again under pass 1's level when the candidate is not the
+/// bottleneck. The profile is the same in every case.
+fn search_profile(
+    grid: &Grid,
+    start: usize,
+    translation: [i32; 3],
+    bottleneck: Bottleneck,
     options: &ProfileOptions,
 ) -> Option<Profile> {
     if translation == [0, 0, 0]
@@ -435,21 +673,24 @@ pub fn channel_profile(
     let dims = grid.dims.map(|d| d as i64);
     let from = grid.ijk(start).map(|x| x as i64);
     let to = [0, 1, 2].map(|a| from[a] + translation[a] as i64 * dims[a]);
-
-    // pass 1: bottleneck
-    let bkey = bottleneck_key(grid, start, translation, options.ceiling)?;
-
-    // pass 2: least cost under the bottleneck
     let weight = options.energy_weight.max(0.0);
-    let window = |margin: i64| {
-        Some([0, 1, 2].map(|a| {
-            let t = translation[a] as i64;
-            [t.min(0) - margin, t.max(0) + margin]
-        }))
+    let pass2 = |level: f32| least_cost_in_windows(grid, from, to, translation, level, weight);
+    // pass 1 (the bottleneck, by its value: pass 2 reads nothing else of it)
+    let pass1 = || {
+        bottleneck_key(grid, start, translation, options.ceiling)
+            .map(|k| values[(k & 0xffff_ffff) as usize])
     };
-    let path = least_cost_path(grid, from, to, bkey, weight, window(0))
-        .or_else(|| least_cost_path(grid, from, to, bkey, weight, window(1)))
-        .or_else(|| least_cost_path(grid, from, to, bkey, weight, None))?;
+    let path = match bottleneck {
+        Bottleneck::Known(level) => pass2(level),
+        Bottleneck::Candidate(level) => {
+            let (right, path) = rayon::join(
+                || bottleneck_is(grid, start, translation, level, options.ceiling),
+                || pass2(level),
+            );
+            if right { path } else { pass2(pass1()?) }
+        }
+        Bottleneck::Unknown => pass2(pass1()?),
+    }?;
     let nodes: Vec<(usize, [i32; 3])> = path
         .iter()
         .map(|p| {
@@ -592,17 +833,14 @@ pub fn path_between(
     let a = grid.ijk(from).map(|x| x as i64);
     let b = grid.ijk(to);
     let b = [0, 1, 2].map(|k| b[k] as i64 + image[k] as i64 * dims[k]);
-    let bkey = total_key(grid.values[level_voxel], level_voxel);
-    let window = |margin: i64| {
-        Some([0, 1, 2].map(|k| {
-            let t = image[k] as i64;
-            [t.min(0) - margin, t.max(0) + margin]
-        }))
-    };
-    let w = energy_weight.max(0.0);
-    let path = least_cost_path(grid, a, b, bkey, w, window(0))
-        .or_else(|| least_cost_path(grid, a, b, bkey, w, window(1)))
-        .or_else(|| least_cost_path(grid, a, b, bkey, w, None))?;
+    let path = least_cost_in_windows(
+        grid,
+        a,
+        b,
+        image,
+        grid.values[level_voxel],
+        energy_weight.max(0.0),
+    )?;
     Some(
         path.iter()
             .map(|p| {
