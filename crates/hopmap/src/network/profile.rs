@@ -119,11 +119,22 @@ pub fn channel_profiles(
             }
         }
     }
-    let found: Vec<Option<Profile>> = jobs
+    // The search under the highest level opens the most of the grid and usually takes the
+    // longest: it goes first, so that the other thread takes the rest and the two end together.
+    let mut by_cost: Vec<usize> = (0..jobs.len()).collect();
+    by_cost.sort_by(|&a, &b| levels[b].level().total_cmp(&levels[a].level()));
+    let searched: Vec<(usize, Option<Profile>)> = by_cost
         .par_iter()
-        .zip(levels.par_iter())
-        .map(|(&(start, tr), &level)| search_profile(grid, start, tr, level, options))
+        .with_max_len(1)
+        .map(|&k| {
+            let (start, tr) = jobs[k];
+            (k, search_profile(grid, start, tr, levels[k], options))
+        })
         .collect();
+    let mut found: Vec<Option<Profile>> = vec![None; jobs.len()];
+    for (k, p) in searched {
+        found[k] = p;
+    }
     let mut out: Vec<Profile> = Vec::new();
     for t in percolation.thresholds.iter().flatten() {
         for tr in t.channel.span.translations() {
@@ -149,6 +160,16 @@ enum Bottleneck {
     Candidate(f32),
     /// Nothing known: the bottleneck pass runs first.
     Unknown,
+}
+
+impl Bottleneck {
+    /// The level known or proposed (grid units); minus infinity when nothing is known.
+    fn level(self) -> f32 {
+        match self {
+            Bottleneck::Known(l) | Bottleneck::Candidate(l) => l,
+            Bottleneck::Unknown => f32::NEG_INFINITY,
+        }
+    }
 }
 
 /// The bottleneck of the search `(start, translation)` of threshold `t`, as far as the
@@ -293,14 +314,20 @@ impl Covering {
     }
     /// Key of a point; None for cells 512 or more from the start's along some axis.
     fn slot(&self, p: [i64; 3]) -> Option<u64> {
-        const BIAS: i64 = 512;
         let d = self.dims;
         let cell = [0, 1, 2].map(|a| p[a].div_euclid(d[a]));
+        let v = [0, 1, 2].map(|a| p[a].rem_euclid(d[a]));
+        let index = ((v[0] * d[1] + v[1]) * d[2] + v[2]) as u64;
+        Self::slot_of(cell, index)
+    }
+    /// Key of the point of voxel `index` (grid index) in cell `cell`; None for cells 512 or
+    /// more from the start's along some axis.
+    #[inline]
+    fn slot_of(cell: [i64; 3], index: u64) -> Option<u64> {
+        const BIAS: i64 = 512;
         if cell.iter().any(|c| c.abs() >= BIAS) {
             return None;
         }
-        let v = [0, 1, 2].map(|a| p[a].rem_euclid(d[a]));
-        let index = ((v[0] * d[1] + v[1]) * d[2] + v[2]) as u64;
         let c = |x: i64| (x + BIAS) as u64;
         Some(index | (c(cell[0]) << 32) | (c(cell[1]) << 42) | (c(cell[2]) << 52))
     }
@@ -441,10 +468,6 @@ fn least_cost_path(
     let mut store = Covering::new(grid.dims.map(|d| d as i64));
     let values = &grid.values;
     let dims = grid.dims.map(|d| d as i64);
-    let voxel = |p: [i64; 3]| {
-        let w = [0, 1, 2].map(|a| p[a].rem_euclid(dims[a]) as usize);
-        grid.index(w[0], w[1], w[2])
-    };
     let steps = under.steps;
     let prefix = &under.prefix;
     // least cost of stepping into the unwrapped layers below k along axis a (from layer 0)
@@ -464,6 +487,25 @@ fn least_cost_path(
             })
             .sum::<f64>()
     };
+    // The same estimate for a point given as its cell and voxel coordinates along each axis
+    // (the unwrapped coordinate is cell * n + r), term by term, with no division: a step
+    // changes one axis, so the other two terms are the popped point's.
+    let n = grid.dims;
+    let below_at = |a: usize, cell: i64, r: usize| prefix[a][n[a]] * cell as f64 + prefix[a][r];
+    let below_to = [0, 1, 2].map(|a| below(a, to[a]));
+    let below_past_to = [0, 1, 2].map(|a| below(a, to[a] + 1));
+    let term = |a: usize, cell: i64, r: usize| {
+        if cell * dims[a] + (r as i64) < to[a] {
+            let (c1, r1) = if r + 1 == n[a] {
+                (cell + 1, 0)
+            } else {
+                (cell, r + 1)
+            };
+            below_past_to[a] - below_at(a, c1, r1)
+        } else {
+            below_at(a, cell, r) - below_to[a]
+        }
+    };
     let s = store.slot(from)?;
     let target = store.slot(to)?;
     store.set(s, 0.0, SOURCE);
@@ -479,26 +521,48 @@ fn least_cost_path(
         if store.get(slot).is_some_and(|(b, _)| b < g) {
             continue;
         }
+        let cell = [0, 1, 2].map(|a| p[a].div_euclid(dims[a]));
+        let r = [0, 1, 2].map(|a| p[a].rem_euclid(dims[a]) as usize);
+        let terms = [0, 1, 2].map(|a| term(a, cell[a], r[a]));
         for dir in 0..6 {
-            let d = step(dir);
-            let q = [p[0] + d[0], p[1] + d[1], p[2] + d[2]];
-            if let Some(w) = &window {
-                let a = dir / 2;
-                let c = q[a].div_euclid(dims[a]);
-                if c < w[a][0] || c > w[a][1] {
-                    continue;
+            let a = dir / 2;
+            // the neighbour's cell and voxel coordinate along the axis of the step
+            let (c, ra) = if dir % 2 == 0 {
+                if r[a] + 1 == n[a] {
+                    (cell[a] + 1, 0)
+                } else {
+                    (cell[a], r[a] + 1)
                 }
+            } else if r[a] == 0 {
+                (cell[a] - 1, n[a] - 1)
+            } else {
+                (cell[a], r[a] - 1)
+            };
+            if let Some(w) = &window
+                && (c < w[a][0] || c > w[a][1])
+            {
+                continue;
             }
-            let y = voxel(q);
+            let mut rq = r;
+            rq[a] = ra;
+            let y = grid.index(rq[0], rq[1], rq[2]);
             if !under.open(values[y]) {
                 continue;
             }
-            let Some(qs) = store.slot(q) else { continue };
+            let mut cq = cell;
+            cq[a] = c;
+            let Some(qs) = Covering::slot_of(cq, y as u64) else {
+                continue;
+            };
             let rise = under.rise_of(values[y]);
-            let nd = g + steps[dir / 2] * (1.0 + weight * rise);
+            let nd = g + steps[a] * (1.0 + weight * rise);
             if store.get(qs).is_none_or(|(b, _)| nd < b) {
                 store.set(qs, nd, dir as u8);
-                let f = nd + estimate(q);
+                let mut tq = terms;
+                tq[a] = term(a, c, ra);
+                let f = nd + tq.iter().copied().sum::<f64>();
+                let mut q = p;
+                q[a] += if dir % 2 == 0 { 1 } else { -1 };
                 heap.push(Reverse((f.to_bits(), u64::MAX - nd.to_bits(), qs, q)));
             }
         }
