@@ -212,7 +212,12 @@ fn known_bottleneck(
         .take_while(|o| o.onset <= t.energy)
         .find(|o| {
             o.lowest_point == start && {
-                let rows = o.span.translations().iter().map(|r| r.map(i64::from)).collect();
+                let rows = o
+                    .span
+                    .translations()
+                    .iter()
+                    .map(|r| r.map(i64::from))
+                    .collect();
                 in_lattice(&hnf(rows), target)
             }
         });
@@ -947,5 +952,149 @@ mod tests {
             assert_eq!(store.get(slot), Some(v));
         }
         assert!(store.slot([0, 0, 512 * 300]).is_none());
+    }
+}
+
+#[cfg(test)]
+mod bottleneck_tests {
+    use super::*;
+    use crate::lattice::{CellParameters, Lattice};
+    use crate::percolation::percolate;
+
+    /// Random landscapes (some quantised so that many voxels tie), odd and tiny grids, a
+    /// skewed cell, walls below a ceiling: the cases of the profile tests in `tests/channels.rs`.
+    fn landscapes() -> Vec<(Grid, f32)> {
+        let lattice = Lattice::from_parameters(CellParameters {
+            a: 3.1,
+            b: 3.7,
+            c: 4.3,
+            alpha: 83.0,
+            beta: 97.0,
+            gamma: 112.0,
+        })
+        .unwrap();
+        let mut state = 0x2545_f491_4f6c_dd1du64;
+        let mut next = move || {
+            state ^= state << 13;
+            state ^= state >> 7;
+            state ^= state << 17;
+            (state >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let mut out = Vec::new();
+        for dims in [[6, 5, 4], [1, 6, 6], [2, 2, 9], [9, 8, 7], [12, 11, 10]] {
+            for quantum in [None, Some(6.0)] {
+                for ceiling in [0.35, 0.5, 0.7, f32::INFINITY] {
+                    let mut g = Grid::new(lattice.clone(), dims, 0.0);
+                    for v in g.values.iter_mut() {
+                        let x = next();
+                        *v = match quantum {
+                            Some(q) => (x * q).floor() / q,
+                            None => x,
+                        } as f32;
+                    }
+                    out.push((g, ceiling));
+                }
+            }
+        }
+        out
+    }
+
+    #[test]
+    fn the_two_floods_confirm_the_minimax_bottleneck_and_no_other_level() {
+        // oracle: pass 1, the search in minimax (Prim's) order, an exact answer on any grid
+        let translations = [
+            [1, 0, 0],
+            [0, 1, 0],
+            [0, 0, 1],
+            [1, 1, 0],
+            [1, -1, 1],
+            [2, 0, 0],
+        ];
+        let mut confirmed = 0;
+        let mut refused = 0;
+        for (g, ceiling) in landscapes() {
+            let mut distinct: Vec<f32> = g.values.clone();
+            distinct.sort_by(f32::total_cmp);
+            distinct.dedup();
+            // open starts only: pass 1 is run from nothing else (`channel_profile`)
+            for start in (0..g.len()).step_by(7).filter(|&x| g.values[x] < ceiling) {
+                for tr in translations {
+                    let exact = bottleneck_key(&g, start, tr, ceiling)
+                        .map(|k| g.values[(k & 0xffff_ffff) as usize]);
+                    // the bottleneck, the values next to it, and a sample of the others
+                    let at = exact.map_or(0, |e| distinct.partition_point(|&v| v < e));
+                    let near = distinct[at.saturating_sub(2)..(at + 3).min(distinct.len())].iter();
+                    for &level in near.chain(distinct.iter().step_by(11)) {
+                        let said = bottleneck_is(&g, start, tr, level, ceiling);
+                        assert_eq!(
+                            said,
+                            exact == Some(level),
+                            "dims {:?}, start {start}, {tr:?}, level {level}, pass 1 {exact:?}",
+                            g.dims
+                        );
+                        if said {
+                            confirmed += 1;
+                        } else {
+                            refused += 1;
+                        }
+                    }
+                }
+            }
+        }
+        assert!(confirmed > 500 && refused > 1000, "{confirmed} {refused}");
+    }
+
+    #[test]
+    fn the_level_the_percolation_proves_is_the_minimax_bottleneck() {
+        // oracle: pass 1 (above); the percolation is the union-find sweep, a separate algorithm
+        let (mut proved, mut proposed, mut proposed_right) = (0, 0, 0);
+        for (g, ceiling) in landscapes() {
+            let p = percolate(&g, ceiling);
+            let options = ProfileOptions {
+                ceiling,
+                ..Default::default()
+            };
+            for t in p.thresholds.iter().flatten() {
+                for tr in t.channel.span.translations() {
+                    let start = t.channel.lowest_point;
+                    let exact = bottleneck_key(&g, start, tr, ceiling)
+                        .map(|k| g.values[(k & 0xffff_ffff) as usize]);
+                    match known_bottleneck(&g, &p, &options, t, (start, tr)) {
+                        Bottleneck::Known(level) => {
+                            assert_eq!(Some(level), exact, "dims {:?}, {tr:?}", g.dims);
+                            proved += 1;
+                        }
+                        Bottleneck::Candidate(level) => {
+                            // a level at which the start reaches its image: never below the
+                            // bottleneck (and checked before use when above it)
+                            assert!(exact.is_some_and(|e| e <= level), "{exact:?} {level}");
+                            proposed += 1;
+                            proposed_right += usize::from(exact == Some(level));
+                        }
+                        Bottleneck::Unknown => panic!("the grid's own percolation"),
+                    }
+                }
+            }
+        }
+        assert!(
+            proved > 20 && proposed_right > 0,
+            "{proved} {proposed} {proposed_right}"
+        );
+    }
+
+    #[test]
+    fn a_percolation_of_another_ceiling_proves_nothing() {
+        let (g, _) = landscapes().remove(3);
+        let p = percolate(&g, f32::INFINITY);
+        let t = p.thresholds[0].as_ref().expect("a random grid percolates");
+        let job = (t.channel.lowest_point, t.channel.span.translations()[0]);
+        let other = ProfileOptions {
+            ceiling: 0.9,
+            ..Default::default()
+        };
+        assert!(matches!(
+            known_bottleneck(&g, &p, &other, t, job),
+            Bottleneck::Candidate(_)
+        ));
     }
 }
