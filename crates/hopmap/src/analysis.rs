@@ -598,16 +598,52 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
     let ceiling = model.energy_cap as f32;
     let mobile = mobile_sites(&s, opts.ion);
     let marks = occupied_wells(&land.energy, &mobile);
-    // the two percolations are independent: one on each core
-    let (percolation, mismatch_percolation) = rayon::join(
-        || percolation::percolate_marked(&land.energy, ceiling, &marks),
-        || {
-            opts.mismatch_channels
-                .then(|| percolation::percolate(&land.mismatch, model.mismatch_cap as f32))
-        },
-    );
+    let with_network = !opts.percolation_only;
+    let framework = framework_ions(&model);
+    let input = NetworkInput {
+        ops: &s.symmetry.ops,
+        framework: &framework,
+        mobile_sites: &mobile,
+        mobile_radius: model.probe.radius,
+    };
+    let net_opts = NetworkOptions {
+        ceiling,
+        ..Default::default()
+    };
+    // Four stages after the grids: the energy percolation, then the channel profiles (which
+    // read it); the valence-mismatch percolation and the site network, which read only the
+    // grids. The two independent ones are handed to the other core while this one sweeps the
+    // energy grid and then searches the profiles, whose searches the other core takes up when
+    // it is done: neither core waits at a stage boundary. Each records its own wall time.
+    let mut mismatch_percolation = None;
+    let mut network_out = None;
+    let (percolation, percolation_s, profiles_out) = rayon::scope(|scope| {
+        scope.spawn(|_| {
+            mismatch_percolation = opts
+                .mismatch_channels
+                .then(|| percolation::percolate(&land.mismatch, model.mismatch_cap as f32));
+        });
+        if with_network {
+            scope.spawn(|_| {
+                let t = Instant::now();
+                let net = network::build(&land.energy, &input, &net_opts);
+                let graph_perc = net.percolate(&land.energy);
+                network_out = Some((net, graph_perc, t.elapsed().as_secs_f64()));
+            });
+        }
+        let p = percolation::percolate_marked(&land.energy, ceiling, &marks);
+        let percolation_s = t.elapsed().as_secs_f64();
+        let found = with_network.then(|| {
+            let t = Instant::now();
+            (
+                profiles(&land.energy, &p, ceiling),
+                t.elapsed().as_secs_f64(),
+            )
+        });
+        (p, percolation_s, found)
+    });
     deeper_void_warning(&percolation, &land.energy, &mut warnings);
-    timings.push(("percolation", t.elapsed().as_secs_f64()));
+    timings.push(("percolation", percolation_s));
 
     let mut out = Analysis {
         structure: s,
@@ -639,38 +675,13 @@ pub fn analyse(structure: &Structure, opts: &AnalysisOptions) -> Result<Analysis
             figures: Default::default(),
         },
     };
-    if opts.percolation_only {
+    let (Some((net, graph_perc, net_s)), Some((found_profiles, profiles_s))) =
+        (network_out, profiles_out)
+    else {
+        // percolation only
         out.summary = crate::summary::summarise(&out);
         return Ok(out);
-    }
-
-    let framework = framework_ions(&out.model);
-    let mobile = mobile_sites(&out.structure, opts.ion);
-    let input = NetworkInput {
-        ops: &out.structure.symmetry.ops,
-        framework: &framework,
-        mobile_sites: &mobile,
-        mobile_radius: out.model.probe.radius,
     };
-    let net_opts = NetworkOptions {
-        ceiling,
-        ..Default::default()
-    };
-    // The site network and the channel profiles read the same grid and percolation and
-    // nothing of each other: they run side by side (each records its own wall time).
-    let ((net, graph_perc, net_s), (found_profiles, profiles_s)) = rayon::join(
-        || {
-            let t = Instant::now();
-            let net = network::build(&out.landscape.energy, &input, &net_opts);
-            let graph_perc = net.percolate(&out.landscape.energy);
-            (net, graph_perc, t.elapsed().as_secs_f64())
-        },
-        || {
-            let t = Instant::now();
-            let p = profiles(&out.landscape.energy, &out.percolation, ceiling);
-            (p, t.elapsed().as_secs_f64())
-        },
-    );
     for d in 1..=3u8 {
         let (g, v) = (out.percolation.energy(d), graph_perc.energy(d));
         if g != v {
