@@ -817,5 +817,18 @@ fn chalcogenide_factor_scales_only_the_sulfide_pairs() {
     };
     assert!((depth(&m2, "S") - 2.0 * depth(&m0, "S")).abs() < 1e-12);
     assert_eq!(depth(&m2, "Cl"), depth(&m0, "Cl"));
+    // the provenance lists the knob once it is set, with the file it came from
+    let (_, p2) = build_model(&s, el("Li"), &t, &k, &[]).unwrap();
+    let kv = p2
+        .knobs
+        .iter()
+        .find(|x| x.name == "d0_chalcogenide_factor")
+        .unwrap();
+    assert_eq!(kv.value, 2.0);
+    assert!(
+        matches!(kv.origin, ValueOrigin::UserFile { .. }),
+        "{:?}",
+        kv.origin
+    );
     assert!(Overrides::parse("[model]\nd0_chalcogenide_factor = -1\n", "f.toml").is_err());
 }

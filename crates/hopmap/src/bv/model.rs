@@ -621,6 +621,14 @@ pub fn build_model(
             "mismatch above is stored as the cap",
         ),
     ];
+    if knobs.d0_chalcogenide_factor != 1.0 {
+        knob_list.push(k(
+            "d0_chalcogenide_factor",
+            knobs.d0_chalcogenide_factor,
+            "",
+            "D0 of the S, Se and Te pairs x factor",
+        ));
+    }
     if let Some(c) = knobs.morse_cutoff_a {
         knob_list.push(k(
             "morse_cutoff_a",
