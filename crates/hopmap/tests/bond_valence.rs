@@ -788,3 +788,47 @@ fn write_sums_for_the_pymatgen_cross_check() {
     std::fs::rename(&tmp, &path).unwrap();
     assert!(path.exists());
 }
+
+/// The per-anion depth factor for chalcogenides (off by default, settable in an override file):
+/// on the argyrodite Li6PS5Cl (the bundled structure; source in the file) a factor of 2 doubles
+/// the depth of the Li-S pair exactly and leaves the Li-Cl pair as it was.
+#[test]
+fn chalcogenide_factor_scales_only_the_sulfide_pairs() {
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("../../structures/reference/Li6PS5Cl_argyrodite.cif");
+    let s = hopmap::read::read_structure(&path, None).unwrap();
+    let table = ParameterTable::builtin();
+    let (s, _) = hopmap::analysis::with_oxidation_states(&s, &table).unwrap();
+    let base = ModelKnobs::default();
+    assert_eq!(base.d0_chalcogenide_factor, 1.0);
+    let o = Overrides::parse("[model]\nd0_chalcogenide_factor = 2\n", "f.toml").unwrap();
+    let mut t = table.clone();
+    let mut k = base.clone();
+    o.apply(&mut t, &mut k);
+    assert_eq!(k.d0_chalcogenide_factor, 2.0);
+    let (m0, _) = build_model(&s, el("Li"), &table, &base, &[]).unwrap();
+    let (m2, _) = build_model(&s, el("Li"), &t, &k, &[]).unwrap();
+    let depth = |m: &hopmap::landscape::LandscapeModel, sym: &str| {
+        m.anions
+            .iter()
+            .find(|a| a.species.element.symbol() == sym)
+            .map(|a| a.d0)
+            .unwrap()
+    };
+    assert!((depth(&m2, "S") - 2.0 * depth(&m0, "S")).abs() < 1e-12);
+    assert_eq!(depth(&m2, "Cl"), depth(&m0, "Cl"));
+    // the provenance lists the knob once it is set, with the file it came from
+    let (_, p2) = build_model(&s, el("Li"), &t, &k, &[]).unwrap();
+    let kv = p2
+        .knobs
+        .iter()
+        .find(|x| x.name == "d0_chalcogenide_factor")
+        .unwrap();
+    assert_eq!(kv.value, 2.0);
+    assert!(
+        matches!(kv.origin, ValueOrigin::UserFile { .. }),
+        "{:?}",
+        kv.origin
+    );
+    assert!(Overrides::parse("[model]\nd0_chalcogenide_factor = -1\n", "f.toml").is_err());
+}

@@ -87,6 +87,9 @@ pub struct ModelKnobs {
     /// exponent: 0 gives one depth for every pair; p > 0 makes longer (softer, larger-ion) bonds
     /// shallower, as the electrostatic energy of a bond scales with 1/R.
     pub d0_length_exponent: f64,
+    /// Factor on `D0` of the pairs with a chalcogenide anion (S, Se, Te), on top of the length
+    /// rule: 1 treats them as the oxides are treated.
+    pub d0_chalcogenide_factor: f64,
     /// Charge scale of the other mobile ions of the structure, left at their sites as a mean
     /// field that repels the probe (0: not modelled, the probe sees the bare framework).
     pub mobile_charge_scale: f64,
@@ -128,6 +131,7 @@ impl Default for ModelKnobs {
             charge_scale: 1.0,
             charge_shell_exponent: 0.75,
             d0_length_exponent: 3.0,
+            d0_chalcogenide_factor: 1.0,
             mobile_charge_scale: 0.0,
             mobile_excluded_nearest: 2,
             vacancy_share_threshold: 0.3,
@@ -434,7 +438,12 @@ pub fn build_model(
             r0: p.r0,
             b: p.b,
             rmin,
-            d0: pair_d0(rmin),
+            d0: pair_d0(rmin)
+                * if matches!(sp.element.symbol(), "S" | "Se" | "Te") {
+                    knobs.d0_chalcogenide_factor
+                } else {
+                    1.0
+                },
             cutoff,
             radius: radius.radius,
             source,
@@ -612,6 +621,14 @@ pub fn build_model(
             "mismatch above is stored as the cap",
         ),
     ];
+    if knobs.d0_chalcogenide_factor != 1.0 {
+        knob_list.push(k(
+            "d0_chalcogenide_factor",
+            knobs.d0_chalcogenide_factor,
+            "",
+            "D0 of the S, Se and Te pairs x factor",
+        ));
+    }
     if let Some(c) = knobs.morse_cutoff_a {
         knob_list.push(k(
             "morse_cutoff_a",

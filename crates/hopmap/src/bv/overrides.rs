@@ -68,6 +68,7 @@ struct ModelSection {
     charge_scale: Option<Spanned<f64>>,
     charge_shell_exponent: Option<Spanned<f64>>,
     d0_length_exponent: Option<Spanned<f64>>,
+    d0_chalcogenide_factor: Option<Spanned<f64>>,
     mobile_charge_scale: Option<Spanned<f64>>,
     mobile_excluded_nearest: Option<Spanned<f64>>,
     vacancy_share_threshold: Option<Spanned<f64>>,
@@ -210,6 +211,11 @@ impl Overrides {
                 Some(-1e-300),
             )?;
             number("d0_length_exponent", &m.d0_length_exponent, None)?;
+            number(
+                "d0_chalcogenide_factor",
+                &m.d0_chalcogenide_factor,
+                Some(0.0),
+            )?;
             number("mobile_charge_scale", &m.mobile_charge_scale, Some(-1e-300))?;
             number(
                 "mobile_excluded_nearest",
@@ -368,6 +374,7 @@ impl Overrides {
                         "charge_scale" => knobs.charge_scale = v,
                         "charge_shell_exponent" => knobs.charge_shell_exponent = v,
                         "d0_length_exponent" => knobs.d0_length_exponent = v,
+                        "d0_chalcogenide_factor" => knobs.d0_chalcogenide_factor = v,
                         "mobile_charge_scale" => knobs.mobile_charge_scale = v,
                         "mobile_excluded_nearest" => {
                             knobs.mobile_excluded_nearest = v.round().clamp(0.0, 4.0) as usize
