@@ -5,7 +5,10 @@
 //! voxel to its own image translated by a lattice vector of the channel. It is found in two
 //! passes: first the bottleneck, the lowest level at which the two images are connected, by a
 //! minimax search on the cell itself that follows the winding vectors of the loops it closes
-//! (see `bottleneck_key`); then, among the voxels at or below that level, the path of least
+//! (see `bottleneck_key`), unless the percolation proves the level (a channel of the first
+//! threshold) or proposes one that two floods of the cell confirm while the second pass already
+//! runs under it (see `known_bottleneck`, `bottleneck_is`); then, among the voxels at or below
+//! that level, the path of least
 //! cost, where a step costs its length (A) times `1 + w (E - E_start) / (E_bottleneck - E_start)`:
 //! with `w = 0` the shortest path under the bottleneck, with `w > 0` one that keeps to the
 //! valley floor. The second pass is an A* search in the covering, guided by the least length
