@@ -6,8 +6,9 @@
 //! each file), Li+ probe, default grid spacing. Each stage is run on its own, one after the
 //! other, and its CPU seconds (all threads) and wall seconds are printed; then the whole
 //! `analyse` call, whose wall time shows how much of it runs on several cores at once
-//! (the percolations side by side, the site network beside the profiles, the grid and the
-//! profiles' searches over threads).
+//! (the grid over threads; then the energy percolation and the profiles on one core while the
+//! mismatch percolation and the site network run on the other, which then takes up profile
+//! searches).
 //!
 //! Part 2: olivine in 1x1x1, 2x2x2 and 3x3x3 P 1 supercells at 0.1 A (the cells as written,
 //! no symmetry search), CPU seconds per stage and per grid point: a stage linear in size keeps
