@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
-# Renders the demo report in headless Chromium and checks that it draws something, that the 3D
-# view of the channel networks draws into its WebGL canvas (SwiftShader, Chromium's CPU
-# renderer: no GPU needed), and that nothing logs to the console.
+# Renders the demo report (the index, the first structure page, the family page) in headless
+# Chromium and checks that it draws something, that the 3D view of the channel networks draws
+# into its WebGL canvas (SwiftShader, Chromium's CPU renderer: no GPU needed), and that nothing
+# logs to the console.
 #
 #   HOPMAP_BIN=path/to/hopmap tools/check_report.sh      (default: target/release/hopmap)
 #
@@ -48,6 +49,8 @@ EOF
 )
 [ -n "$first" ] || fail "report.html links to no per-structure report"
 pages=("report.html" "$first")
+# the family comparison page, when the demo writes one
+[ -f "$OUT/demo/family.html" ] && pages+=("family.html")
 
 chrome() {
     # $1: page, $2: extra flag (--screenshot=... or --dump-dom), stdout: DOM when dumping
@@ -142,6 +145,21 @@ if nonwhite < samples * 0.02:
     sys.exit(f"{png}: almost everything is white")
 
 dom = open(dom_path, encoding="utf-8").read()
+if page == "family.html":
+    # the family comparison: members, table, figures, definitions and cautions; no 3D view
+    for s in ["id=\"members\"", "id=\"table\"", "id=\"figures\"", "id=\"definitions\"",
+              "id=\"cautions\"", "<table"]:
+        if s not in dom:
+            sys.exit(f"{page}: the rendered DOM lacks {s}")
+    nsvg = dom.count("<svg")
+    if nsvg < 5:
+        sys.exit(f"{page}: only {nsvg} inline svg elements (five figures expected)")
+    import re
+    sizes = [float(x) for x in re.findall(r'font-size="([0-9.]+)"', dom)]
+    if sizes and min(sizes) < 11:
+        sys.exit(f"{page}: figure text at {min(sizes)} px (at least 11 px expected)")
+    print(f"  {page}: DOM has the sections and {nsvg} inline svg elements", file=sys.stderr)
+    sys.exit(0)
 need = ["id=\"answer\"", "id=\"cautions\"", "<table"]
 if page != "report.html":
     need += ["id=\"structure\"", "id=\"channels\"", "id=\"landscape\"", "id=\"profiles\"",

@@ -12,6 +12,9 @@ Subcommands (see tools/oracle/README.md):
   relax FILE             relax positions and cell, report displacements and volume change
   run-set                neb + sites for every row of a references table, into a CSV
   ci                     a small, fast NEB compared with the stored value in results.csv
+  direction FILE --ion Li --site x,y,z --along u,v,w [--along ...]
+                         one interstitial ion from a site to its image along each lattice
+                         vector: which direction is the easy one (into directions.csv)
 
 Energies in eV, distances in angstrom, forces in eV/A, times in seconds.
 """
@@ -49,6 +52,7 @@ HERE = Path(__file__).resolve().parent
 REPO = HERE.parent.parent
 DEFAULT_RESULTS = HERE / "results.csv"
 DEFAULT_REFS = REPO / "structures" / "reference" / "references.csv"
+DEFAULT_DIRECTIONS = HERE / "directions.csv"
 
 MIN_IMAGE_A = 8.0  # periodic images of the moving ion at least this far apart
 MAX_ATOMS = 200  # above this an ordered supercell is not attempted
@@ -77,6 +81,13 @@ CSV_COLUMNS = [
     "hopmap_pass_barrier_ev", "hopmap_dimension",
     "lowest_site_verdict", "site_energies", "ordering", "model", "ase_version", "date",
     "wall_s", "notes",
+]
+
+
+DIRECTION_COLUMNS = [
+    "file", "ion", "site_frac", "along", "hop_length_a", "supercell", "atoms", "images",
+    "barrier_ev", "end_moved_a", "max_force_ev_a", "converged", "neb_steps", "profile_ev",
+    "model", "ase_version", "date", "wall_s", "notes",
 ]
 
 
@@ -1143,13 +1154,13 @@ def read_table(path: Path):
         return list(csv.DictReader(fh))
 
 
-def write_table(path: Path, rows):
+def write_table(path: Path, rows, columns=None):
     """Whole table to a temporary file in the same folder, then renamed over the target."""
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=path.name + ".", suffix=".tmp", dir=str(path.parent))
     try:
         with os.fdopen(fd, "w", newline="") as fh:
-            w = csv.DictWriter(fh, fieldnames=CSV_COLUMNS, extrasaction="ignore")
+            w = csv.DictWriter(fh, fieldnames=columns or CSV_COLUMNS, extrasaction="ignore")
             w.writeheader()
             for r in rows:
                 w.writerow(r)
@@ -1397,6 +1408,117 @@ def cmd_relax(args):
 
 
 NO_TOP_NOTE = "highest energy at an end point"
+
+
+# ----------------------------------------------------------------------------------------------
+# direction: which way is easy for an interstitial ion
+
+
+def _vector(text, what):
+    try:
+        v = np.array([float(x) for x in text.split(",")])
+    except ValueError as e:
+        raise OracleError(f"{what} '{text}': three comma-separated numbers") from e
+    if v.shape != (3,):
+        raise OracleError(f"{what} '{text}': three comma-separated numbers")
+    return v
+
+
+def run_direction(path: Path, ion: str, site, along, n_images=7, min_image=MIN_IMAGE_A,
+                  fmax=RELAX_FMAX, steps=NEB_STEPS, log=print):
+    """CI-NEB of one ion of `ion` in the empty host `path`, from `site` (fractional, the file's
+    cell) to the same site one lattice vector `along` (integers, the file's cell) away, the
+    framework free to relax. The straight line is the initial band; the climbing image finds
+    the saddle. Returns one row of directions.csv."""
+    from ase import Atoms
+    from ase.mep import NEB
+    from ase.optimize import FIRE
+
+    t0 = time.time()
+    struct = load_structure(path)
+    if any(ion in site_elements(s) for s in struct):
+        raise OracleError(f"{path}: holds {ion}; `direction` moves one interstitial ion "
+                          "through an empty host (use `neb` for a host with the ion)")
+    if np.any(np.abs(along - np.round(along)) > 1e-9) or not np.any(along):
+        raise OracleError(f"--along {along.tolist()}: a non-zero lattice vector of whole "
+                          "numbers")
+    od = order_structure(struct, min_image)
+    unit = od.unit_matrix
+    mult = np.array(od.mult)
+    hop = along @ unit
+    length = float(np.linalg.norm(hop))
+    # start in the middle cell of the supercell, so that the band stays inside it
+    p0 = (np.array(site) % 1.0 + mult // 2) @ unit
+    p1 = p0 + hop
+
+    def with_ion(p):
+        a = od.atoms.copy()
+        a += Atoms(ion, positions=[p])
+        return a
+
+    start, end = with_ion(p0), with_ion(p1)
+    e0, _, c0, _ = relax(start)
+    e1, _, c1, _ = relax(end)
+    moved = max(float(np.linalg.norm(start.positions[-1] - p0)),
+                float(np.linalg.norm(end.positions[-1] - p1)))
+    notes = []
+    if not (c0 and c1):
+        notes.append("an end point did not reach fmax in the step cap")
+    if moved > 0.7:
+        notes.append(f"an end ion slid {moved:.2f} A in relaxation: the site is not a "
+                     "minimum under the potential")
+    images = [start]
+    for k in range(1, n_images + 1):
+        im = start.copy()
+        f = k / (n_images + 1)
+        im.positions = (1 - f) * start.positions + f * end.positions
+        im.calc = _new_calculator(False)
+        images.append(im)
+    images.append(end)
+    for im in (start, end):
+        im.calc = _new_calculator(False)
+    neb = NEB(images, climb=True, method="improvedtangent")
+    opt = FIRE(neb, logfile=None)
+    conv = bool(opt.run(fmax=fmax, steps=steps))
+    energies = [e0] + [float(im.get_potential_energy()) for im in images[1:-1]] + [e1]
+    low = min(e0, e1)
+    barrier = max(energies) - low
+    if int(np.argmax(energies)) in (0, len(energies) - 1):
+        notes.append(f"{NO_TOP_NOTE}: no barrier between the relaxed ends")
+    if not conv:
+        notes.append(f"NEB not converged in {steps} steps")
+    wall = time.time() - t0
+    log(f"{path.name} {ion} from {np.round(site, 4).tolist()} along "
+        f"{along.astype(int).tolist()} ({length:.2f} A): barrier {barrier:.3f} eV; "
+        f"{'converged' if conv else 'NOT converged'} after {opt.nsteps} steps; {wall:.0f} s")
+    return {
+        "file": path.name, "ion": ion,
+        "site_frac": " ".join(f"{x:.4f}" for x in site),
+        "along": " ".join(str(int(x)) for x in along),
+        "hop_length_a": fmt(length, 3), "supercell": "x".join(map(str, od.mult)),
+        "atoms": len(start), "images": n_images, "barrier_ev": fmt(barrier),
+        "end_moved_a": fmt(moved, 3), "max_force_ev_a": fmt(float(neb.get_residual()), 3),
+        "converged": "yes" if conv else "no", "neb_steps": opt.nsteps,
+        "profile_ev": " ".join(f"{e - low:.3f}" for e in energies),
+        "model": model_name(), "ase_version": pkg_version("ase"),
+        "date": datetime.date.today().isoformat(), "wall_s": f"{wall:.0f}",
+        "notes": "; ".join(notes),
+    }
+
+
+def cmd_direction(args):
+    path = Path(args.file)
+    site = _vector(args.site, "--site")
+    out = Path(args.out)
+    rows = read_table(out)
+    for text in args.along:
+        row = run_direction(path, args.ion, site, _vector(text, "--along"), args.images,
+                            args.min_image, steps=args.steps)
+        key = (row["file"], row["ion"], row["site_frac"], row["along"])
+        rows = [r for r in rows
+                if (r["file"], r["ion"], r["site_frac"], r["along"]) != key] + [row]
+        write_table(out, rows, DIRECTION_COLUMNS)
+    return 0
 
 
 def no_barrier(r):
@@ -1647,6 +1769,19 @@ def main(argv=None):
                        "(no model; seconds)")
     p.add_argument("--hopmap")
     p.set_defaults(fn=cmd_self_test)
+
+    p = sub.add_parser("direction", help="one interstitial ion from a site to its image along "
+                       "lattice vectors: which direction is easy")
+    p.add_argument("file")
+    p.add_argument("--ion", required=True)
+    p.add_argument("--site", required=True, help="fractional coordinates x,y,z (file's cell)")
+    p.add_argument("--along", action="append", required=True,
+                   help="lattice vector u,v,w (whole numbers; repeat for several)")
+    p.add_argument("--images", type=int, default=7, help="interior NEB images (default 7)")
+    p.add_argument("--steps", type=int, default=NEB_STEPS, help="NEB step cap")
+    p.add_argument("--out", default=str(DEFAULT_DIRECTIONS))
+    p.add_argument("--min-image", type=float, default=MIN_IMAGE_A)
+    p.set_defaults(fn=cmd_direction)
 
     p = sub.add_parser("ci", help=f"fast check: {CI_FILE} {CI_ION} NEB against results.csv")
     p.add_argument("--results", default=str(DEFAULT_RESULTS))

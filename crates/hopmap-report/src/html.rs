@@ -36,7 +36,7 @@ p.meta, p.note, figcaption, .small { color: var(--muted); font-size: 0.9em; }
 code, .mono { font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: 0.92em; }
 nav { font-size: 0.9em; margin: 8px 0 0 0; }
 nav a { margin-right: 12px; color: var(--accent); text-decoration: none; white-space: nowrap; }
-table { border-collapse: collapse; margin: 8px 0 14px 0; font-size: 0.92em; }
+table { border-collapse: collapse; margin: 8px 0 14px 0; font-size: 0.92em; display: block; max-width: 100%; overflow-x: auto; }
 th, td { border: 1px solid var(--line); padding: 3px 8px; text-align: left; vertical-align: top; }
 th { background: var(--band); font-weight: 600; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }

@@ -14,7 +14,9 @@
 //! leave-one-family-out error includes the choice of the setting. Format (any subset):
 //! `HOPMAP_SWEEP="screening_factor=0.75,1.0;d0_length_exponent=0,2;charge_shell_exponent=0;mobile_charge_scale=0"`.
 //! Besides the model's knobs, `saturation=a` adds a valence-saturation term
-//! `a N_A D0 (dV / V_A)^2` to the Morse part (a candidate rule, rejected in docs/model.md).
+//! `a N_A D0 (dV / V_A)^2` to the Morse part, and `relax_stiffness=kappa` lets every anion
+//! give way along its bond on a spring of stiffness `kappa D0` (candidate rules, rejected in
+//! docs/model.md).
 //! `HOPMAP_SWEEP_SPACING` (A, default 0.2) sets the grid of the sweep; the default-knob table uses
 //! the analysis grid (`analysis::default_spacing_a`, what a user's run gets).
 //!
@@ -158,7 +160,7 @@ impl Setting {
                 "mobile_excluded_nearest" => k.mobile_excluded_nearest = *v as usize,
                 "vacancy_share_threshold" => k.vacancy_share_threshold = *v,
                 "softness_transfer" => k.softness_transfer = *v != 0.0,
-                "saturation" => {}
+                "saturation" | "relax_stiffness" => {}
                 other => panic!("HOPMAP_SWEEP: unknown knob '{other}'"),
             }
         }
@@ -232,6 +234,98 @@ fn saturated_morse(s: &Structure, o: &AnalysisOptions, a: f64) -> Grid {
     g
 }
 
+/// The Morse pair energy per unit depth with the anion free to move along the bond on a
+/// harmonic spring of stiffness `kappa D0` (1/A^2 times the depth): `min_d [m(R + d) + kappa
+/// d^2 / 2]`, minus the rigid `m(R)`, with `m = x^2 - 2x`, `x = exp((Rmin - R) / b)`. Tabulated
+/// every 0.002 A up to `cutoff`.
+fn relaxation_table(rmin: f64, b: f64, kappa: f64, cutoff: f64) -> Vec<f64> {
+    let m = |r: f64| {
+        let x = ((rmin - r) / b).exp();
+        x * x - 2.0 * x
+    };
+    let n = (cutoff / 0.002).ceil() as usize + 2;
+    (0..n)
+        .map(|i| {
+            let r = i as f64 * 0.002;
+            // coarse scan of the displacement, then a finer one around the best
+            let f = |d: f64| m(r + d) + 0.5 * kappa * d * d;
+            let mut best = (0.0, f(0.0));
+            for j in -100..=300 {
+                let d = j as f64 * 0.01;
+                let v = f(d);
+                if v < best.1 {
+                    best = (d, v);
+                }
+            }
+            let c = best.0;
+            for j in -100..=100 {
+                let d = c + j as f64 * 0.0001;
+                let v = f(d);
+                if v < best.1 {
+                    best = (d, v);
+                }
+            }
+            best.1 - m(r)
+        })
+        .collect()
+}
+
+/// Adds the relaxation of the anions (see [`relaxation_table`]) to a Morse part per unit
+/// `d0_ev`.
+fn add_relaxation(g: &mut Grid, s: &Structure, o: &AnalysisOptions, kappa: f64) {
+    use hopmap::landscape::FrameworkKind;
+    let mut knobs = o.knobs.clone();
+    knobs.d0_ev = 1.0;
+    let (model, _) = hopmap::bv::model::build_model(s, o.ion, &o.table, &knobs, &o.exclude_labels)
+        .expect("model");
+    let anions: Vec<(hopmap::lattice::Frac, usize, f64)> = model
+        .atoms
+        .iter()
+        .filter_map(|a| match a.kind {
+            FrameworkKind::Anion(k) => Some((a.frac, k, a.occupancy)),
+            FrameworkKind::Cation(_) => None,
+        })
+        .collect();
+    let cut = model.anions.iter().map(|k| k.cutoff).fold(0.0, f64::max);
+    let fracs: Vec<_> = anions.iter().map(|a| a.0).collect();
+    let search = hopmap::neighbours::NeighbourSearch::new(&model.lattice, &fracs, cut);
+    let tables: Vec<Vec<f64>> = model
+        .anions
+        .iter()
+        .map(|k| relaxation_table(k.rmin, k.b, kappa, k.cutoff))
+        .collect();
+    let dims = g.dims;
+    let delta: Vec<f32> = (0..g.values.len())
+        .into_par_iter()
+        .map(|idx| {
+            let k3 = idx % dims[2];
+            let j = (idx / dims[2]) % dims[1];
+            let i = idx / (dims[1] * dims[2]);
+            let p = hopmap::lattice::Frac::new(
+                i as f64 / dims[0] as f64,
+                j as f64 / dims[1] as f64,
+                k3 as f64 / dims[2] as f64,
+            );
+            let mut sum = 0.0;
+            search.for_each_within(p, cut, |nb| {
+                let (_, kind, occ) = anions[nb.index];
+                let ak = &model.anions[kind];
+                if nb.distance < ak.cutoff {
+                    let t = &tables[kind];
+                    let x = nb.distance / 0.002;
+                    let i0 = (x.floor() as usize).min(t.len() - 2);
+                    let w = x - i0 as f64;
+                    sum += occ * ak.d0 * (t[i0] * (1.0 - w) + t[i0 + 1] * w);
+                }
+            });
+            sum as f32
+        })
+        .collect();
+    for (v, d) in g.values.iter_mut().zip(delta) {
+        *v += d;
+    }
+}
+
 fn tabulate(
     s: &Structure,
     row: &ReferenceRow,
@@ -252,15 +346,18 @@ fn tabulate(
                 o.knobs.d0_length_exponent,
                 o.knobs.softness_transfer,
                 o.knobs.d0_chalcogenide_factor,
-                set.get("saturation")
+                (set.get("saturation"), set.get("relax_stiffness"))
             );
             let morse = match morse_cache.iter().find(|(k, _)| *k == mkey) {
                 Some((_, g)) => g.clone(),
                 None => {
-                    let g = match set.get("saturation") {
+                    let mut g = match set.get("saturation") {
                         Some(a) if a > 0.0 => saturated_morse(s, &o, a),
                         _ => morse_part(s, &o).expect("morse part"),
                     };
+                    if let Some(kappa) = set.get("relax_stiffness").filter(|k| *k > 0.0) {
+                        add_relaxation(&mut g, s, &o, kappa);
+                    }
                     morse_cache.push((mkey, g.clone()));
                     g
                 }
