@@ -1528,14 +1528,28 @@ def no_barrier(r):
     return NO_TOP_NOTE in r.get("notes", "") and r.get("hop_kind") != "channel repeat"
 
 
+OTHER_WELL_EV = 0.1  # relaxed ends this far apart, after an end ion slid: two different wells
+
+
+def other_well(r):
+    """An end ion slid in relaxation (the site hopmap names is not a minimum under the
+    potential) and the relaxed ends lie in two wells more than OTHER_WELL_EV apart: the band
+    starts or ends somewhere else, so it is not the hop hopmap gives a barrier for."""
+    try:
+        d = abs(float(r.get("end_minus_start_ev") or "nan"))
+    except ValueError:
+        return False
+    return " slid " in (r.get("notes") or "") and d > OTHER_WELL_EV
+
+
 def paired_rows(rows):
-    """Rows that enter the rank correlation: a converged NEB with a barrier (see `no_barrier`)
-    and hopmap's barrier of the same hop (`hopmap_hop_barrier_ev`, empty when the row is
-    stale). The evidence bench (crates/hopmap/benches/model_evidence.rs) pairs the same rows
-    the same way."""
+    """Rows that enter the rank correlation: a converged NEB with a barrier (see `no_barrier`),
+    whose ends are the hop hopmap names (see `other_well`), and hopmap's barrier of the same
+    hop (`hopmap_hop_barrier_ev`, empty when the row is stale). The evidence bench
+    (crates/hopmap/benches/model_evidence.rs) pairs the same rows the same way."""
     return [r for r in rows
             if r.get("barrier_ev") and r.get("hopmap_hop_barrier_ev") and r["converged"] == "yes"
-            and not no_barrier(r)]
+            and not no_barrier(r) and not other_well(r)]
 
 
 def cmd_summary(args):
@@ -1671,6 +1685,15 @@ def cmd_self_test(args):
     check("spearman: one swap in four is 0.8", abs(spearman([1, 2, 3, 4], [1, 3, 2, 4]) - 0.8)
           < 1e-12)
     check("spearman: reversed order is -1", abs(spearman([1, 2, 3], [3, 2, 1]) + 1) < 1e-12)
+    # the pairing rule on made-up rows: a slid end into a well 0.7 eV away is another hop; two
+    # slid ends at one energy (equivalent positions) and an unslid asymmetric band are kept
+    slid = "start ion slid 1.87 A in relaxation (the minimum is not stable under the potential)"
+    check("pairing: slid end, ends 0.70 eV apart, left out",
+          other_well({"notes": slid, "end_minus_start_ev": "0.6985"}))
+    check("pairing: slid ends at one energy kept",
+          not other_well({"notes": slid, "end_minus_start_ev": "0.0031"}))
+    check("pairing: asymmetric band without a slide kept",
+          not other_well({"notes": "", "end_minus_start_ev": "0.6985"}))
     passed = sum(results)
     print(f"{passed} passed, {len(results) - passed} failed")
     return 0 if passed == len(results) else 1

@@ -38,6 +38,8 @@ use std::path::{Path, PathBuf};
 
 /// Penalty (eV) for a row whose network does not open below the cap.
 const MISSING_EV: f64 = 1.0;
+/// Relaxed ends this far apart in energy (eV), after an end ion slid, are different wells.
+const OTHER_WELL_EV: f64 = 0.1;
 /// Lowest point of a network counted as an occupied site when within this of the occupied level.
 const SITE_TOLERANCE_EV: f32 = 0.02;
 
@@ -57,9 +59,10 @@ struct OracleRow {
 
 /// The oracle's rows, (file, ion) -> row, paired as `mlip_oracle.py summary` pairs them: a
 /// converged NEB (`converged` = yes) whose band has a top (no "highest energy at an end point"
-/// in `notes`, except over a whole channel repeat, where that is a flat channel) and hopmap's
-/// barrier of the same hop (`hopmap_hop_barrier_ev`, empty for a stale row). Other rows are
-/// left out.
+/// in `notes`, except over a whole channel repeat, where that is a flat channel), whose ends
+/// are not in two different wells after an end ion slid (notes "slid", ends more than
+/// [`OTHER_WELL_EV`] apart), and hopmap's barrier of the same hop (`hopmap_hop_barrier_ev`,
+/// empty for a stale row). Other rows are left out.
 fn oracle_barriers() -> BTreeMap<(String, String), OracleRow> {
     let path =
         Path::new(concat!(env!("CARGO_MANIFEST_DIR"), "/../..")).join("tools/oracle/results.csv");
@@ -86,15 +89,21 @@ fn oracle_barriers() -> BTreeMap<(String, String), OracleRow> {
     ) else {
         return out;
     };
+    let c_ends = col("end_minus_start_ev");
     for rec in r.records().flatten() {
         let no_top = rec
             .get(cn)
             .is_some_and(|n| n.contains("highest energy at an end point"))
             && rec.get(ck) != Some("channel repeat");
-        if no_top {
+        let num = |c: usize| rec.get(c).and_then(|x| x.parse::<f64>().ok());
+        // an end ion that slid into another well: the band is not the hop hopmap names
+        let other_well = rec.get(cn).is_some_and(|n| n.contains(" slid "))
+            && c_ends
+                .and_then(num)
+                .is_some_and(|d| d.abs() > OTHER_WELL_EV);
+        if no_top || other_well {
             continue;
         }
-        let num = |c: usize| rec.get(c).and_then(|x| x.parse::<f64>().ok());
         if let (Some(f), Some(i), Some(b), Some(hb), Some("yes")) =
             (rec.get(cf), rec.get(ci), num(cb), num(ch), rec.get(cc))
         {
