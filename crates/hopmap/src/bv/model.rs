@@ -42,6 +42,9 @@
 //! - `coulomb_cutoff_a = None`: `max(8 A, 4 x largest rho)`; `erfc(4) = 1.5e-8`, so the
 //!   screened repulsion is negligible beyond it.
 //! - `energy_cap_ev = 10`, `mismatch_cap = 10` v.u.
+//! - `d0_chalcogenide_factor = 1`: S, Se and Te pairs get the same depth rule as the others (a
+//!   factor above 1 lowers the error but moves the lowest site into empty pockets in more than
+//!   10% of hosts; table in `docs/model.md`).
 //! - `probe_valence`, `probe_coordination` = `None`: the mobile-ion table's values.
 //!
 //! Cation coordination numbers are counted from the full structure: counter-ions bonded with at
