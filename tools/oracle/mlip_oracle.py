@@ -866,11 +866,38 @@ def run_neb(path: Path, ion: str, binary=None, n_images=5, min_image=MIN_IMAGE_A
     return res
 
 
+def climb(start, end, e0, e1, n_images, fmax, steps, ion_points=None):
+    """Climbing-image NEB (improved tangent, FIRE) between two relaxed end points that carry
+    the moving ion last. Interior images interpolate every atom linearly between the ends;
+    `ion_points` (one position per interior image) puts the moving ion on a given path instead.
+    One calculator per image (they share the model): a shared calculator recomputes every image
+    several times per step. Returns (images, energies, converged, residual force, steps)."""
+    from ase.mep import NEB
+    from ase.optimize import FIRE
+
+    e0, e1 = float(start.get_potential_energy()), float(end.get_potential_energy())
+    images = [start]
+    for k in range(1, n_images + 1):
+        im = start.copy()
+        f = k / (n_images + 1) if ion_points is None else ion_points[k - 1][0]
+        im.positions = (1 - f) * start.positions + f * end.positions
+        if ion_points is not None:
+            im.positions[-1] = ion_points[k - 1][1]
+        im.calc = _new_calculator(False)
+        images.append(im)
+    images.append(end)
+    for im in (start, end):
+        im.calc = _new_calculator(False)
+    neb = NEB(images, climb=True, method="improvedtangent")
+    opt = FIRE(neb, logfile=None)
+    conv = bool(opt.run(fmax=fmax, steps=steps))
+    energies = [e0] + [float(im.get_potential_energy()) for im in images[1:-1]] + [e1]
+    return images, energies, conv, float(neb.get_residual()), opt.nsteps
+
+
 def _run_band(path, struct, ion, ps: Pass, vacancy, n_images, min_image, fmax, steps, log,
               t0) -> NebResult:
     from ase import Atoms
-    from ase.mep import NEB
-    from ase.optimize import FIRE
 
     mode = "vacancy" if vacancy else "interstitial"
     log(f"{path.name} {ion}: {mode} mode; {ps.kind} ({ps.why}): {ps.description}")
@@ -923,25 +950,10 @@ def _run_band(path, struct, ion, ps: Pass, vacancy, n_images, min_image, fmax, s
     s = np.concatenate([[0.0], np.cumsum(seg)]) / max(seg.sum(), 1e-12)
     d0 = start.positions[-1] - pts[0]
     d1 = end.positions[-1] - pts[-1]
-    images = [start]
-    for k in range(1, n_images + 1):
-        im = start.copy()
-        im.positions = (1 - s[k]) * start.positions + s[k] * end.positions
-        im.positions[-1] = pts[k] + (1 - s[k]) * d0 + s[k] * d1
-        im.calc = _new_calculator(False)
-        images.append(im)
-    images.append(end)
-    # one calculator per image (they share the model): a shared calculator recomputes every
-    # image several times per step
-    for im in (start, end):
-        im.calc = _new_calculator(False)
-    neb = NEB(images, climb=True, method="improvedtangent")
-    opt = FIRE(neb, logfile=None)
-    conv = bool(opt.run(fmax=fmax, steps=steps))
-    fres = float(neb.get_residual())
+    on_path = [(s[k], pts[k] + (1 - s[k]) * d0 + s[k] * d1) for k in range(1, n_images + 1)]
+    images, energies, conv, fres, nsteps = climb(start, end, e0, e1, n_images, fmax, steps, on_path)
     log(f"  NEB: {STATS['calls']} evaluations, {STATS['seconds']:.0f} s in the model, "
         f"{time.time() - t0:.0f} s so far")
-    energies = [e0] + [float(im.get_potential_energy()) for im in images[1:-1]] + [e1]
     barrier = max(energies) - min(e0, e1)
     dist = [0.0]
     for a, b in zip(images[:-1], images[1:]):
@@ -957,12 +969,12 @@ def _run_band(path, struct, ion, ps: Pass, vacancy, n_images, min_image, fmax, s
                          "resolution")
     wall = time.time() - t0
     log(f"  barrier {barrier:.3f} eV from the lower end; max force {fres:.3f} eV/A; "
-        f"{'converged' if conv else 'NOT converged'} after {opt.nsteps} steps; {wall:.0f} s")
+        f"{'converged' if conv else 'NOT converged'} after {nsteps} steps; {wall:.0f} s")
     return NebResult(
         file=path.name, ion=ion, mode=mode, pass_desc=f"{ps.description} [{ps.why}]",
         supercell="x".join(map(str, od.mult)), atoms=len(start), images=n_images,
         barrier_ev=barrier, start_energy_ev=e0, end_energy_ev=e1, max_force_ev_a=fres,
-        converged=conv, neb_steps=opt.nsteps, hopmap_barrier_ev=ps.hopmap_barrier_ev,
+        converged=conv, neb_steps=nsteps, hopmap_barrier_ev=ps.hopmap_barrier_ev,
         hopmap_pass_barrier_ev=ps.hopmap_pass_barrier_ev, hopmap_dimension=ps.dimension,
         ordering=od.note, wall_s=wall, notes=notes, profile=prof, hop_kind=ps.kind,
         hop_length_a=ps.length_a, hopmap_hop_barrier_ev=ps.hop_barrier_ev)
@@ -1431,8 +1443,6 @@ def run_direction(path: Path, ion: str, site, along, n_images=7, min_image=MIN_I
     framework free to relax. The straight line is the initial band; the climbing image finds
     the saddle. Returns one row of directions.csv."""
     from ase import Atoms
-    from ase.mep import NEB
-    from ase.optimize import FIRE
 
     t0 = time.time()
     struct = load_structure(path)
@@ -1467,20 +1477,10 @@ def run_direction(path: Path, ion: str, site, along, n_images=7, min_image=MIN_I
     if moved > 0.7:
         notes.append(f"an end ion slid {moved:.2f} A in relaxation: the site is not a "
                      "minimum under the potential")
-    images = [start]
-    for k in range(1, n_images + 1):
-        im = start.copy()
-        f = k / (n_images + 1)
-        im.positions = (1 - f) * start.positions + f * end.positions
-        im.calc = _new_calculator(False)
-        images.append(im)
-    images.append(end)
-    for im in (start, end):
-        im.calc = _new_calculator(False)
-    neb = NEB(images, climb=True, method="improvedtangent")
-    opt = FIRE(neb, logfile=None)
-    conv = bool(opt.run(fmax=fmax, steps=steps))
-    energies = [e0] + [float(im.get_potential_energy()) for im in images[1:-1]] + [e1]
+    log(f"  {len(start)} atoms ({'x'.join(map(str, od.mult))}); end points relaxed: "
+        f"{e0:.4f} / {e1:.4f} eV, {time.time() - t0:.0f} s so far; NEB along "
+        f"{along.astype(int).tolist()} ...")
+    _, energies, conv, fres, nsteps = climb(start, end, e0, e1, n_images, fmax, steps)
     low = min(e0, e1)
     barrier = max(energies) - low
     if int(np.argmax(energies)) in (0, len(energies) - 1):
@@ -1490,15 +1490,15 @@ def run_direction(path: Path, ion: str, site, along, n_images=7, min_image=MIN_I
     wall = time.time() - t0
     log(f"{path.name} {ion} from {np.round(site, 4).tolist()} along "
         f"{along.astype(int).tolist()} ({length:.2f} A): barrier {barrier:.3f} eV; "
-        f"{'converged' if conv else 'NOT converged'} after {opt.nsteps} steps; {wall:.0f} s")
+        f"{'converged' if conv else 'NOT converged'} after {nsteps} steps; {wall:.0f} s")
     return {
         "file": path.name, "ion": ion,
         "site_frac": " ".join(f"{x:.4f}" for x in site),
         "along": " ".join(str(int(x)) for x in along),
         "hop_length_a": fmt(length, 3), "supercell": "x".join(map(str, od.mult)),
         "atoms": len(start), "images": n_images, "barrier_ev": fmt(barrier),
-        "end_moved_a": fmt(moved, 3), "max_force_ev_a": fmt(float(neb.get_residual()), 3),
-        "converged": "yes" if conv else "no", "neb_steps": opt.nsteps,
+        "end_moved_a": fmt(moved, 3), "max_force_ev_a": fmt(fres, 3),
+        "converged": "yes" if conv else "no", "neb_steps": nsteps,
         "profile_ev": " ".join(f"{e - low:.3f}" for e in energies),
         "model": model_name(), "ase_version": pkg_version("ase"),
         "date": datetime.date.today().isoformat(), "wall_s": f"{wall:.0f}",

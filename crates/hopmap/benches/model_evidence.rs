@@ -216,9 +216,9 @@ fn d0_values() -> Vec<f64> {
 }
 
 /// Results of every setting and every `d0_ev` for one row: `[setting][d0]`.
-/// Morse part per unit `d0_ev` plus a valence-saturation term `a N_A D0 (dV / V_A)^2`, with
-/// `dV` the bond valence mismatch of the probe and `D0` the deepest pair's depth per unit `d0_ev`.
-fn saturated_morse(s: &Structure, o: &AnalysisOptions, a: f64) -> Grid {
+/// The model of `o` per unit `d0_ev`, uncapped, with the anions alone (the Morse part's model,
+/// as `calibrate::morse_part` builds it), for the bench-only candidate rules below.
+fn anion_model(s: &Structure, o: &AnalysisOptions) -> hopmap::landscape::LandscapeModel {
     let mut knobs = o.knobs.clone();
     knobs.d0_ev = 1.0;
     knobs.energy_cap_ev = 1e30;
@@ -229,6 +229,13 @@ fn saturated_morse(s: &Structure, o: &AnalysisOptions, a: f64) -> Grid {
         .atoms
         .retain(|x| matches!(x.kind, hopmap::landscape::FrameworkKind::Anion(_)));
     model.mobile = None;
+    model
+}
+
+/// Morse part per unit `d0_ev` plus a valence-saturation term `a N_A D0 (dV / V_A)^2`, with
+/// `dV` the bond valence mismatch of the probe and `D0` the deepest pair's depth per unit `d0_ev`.
+fn saturated_morse(s: &Structure, o: &AnalysisOptions, a: f64) -> Grid {
+    let model = anion_model(s, o);
     let dims = hopmap::calibrate::dims_for(s, o);
     let l = hopmap::landscape::compute(&model, dims, &hopmap::landscape::Progress::Silent)
         .expect("landscape");
@@ -283,10 +290,7 @@ fn relaxation_table(rmin: f64, b: f64, kappa: f64, cutoff: f64) -> Vec<f64> {
 /// `d0_ev`.
 fn add_relaxation(g: &mut Grid, s: &Structure, o: &AnalysisOptions, kappa: f64) {
     use hopmap::landscape::FrameworkKind;
-    let mut knobs = o.knobs.clone();
-    knobs.d0_ev = 1.0;
-    let (model, _) = hopmap::bv::model::build_model(s, o.ion, &o.table, &knobs, &o.exclude_labels)
-        .expect("model");
+    let model = anion_model(s, o);
     let anions: Vec<(hopmap::lattice::Frac, usize, f64)> = model
         .atoms
         .iter()
