@@ -711,21 +711,6 @@ impl<'a> Sweep<'a> {
         let _ = x;
     }
 
-    /// Prefetches the entries of grid point `y` and of its neighbours along b and a (`row`
-    /// and `plane` points away; those along c share its cache line or the next).
-    #[inline]
-    fn prefetch_around(&self, y: usize, row: usize, plane: usize) {
-        for z in [
-            y,
-            y.wrapping_sub(row),
-            y + row,
-            y.wrapping_sub(plane),
-            y + plane,
-        ] {
-            self.prefetch(z);
-        }
-    }
-
     #[inline]
     pub(crate) fn is_added(&self, x: usize) -> bool {
         self.nodes[x].parent != NONE
@@ -1015,9 +1000,6 @@ pub fn percolate(grid: &Grid, ceiling: f32) -> Percolation {
 /// As [`percolate`], and also records [`LevelStats`] (open and percolating fractions, dimension)
 /// at each of `levels` (any order; reported sorted), in the same sweep.
 pub fn percolate_levels(grid: &Grid, ceiling: f32, levels: &[f32]) -> Percolation {
-    if grid.len() >= BUCKETED_MIN_POINTS {
-        return sweep_bucketed(grid, ceiling, levels, &[], BUCKET_VOXELS).finish_with(ceiling);
-    }
     let order = visit_order(&grid.values, ceiling);
     percolate_in_order(grid, ceiling, &order, levels)
 }
@@ -1033,43 +1015,13 @@ pub fn percolate_in_order(grid: &Grid, ceiling: f32, order: &[u64], levels: &[f3
 /// region holds any (from the region's lowest point otherwise): the ion starts from where it
 /// sits, not from a deeper empty pocket of the landscape.
 pub fn percolate_marked(grid: &Grid, ceiling: f32, marks: &[usize]) -> Percolation {
-    if grid.len() >= BUCKETED_MIN_POINTS {
-        return sweep_bucketed(grid, ceiling, &[], marks, BUCKET_VOXELS).finish_with(ceiling);
-    }
     let order = visit_order(&grid.values, ceiling);
     sweep_grid(grid, ceiling, &order, &[], marks).finish_with(ceiling)
-}
-
-/// As [`percolate_levels`] with marked points (see [`percolate_marked`]), swept by buckets of
-/// about `bucket_voxels` open voxels each, visited in grid index order where that provably
-/// gives the exact result and in exact order otherwise (see `sweep_bucketed` in the source).
-/// Also returns how many buckets were kept in index order, and how many there were.
-/// The result is the same as the exact sweep's, field by field; [`percolate_levels`] and
-/// [`percolate_marked`] choose this sweep for grids of 2^21 points or more, where it is faster.
-pub fn percolate_bucketed(
-    grid: &Grid,
-    ceiling: f32,
-    levels: &[f32],
-    marks: &[usize],
-    bucket_voxels: usize,
-) -> (Percolation, [usize; 2]) {
-    let s = sweep_bucketed(grid, ceiling, levels, marks, bucket_voxels);
-    let kept = s.kept;
-    (s.finish_with(ceiling), kept)
-}
-
-/// As [`percolate_bucketed`], in exact `(value, index)` order for any size of grid: the
-/// reference the bucketed sweep is tested and measured against.
-pub fn percolate_exact(grid: &Grid, ceiling: f32, levels: &[f32], marks: &[usize]) -> Percolation {
-    let order = visit_order(&grid.values, ceiling);
-    sweep_grid(grid, ceiling, &order, levels, marks).finish_with(ceiling)
 }
 
 struct GridSweep<'a> {
     sweep: Sweep<'a>,
     levels: Vec<LevelStats>,
-    /// Buckets kept in index order, and all buckets (bucketed sweep only).
-    kept: [usize; 2],
 }
 
 impl GridSweep<'_> {
@@ -1087,51 +1039,32 @@ fn sweep_grid<'a>(
 ) -> GridSweep<'a> {
     let mut sweep = Sweep::new(&grid.values, &grid.lattice);
     sweep.set_marks(marks);
-    let lv = sorted_levels(levels);
-    let mut stats = Vec::with_capacity(lv.len());
-    let mut li = 0;
-    sweep_exact(&mut sweep, grid, order, &lv, &mut li, &mut stats);
-    while li < lv.len() {
-        stats.push(sweep.level_stats(lv[li]));
-        li += 1;
-    }
-    GridSweep {
-        sweep,
-        levels: stats,
-        kept: [0, 0],
-    }
-}
-
-fn sorted_levels(levels: &[f32]) -> Vec<f32> {
     let mut lv: Vec<f32> = levels.iter().copied().filter(|l| !l.is_nan()).collect();
     lv.sort_by(|a, b| a.total_cmp(b));
-    lv
-}
-
-/// Visits the voxels of `order` (increasing `(value, index)` keys; a run of equal values never
-/// continues past its end) one by one: adds each, joins it to its added face neighbours, closes
-/// each run of equal values and records the statistics of the levels `lv[*li..]` passed.
-#[inline]
-fn sweep_exact(
-    sweep: &mut Sweep<'_>,
-    grid: &Grid,
-    order: &[u64],
-    lv: &[f32],
-    li: &mut usize,
-    stats: &mut Vec<LevelStats>,
-) {
+    let mut stats = Vec::with_capacity(lv.len());
+    let mut li = 0;
+    const AHEAD: usize = 12;
     let plane = grid.dims[1] * grid.dims[2];
     for (pos, &key) in order.iter().enumerate() {
         let x = key_index(key);
         let e = key_value(key);
-        if let Some(&later) = order.get(pos + PREFETCH_AHEAD) {
+        if let Some(&later) = order.get(pos + AHEAD) {
             // the union-find entries of a voxel's neighbours are scattered over the grid:
             // ask for them well before they are needed
-            sweep.prefetch_around(key_index(later), grid.dims[2], plane);
+            let y = key_index(later);
+            for z in [
+                y,
+                y.wrapping_sub(grid.dims[2]),
+                y + grid.dims[2],
+                y.wrapping_sub(plane),
+                y + plane,
+            ] {
+                sweep.prefetch(z);
+            }
         }
-        while *li < lv.len() && lv[*li] < e {
-            stats.push(sweep.level_stats(lv[*li]));
-            *li += 1;
+        while li < lv.len() && lv[li] < e {
+            stats.push(sweep.level_stats(lv[li]));
+            li += 1;
         }
         sweep.add(x, e);
         for (v, t) in face_neighbours(grid.dims, grid.ijk(x)) {
@@ -1143,102 +1076,6 @@ fn sweep_exact(
             sweep.end_group(e);
         }
     }
-}
-
-// ------------------------------------------------------------------------------------------
-// The bucketed sweep of large grids
-// ------------------------------------------------------------------------------------------
-
-/// Visits between the prefetch of a voxel's union-find entries and their use.
-const PREFETCH_AHEAD: usize = 12;
-
-/// Grids with at least this many points are swept by buckets ([`sweep_bucketed`]): below it
-/// the union-find (16 B per point) stays within the processor's caches and the exact order
-/// costs nothing extra.
-const BUCKETED_MIN_POINTS: usize = 1 << 21;
-
-/// Open voxels per bucket of the bucketed sweep (at least; a bucket never splits a bin of
-/// values). Measured on olivine 3x3x3 (see docs/performance.md): buckets of 2^17 voxels gain
-/// little, 2^19 and more gain most of what visiting the whole grid in index order gains.
-const BUCKET_VOXELS: usize = 1 << 19;
-
-/// Bits of the order-preserving value key ([`f32_key`]) that make a bin: 20 bits keep 11 of
-/// the 23 mantissa bits (bins 1/2048 of the value wide).
-const BIN_SHIFT: u32 = 12;
-
-/// Why a bucket visited in index order must be visited again in exact order.
-struct NotQuiet;
-
-/// The sweep of [`sweep_grid`] with the same result, for large grids whose union-find is far
-/// larger than the caches.
-///
-/// The open voxels are split into buckets of consecutive values (whole bins of the value
-/// key, about `bucket_voxels` voxels each; equal values always share a bucket), laid out by a
-/// counting sort in (bucket, grid index) order. A bucket is first visited in grid index order,
-/// whose union-find records lie close together in memory, while every write is logged. The
-/// connectivity at the end of a bucket does not depend on the order inside it; what does is
-/// the events: a region reaching a higher dimension (openings, thresholds, read at the end of
-/// a run of equal values) and the statistics of a level inside the bucket. A bucket is kept
-/// when it is *quiet*, which the index-order visit proves without knowing the exact order:
-///
-/// 1. the joins among the bucket's new voxels and the regions without winding (rank 0) close
-///    no loop of nonzero winding. Then no region made only of these winds, in any order (the
-///    winding of a loop is a property of the loop, and every loop of this subgraph is a sum of
-///    the loops its joins closed);
-/// 2. the remaining joins (to regions that wind) never merge two winding regions, and the
-///    loops they close have windings already in the lattice of their region. Then every region
-///    that winds, in any order, holds one winding region of the bucket's start and has its
-///    lattice, so no rank changes.
-///
-/// In a quiet bucket no rank changes in the exact order either: no end of a run records
-/// anything, and the state at the end (partition, sizes, lowest points, winding lattices,
-/// `largest`, `lowest`, the counts per rank) is the exact order's. The image offsets are those
-/// of the same realisation: a region without winding has a single one, and a winding region's
-/// realisation is fixed by its records from before the bucket. Any other bucket, and one with
-/// a level strictly inside its range of values, is rolled back from the log and visited again
-/// in exact `(value, index)` order (a sort of the bucket alone).
-fn sweep_bucketed<'a>(
-    grid: &'a Grid,
-    ceiling: f32,
-    levels: &[f32],
-    marks: &[usize],
-    bucket_voxels: usize,
-) -> GridSweep<'a> {
-    let (items, bounds) = bucket_order(&grid.values, ceiling, bucket_voxels);
-    let mut items = items;
-    let mut sweep = Sweep::new(&grid.values, &grid.lattice);
-    sweep.set_marks(marks);
-    let lv = sorted_levels(levels);
-    let mut stats = Vec::with_capacity(lv.len());
-    let mut li = 0;
-    let mut log = UndoLog::default();
-    let mut scratch = QuietScratch::default();
-    let mut kept = 0;
-    for w in bounds.windows(2) {
-        let bucket = &mut items[w[0]..w[1]];
-        let (lo, hi) = bucket.iter().fold((u64::MAX, 0u64), |(lo, hi), &k| {
-            (lo.min(k >> 32), hi.max(k >> 32))
-        });
-        let (first, last) = (key_f32(lo as u32), key_f32(hi as u32));
-        while li < lv.len() && lv[li] < first {
-            stats.push(sweep.level_stats(lv[li]));
-            li += 1;
-        }
-        let level_inside = li < lv.len() && lv[li] < last;
-        if !level_inside {
-            log.clear();
-            let saved = sweep.scalars();
-            match sweep.visit_quiet(grid, bucket, &mut log, &mut scratch) {
-                Ok(()) => {
-                    kept += 1;
-                    continue;
-                }
-                Err(NotQuiet) => sweep.roll_back(&mut log, saved),
-            }
-        }
-        bucket.sort_unstable();
-        sweep_exact(&mut sweep, grid, bucket, &lv, &mut li, &mut stats);
-    }
     while li < lv.len() {
         stats.push(sweep.level_stats(lv[li]));
         li += 1;
@@ -1246,318 +1083,6 @@ fn sweep_bucketed<'a>(
     GridSweep {
         sweep,
         levels: stats,
-        kept: [kept, bounds.len().saturating_sub(1)],
-    }
-}
-
-/// The open voxels (value strictly below `ceiling`, NaN excluded) as visiting keys (see
-/// [`visit_order`]) in (bucket, grid index) order, and the bounds of the buckets in it
-/// (`bounds[b]..bounds[b + 1]`). Buckets are runs of whole bins of the value key (the top 20
-/// bits of [`f32_key`]), each closed once it holds `bucket_voxels` voxels or more, so every
-/// value of a bucket is below every value of the next and equal values share a bucket. Two
-/// passes over the grid (a histogram of the bins, then a counting sort).
-fn bucket_order(values: &[f32], ceiling: f32, bucket_voxels: usize) -> (Vec<u64>, Vec<usize>) {
-    let bins = 1usize << (32 - BIN_SHIFT);
-    let mut hist = vec![0u32; bins];
-    for &v in values {
-        if v < ceiling {
-            hist[(f32_key(v) >> BIN_SHIFT) as usize] += 1;
-        }
-    }
-    // bucket of each bin, and the start of each bucket
-    let mut bucket_of = vec![0u32; bins];
-    let mut bounds = vec![0usize];
-    let mut filled = 0usize;
-    let mut total = 0usize;
-    for (b, &c) in hist.iter().enumerate() {
-        if c == 0 {
-            continue;
-        }
-        if filled >= bucket_voxels.max(1) {
-            bounds.push(total);
-            filled = 0;
-        }
-        bucket_of[b] = (bounds.len() - 1) as u32;
-        filled += c as usize;
-        total += c as usize;
-    }
-    if total > 0 {
-        bounds.push(total);
-    }
-    let mut next: Vec<usize> = bounds[..bounds.len().saturating_sub(1)].to_vec();
-    let mut items = vec![0u64; total];
-    for (i, &v) in values.iter().enumerate() {
-        if v < ceiling {
-            let b = bucket_of[(f32_key(v) >> BIN_SHIFT) as usize] as usize;
-            items[next[b]] = total_key(v, i);
-            next[b] += 1;
-        }
-    }
-    (items, bounds)
-}
-
-/// Every write to the union-find of a bucket visited in index order, to undo it.
-#[derive(Default)]
-struct UndoLog {
-    /// Point and its record before the write, in the order written.
-    nodes: Vec<(u32, Node)>,
-    /// Winding lattices moved from one root to another: from, to, the lattice as it was.
-    moved: Vec<(u32, u32, Winding)>,
-}
-
-impl UndoLog {
-    fn clear(&mut self) {
-        self.nodes.clear();
-        self.moved.clear();
-    }
-}
-
-/// Working space of [`Sweep::visit_quiet`], kept from bucket to bucket.
-#[derive(Default)]
-struct QuietScratch {
-    /// One bit per point: a new voxel of the bucket that touches a region winding at the
-    /// bucket's start (its joins wait for step 2).
-    touches: Vec<u64>,
-    /// The points whose bit is set.
-    touching: Vec<u32>,
-    /// Joins waiting for step 2: to a winding region of the bucket's start, and the others.
-    to_winding: Vec<(u32, u32, [i32; 3])>,
-    others: Vec<(u32, u32, [i32; 3])>,
-}
-
-/// The counters of a [`Sweep`] that a bucket changes: `in_rank`, `added`, `largest`, `lowest`.
-#[derive(Clone, Copy)]
-struct Scalars([usize; 4], usize, usize, Option<f32>);
-
-impl Sweep<'_> {
-    fn scalars(&self) -> Scalars {
-        Scalars(self.in_rank, self.added, self.largest, self.lowest)
-    }
-
-    /// Undoes a bucket visited by [`Sweep::visit_quiet`].
-    fn roll_back(&mut self, log: &mut UndoLog, saved: Scalars) {
-        while let Some((from, to, w)) = log.moved.pop() {
-            self.windings.remove(&to);
-            self.windings.insert(from, w);
-        }
-        while let Some((x, node)) = log.nodes.pop() {
-            self.nodes[x as usize] = node;
-        }
-        let Scalars(in_rank, added, largest, lowest) = saved;
-        self.in_rank = in_rank;
-        self.added = added;
-        self.largest = largest;
-        self.lowest = lowest;
-    }
-
-    #[inline]
-    fn write_logged(&mut self, x: usize, node: Node, log: &mut UndoLog) {
-        log.nodes.push((x as u32, self.nodes[x]));
-        self.nodes[x] = node;
-    }
-
-    /// [`Sweep::find`] with every write logged.
-    #[inline]
-    fn find_logged(&mut self, mut x: usize, log: &mut UndoLog) -> (usize, [i32; 3]) {
-        let mut acc = [0i32; 3];
-        loop {
-            let p = self.nodes[x].parent as usize;
-            if p == x {
-                return (x, acc);
-            }
-            let g = self.nodes[p].parent as usize;
-            if g != p {
-                let (ox, op) = (self.off(x), self.off(p));
-                let node = Node {
-                    parent: g as u32,
-                    data: [0, 1, 2].map(|a| (ox[a] + op[a]) as u32),
-                };
-                self.write_logged(x, node, log);
-            }
-            let o = self.off(x);
-            acc[0] += o[0];
-            acc[1] += o[1];
-            acc[2] += o[2];
-            x = self.nodes[x].parent as usize;
-        }
-    }
-
-    /// Visits `bucket` (keys in grid index order) and proves it quiet (see
-    /// [`sweep_bucketed`]), logging every write; `Err` as soon as it is not (the caller
-    /// rolls back). `scratch` is left empty either way.
-    fn visit_quiet(
-        &mut self,
-        grid: &Grid,
-        bucket: &[u64],
-        log: &mut UndoLog,
-        scratch: &mut QuietScratch,
-    ) -> Result<(), NotQuiet> {
-        let result = self.visit_quiet_inner(grid, bucket, log, scratch);
-        for &x in &scratch.touching {
-            scratch.touches[x as usize / 64] &= !(1u64 << (x % 64));
-        }
-        scratch.touching.clear();
-        scratch.to_winding.clear();
-        scratch.others.clear();
-        result
-    }
-
-    fn visit_quiet_inner(
-        &mut self,
-        grid: &Grid,
-        bucket: &[u64],
-        log: &mut UndoLog,
-        scratch: &mut QuietScratch,
-    ) -> Result<(), NotQuiet> {
-        if scratch.touches.len() * 64 < self.nodes.len() {
-            scratch.touches = vec![0; self.nodes.len().div_ceil(64)];
-        }
-        // 1: the joins among the new voxels that touch no winding region and the regions
-        // without winding; the joins of a voxel that touches a winding region (one of the
-        // start's: no region winds anew here) wait for step 2
-        let mut nbrs = [(0u32, [0i32; 3], false); 6];
-        let plane = grid.dims[1] * grid.dims[2];
-        for (pos, &key) in bucket.iter().enumerate() {
-            if let Some(&later) = bucket.get(pos + PREFETCH_AHEAD) {
-                self.prefetch_around(key_index(later), grid.dims[2], plane);
-            }
-            let x = key_index(key);
-            let e = key_value(key);
-            log.nodes.push((x as u32, self.nodes[x]));
-            self.add(x, e);
-            let mut count = 0;
-            let mut touching = false;
-            for (v, t) in face_neighbours(grid.dims, grid.ijk(x)) {
-                if !self.is_added(v) {
-                    continue;
-                }
-                let deferred = scratch.touches[v / 64] >> (v % 64) & 1 == 1;
-                let winds = !deferred && {
-                    let (rv, _) = self.find_logged(v, log);
-                    self.rank(rv) > 0
-                };
-                touching |= winds;
-                nbrs[count] = (v as u32, t, deferred || winds);
-                count += 1;
-            }
-            if touching {
-                scratch.touches[x / 64] |= 1 << (x % 64);
-                scratch.touching.push(x as u32);
-            }
-            for &(v, t, later) in &nbrs[..count] {
-                if touching || later {
-                    let list = if touching && !later {
-                        &mut scratch.others
-                    } else if self.rank(self.root_of(v as usize)) > 0 {
-                        &mut scratch.to_winding
-                    } else {
-                        &mut scratch.others
-                    };
-                    list.push((x as u32, v, t));
-                    continue;
-                }
-                let (ru, ou) = self.find_logged(x, log);
-                let (rv, ov) = self.find_logged(v as usize, log);
-                let w = [
-                    ou[0] + t[0] - ov[0],
-                    ou[1] + t[1] - ov[1],
-                    ou[2] + t[2] - ov[2],
-                ];
-                if ru == rv {
-                    if w != [0, 0, 0] {
-                        return Err(NotQuiet);
-                    }
-                    continue;
-                }
-                self.merge_logged(ru, rv, w, log);
-            }
-        }
-        // 2: the joins to the winding regions, then the other joins of the voxels touching
-        // them (each now in a winding region)
-        let lists = [
-            std::mem::take(&mut scratch.to_winding),
-            std::mem::take(&mut scratch.others),
-        ];
-        let mut result = Ok(());
-        'lists: for list in &lists {
-            for (pos, &(u, v, t)) in list.iter().enumerate() {
-                if let Some(&(first, later, _)) = list.get(pos + PREFETCH_AHEAD) {
-                    self.prefetch(first as usize);
-                    self.prefetch(later as usize);
-                }
-                let (ru, ou) = self.find_logged(u as usize, log);
-                let (rv, ov) = self.find_logged(v as usize, log);
-                let w = [
-                    ou[0] + t[0] - ov[0],
-                    ou[1] + t[1] - ov[1],
-                    ou[2] + t[2] - ov[2],
-                ];
-                if ru == rv {
-                    let inside = w == [0, 0, 0]
-                        || self
-                            .windings
-                            .get(&(ru as u32))
-                            .is_some_and(|e| in_lattice(&e.rows, w.map(|c| c as i64)));
-                    if !inside {
-                        result = Err(NotQuiet);
-                        break 'lists;
-                    }
-                    continue;
-                }
-                if self.rank(ru) > 0 && self.rank(rv) > 0 {
-                    result = Err(NotQuiet);
-                    break 'lists;
-                }
-                self.merge_logged(ru, rv, w, log);
-            }
-        }
-        let [a, b] = lists;
-        scratch.to_winding = a;
-        scratch.others = b;
-        result
-    }
-
-    /// Merges the distinct roots `ru` and `rv` (at most one of which winds), where the image of
-    /// `rv` lies `w` cells from that of `ru`, as [`Sweep::join`] does, with every write
-    /// logged. The counts per rank move with the winding region, if any.
-    fn merge_logged(&mut self, ru: usize, rv: usize, w: [i32; 3], log: &mut UndoLog) {
-        let (big, small, x) = if self.size(ru) >= self.size(rv) {
-            (ru, rv, w)
-        } else {
-            (rv, ru, [-w[0], -w[1], -w[2]])
-        };
-        let (rank_big, rank_small) = (self.rank(big), self.rank(small));
-        let (size_big, size_small) = (self.size(big), self.size(small));
-        let lower = self.lower(big, small);
-        let [_, low, low_value] = self.nodes[lower].data;
-        self.write_logged(
-            small,
-            Node {
-                parent: big as u32,
-                data: x.map(|c| c as u32),
-            },
-            log,
-        );
-        let merged = Node {
-            parent: big as u32,
-            data: [(size_big + size_small) as u32, low, low_value],
-        };
-        self.write_logged(big, merged, log);
-        self.largest = self.largest.max(size_big + size_small);
-        let mut rank = rank_big;
-        if rank_small > 0 {
-            // as `join` does for a winding small root merged into a root without winding
-            let ws = self.windings.remove(&(small as u32)).unwrap_or_default();
-            let e = self.windings.entry(big as u32).or_default();
-            e.rows = hnf(ws.rows.clone());
-            e.announced = e.announced.max(ws.announced);
-            rank = e.rows.len();
-            log.moved.push((small as u32, big as u32, ws));
-        }
-        self.in_rank[rank_big] -= size_big;
-        self.in_rank[rank_small] -= size_small;
-        self.in_rank[rank] += size_big + size_small;
-        debug_assert_eq!(rank, rank_big.max(rank_small));
     }
 }
 
@@ -1652,155 +1177,6 @@ mod tests {
             assert_eq!(key_value(k), if v == 0.0 { 0.0 } else { v });
             assert_eq!(key_index(k), 5);
         }
-    }
-
-    /// Random landscapes, uniform or quantised to a few values (many ties), with or without
-    /// walls (planes of points at the ceiling), near the site-percolation threshold of the
-    /// simple cubic lattice (0.3116, Stauffer & Aharony, "Introduction to Percolation Theory",
-    /// table 2), where regions wind and merge at every level.
-    fn random_landscapes() -> Vec<(Grid, f32, Vec<usize>)> {
-        let lattice = Lattice::from_parameters(crate::lattice::CellParameters {
-            a: 5.0,
-            b: 6.0,
-            c: 7.0,
-            alpha: 80.0,
-            beta: 95.0,
-            gamma: 105.0,
-        })
-        .unwrap();
-        let mut state = 0x9e37_79b9_7f4a_7c15u64;
-        let mut next = move || {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            (state >> 11) as f64 / (1u64 << 53) as f64
-        };
-        let mut out = Vec::new();
-        for dims in [[6, 5, 4], [1, 7, 9], [12, 11, 10], [20, 3, 17]] {
-            for quantum in [None, Some(5.0), Some(40.0)] {
-                for walls in [false, true] {
-                    let mut g = Grid::new(lattice.clone(), dims, 0.0);
-                    for (idx, v) in g.values.iter_mut().enumerate() {
-                        let x = next();
-                        let [i, _, k] = [idx / (dims[1] * dims[2]), 0, idx % dims[2]];
-                        *v = if walls && (i == 0 || (k == 1 && dims[2] > 2)) {
-                            1.0
-                        } else {
-                            let x = match quantum {
-                                Some(q) => (x * q).floor() / q,
-                                None => x,
-                            };
-                            x as f32
-                        };
-                    }
-                    let marks: Vec<usize> = (0..g.len()).step_by(37).collect();
-                    for ceiling in [0.3, 0.45, 0.7, 1.0, f32::INFINITY] {
-                        out.push((g.clone(), ceiling, marks.clone()));
-                    }
-                }
-            }
-        }
-        out
-    }
-
-    #[test]
-    fn the_bucketed_sweep_gives_the_exact_sweeps_result_on_random_quantised_and_walled_grids() {
-        // oracle: the exact (value, index) sweep, field by field; levels every 0.05
-        let levels: Vec<f32> = (0..24).map(|i| i as f32 * 0.05).collect();
-        let (mut percolating, mut kept, mut replayed) = (0, 0, 0);
-        for (g, ceiling, marks) in random_landscapes() {
-            for lv in [&[][..], &levels[..]] {
-                let exact = percolate_exact(&g, ceiling, lv, &marks);
-                for bucket in [1, 5, 40, 300, usize::MAX] {
-                    let (b, [k, n]) = percolate_bucketed(&g, ceiling, lv, &marks, bucket);
-                    assert_percolations_equal(
-                        &exact,
-                        &b,
-                        &format!("{:?} {ceiling} {bucket}", g.dims),
-                    );
-                    if exact.dimension > 0 {
-                        kept += k;
-                        replayed += n - k;
-                    }
-                }
-                if exact.dimension > 0 {
-                    percolating += 1;
-                }
-            }
-        }
-        // both paths ran, on landscapes that percolate
-        assert!(percolating > 20, "too few percolating cases: {percolating}");
-        assert!(
-            kept > 1000 && replayed > 100,
-            "kept {kept}, replayed {replayed}"
-        );
-    }
-
-    #[test]
-    fn a_bucket_of_a_winding_grid_is_kept_in_index_order_only_when_quiet() {
-        // a smooth landscape, -cos 2 pi x on a 32 x 4 x 4 grid: the channels along b and c open
-        // at the bottom, and the buckets above the threshold of the plane (every bucket after
-        // the first) are quiet; the result is the exact sweep's either way
-        let lattice = Lattice::from_parameters(crate::lattice::CellParameters {
-            a: 8.0,
-            b: 3.0,
-            c: 3.0,
-            alpha: 90.0,
-            beta: 90.0,
-            gamma: 90.0,
-        })
-        .unwrap();
-        let dims = [32, 4, 4];
-        let mut g = Grid::new(lattice, dims, 0.0);
-        for (idx, v) in g.values.iter_mut().enumerate() {
-            let i = idx / 16;
-            *v = -(2.0 * std::f64::consts::PI * i as f64 / 32.0).cos() as f32
-                + 1e-3 * (idx % 7) as f32;
-        }
-        let exact = percolate_exact(&g, 2.0, &[], &[]);
-        assert_eq!(exact.dimension, 3);
-        let (items, bounds) = bucket_order(&g.values, 2.0, 64);
-        let mut sweep = Sweep::new(&g.values, &g.lattice);
-        let (mut log, mut scratch) = (UndoLog::default(), QuietScratch::default());
-        let mut kept = 0;
-        let mut items = items;
-        for w in bounds.windows(2) {
-            let bucket = &mut items[w[0]..w[1]];
-            log.clear();
-            let saved = sweep.scalars();
-            if sweep
-                .visit_quiet(&g, bucket, &mut log, &mut scratch)
-                .is_ok()
-            {
-                kept += 1;
-                continue;
-            }
-            sweep.roll_back(&mut log, saved);
-            bucket.sort_unstable();
-            let mut li = 0;
-            sweep_exact(&mut sweep, &g, bucket, &[], &mut li, &mut Vec::new());
-        }
-        assert!(
-            bounds.len() > 4 && kept >= 1 && kept < bounds.len() - 1,
-            "{kept} of {}",
-            bounds.len() - 1
-        );
-        assert_percolations_equal(&exact, &sweep.finish(2.0, vec![]), "cosine");
-    }
-
-    fn assert_percolations_equal(a: &Percolation, b: &Percolation, what: &str) {
-        assert_eq!(a.dimension, b.dimension, "dimension, {what}");
-        assert_eq!(a.thresholds, b.thresholds, "thresholds, {what}");
-        assert_eq!(a.openings, b.openings, "openings, {what}");
-        assert_eq!(a.families, b.families, "families, {what}");
-        assert_eq!(a.levels, b.levels, "level statistics, {what}");
-        assert_eq!(a.lowest, b.lowest, "lowest, {what}");
-        assert_eq!(a.open_fraction, b.open_fraction, "open fraction, {what}");
-        assert_eq!(
-            a.largest_fraction, b.largest_fraction,
-            "largest fraction, {what}"
-        );
-        assert_eq!(a, b, "{what}");
     }
 
     #[test]
