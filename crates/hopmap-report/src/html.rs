@@ -546,7 +546,14 @@ fn sites_section(a: &Analysis, o: &mut String) {
         );
     }
     // minima above the highest threshold lie outside every network: the ion does not reach them
-    if let Some(level) = a.percolation.thresholds.iter().flatten().last().map(|t| t.energy) {
+    if let Some(level) = a
+        .percolation
+        .thresholds
+        .iter()
+        .flatten()
+        .last()
+        .map(|t| t.energy)
+    {
         let outside: Vec<String> = net
             .orbits
             .iter()
