@@ -2,25 +2,13 @@
 //! the place, exit codes 1 (analysis failed) and 2 (usage), no partial output files.
 
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+use std::process::Output;
 
-fn hopmap(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_hopmap"))
-        .args(args)
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("run hopmap")
-}
-
-fn root(p: &str) -> String {
-    format!("{}/{p}", concat!(env!("CARGO_MANIFEST_DIR"), "/../.."))
-}
+mod common;
+use common::{hopmap, root};
 
 fn tmp(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("hopmap-cli-{}-{name}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
+    common::tmp("cli", name)
 }
 
 fn json(o: &Output) -> serde_json::Value {

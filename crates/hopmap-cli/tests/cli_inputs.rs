@@ -2,19 +2,10 @@
 //! given in, and the options' errors (exit code 2 for usage, 1 for a structure it cannot
 //! apply to).
 
-use std::process::{Command, Output};
+use std::process::Output;
 
-fn hopmap(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_hopmap"))
-        .args(args)
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("run hopmap")
-}
-
-fn root(p: &str) -> String {
-    format!("{}/{p}", concat!(env!("CARGO_MANIFEST_DIR"), "/../.."))
-}
+mod common;
+use common::{hopmap, root};
 
 fn json(o: &Output) -> serde_json::Value {
     assert!(

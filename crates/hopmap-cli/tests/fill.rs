@@ -2,25 +2,12 @@
 //! JSON and HTML, and clear errors for bad input with no partial output file.
 
 use std::path::PathBuf;
-use std::process::{Command, Output};
 
-fn hopmap(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_hopmap"))
-        .args(args)
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("run hopmap")
-}
-
-fn root(p: &str) -> String {
-    format!("{}/{p}", concat!(env!("CARGO_MANIFEST_DIR"), "/../.."))
-}
+mod common;
+use common::{hopmap, root};
 
 fn tmp(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("hopmap-fill-{}-{name}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
+    common::tmp("fill", name)
 }
 
 /// Olivine LiFePO4 (the bundled refinement, source in the file): single-file channels along b,

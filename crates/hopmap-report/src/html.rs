@@ -545,6 +545,36 @@ fn sites_section(a: &Analysis, o: &mut String) {
             net.orbits.len() - MAX
         );
     }
+    // minima above the highest threshold lie outside every network: the ion does not reach them
+    if let Some(level) = a
+        .percolation
+        .thresholds
+        .iter()
+        .flatten()
+        .last()
+        .map(|t| t.energy)
+    {
+        let outside: Vec<String> = net
+            .orbits
+            .iter()
+            .enumerate()
+            .take(MAX)
+            .filter(|(_, orb)| {
+                orb.sites
+                    .first()
+                    .is_some_and(|&k| net.sites[k].energy > level + 1e-4)
+            })
+            .map(|(i, _)| format!("S{i}"))
+            .collect();
+        if !outside.is_empty() {
+            let _ = writeln!(
+                o,
+                "<p class=\"note\">Above the highest threshold ({level:.3} eV), outside every \
+                 network and not reached by the ion: {}.</p>",
+                outside.join(", ")
+            );
+        }
+    }
 }
 
 /// Hops shorter than this (A) join split minima of one site; the hop table leaves them out.

@@ -196,16 +196,29 @@ pub fn paths(a: &Analysis, file: &str) -> String {
             "    {:>4} {:>5} {:>9} {:>9} {:>9} {:>12} {:<26} {:<10}",
             "site", "mult", "x", "y", "z", "energy (eV)", "coordination", "label"
         );
+        let level = a
+            .percolation
+            .thresholds
+            .iter()
+            .flatten()
+            .last()
+            .map(|t| t.energy)
+            .unwrap_or(f32::INFINITY);
         let mut shallow = 0;
+        let mut above = 0;
         for (oi, orb) in net.orbits.iter().enumerate() {
             let s = &net.sites[orb.sites[0]];
             if s.depth < hopmap::analysis::SHALLOW_SITE_EV as f32 {
                 shallow += 1;
                 continue;
             }
+            // a minimum above the highest threshold lies outside every network: the ion does
+            // not reach it (e.g. a tetrahedron sharing faces with framework octahedra)
+            let outside = s.energy > level + 1e-4;
+            above += usize::from(outside);
             let _ = writeln!(
                 o,
-                "    {:>4} {:>5} {:>9.4} {:>9.4} {:>9.4} {:>12.3} {:<26} {:<10}",
+                "    {:>4} {:>5} {:>9.4} {:>9.4} {:>9.4} {:>12.3} {:<26} {:<10}{}",
                 oi,
                 orb.multiplicity,
                 s.frac.0.x,
@@ -213,7 +226,14 @@ pub fn paths(a: &Analysis, file: &str) -> String {
                 s.frac.0.z,
                 s.energy,
                 s.coordination.to_string(),
-                s.label.as_deref().unwrap_or("-")
+                s.label.as_deref().unwrap_or("-"),
+                if outside { " *" } else { "" }
+            );
+        }
+        if above > 0 {
+            let _ = writeln!(
+                o,
+                "    (* above the highest threshold, {level:.3} eV: outside every network, not reached)"
             );
         }
         if shallow > 0 {
@@ -223,14 +243,6 @@ pub fn paths(a: &Analysis, file: &str) -> String {
                 hopmap::analysis::SHALLOW_SITE_EV
             );
         }
-        let level = a
-            .percolation
-            .thresholds
-            .iter()
-            .flatten()
-            .last()
-            .map(|t| t.energy)
-            .unwrap_or(f32::INFINITY);
         let mut seen = std::collections::BTreeSet::new();
         let shown: Vec<_> = net
             .hops

@@ -14,9 +14,9 @@
 //! leave-one-family-out error includes the choice of the setting. Format (any subset):
 //! `HOPMAP_SWEEP="screening_factor=0.75,1.0;d0_length_exponent=0,2;charge_shell_exponent=0;mobile_charge_scale=0"`.
 //! Besides the model's knobs, `saturation=a` adds a valence-saturation term
-//! `a N_A D0 (dV / V_A)^2` to the Morse part, and `relax_stiffness=kappa` lets every anion
-//! give way along its bond on a spring of stiffness `kappa D0` (candidate rules, rejected in
-//! docs/model.md).
+//! `a N_A D0 (dV / V_A)^2` to the Morse part, `relax_stiffness=kappa` lets every anion
+//! give way along its bond on a spring of stiffness `kappa D0`, and `relax_away=kappa` the same
+//! away from the probe only (candidate rules, rejected in docs/model.md).
 //! `HOPMAP_SWEEP_SPACING` (A, default 0.2) sets the grid of the sweep; the default-knob table uses
 //! the analysis grid (`analysis::default_spacing_a`, what a user's run gets).
 //!
@@ -169,7 +169,7 @@ impl Setting {
                 "mobile_excluded_nearest" => k.mobile_excluded_nearest = *v as usize,
                 "vacancy_share_threshold" => k.vacancy_share_threshold = *v,
                 "softness_transfer" => k.softness_transfer = *v != 0.0,
-                "saturation" | "relax_stiffness" => {}
+                "saturation" | "relax_stiffness" | "relax_away" => {}
                 other => panic!("HOPMAP_SWEEP: unknown knob '{other}'"),
             }
         }
@@ -253,8 +253,9 @@ fn saturated_morse(s: &Structure, o: &AnalysisOptions, a: f64) -> Grid {
 /// The Morse pair energy per unit depth with the anion free to move along the bond on a
 /// harmonic spring of stiffness `kappa D0` (1/A^2 times the depth): `min_d [m(R + d) + kappa
 /// d^2 / 2]`, minus the rigid `m(R)`, with `m = x^2 - 2x`, `x = exp((Rmin - R) / b)`. Tabulated
-/// every 0.002 A up to `cutoff`.
-fn relaxation_table(rmin: f64, b: f64, kappa: f64, cutoff: f64) -> Vec<f64> {
+/// every 0.002 A up to `cutoff`. `away_only`: the anion may only move away from the probe
+/// (`d >= 0`), which softens the repulsive wall and leaves the attractive side rigid.
+fn relaxation_table(rmin: f64, b: f64, kappa: f64, cutoff: f64, away_only: bool) -> Vec<f64> {
     let m = |r: f64| {
         let x = ((rmin - r) / b).exp();
         x * x - 2.0 * x
@@ -265,8 +266,9 @@ fn relaxation_table(rmin: f64, b: f64, kappa: f64, cutoff: f64) -> Vec<f64> {
             let r = i as f64 * 0.002;
             // coarse scan of the displacement, then a finer one around the best
             let f = |d: f64| m(r + d) + 0.5 * kappa * d * d;
+            let lowest = if away_only { 0 } else { -100 };
             let mut best = (0.0, f(0.0));
-            for j in -100..=300 {
+            for j in lowest..=300 {
                 let d = j as f64 * 0.01;
                 let v = f(d);
                 if v < best.1 {
@@ -276,6 +278,9 @@ fn relaxation_table(rmin: f64, b: f64, kappa: f64, cutoff: f64) -> Vec<f64> {
             let c = best.0;
             for j in -100..=100 {
                 let d = c + j as f64 * 0.0001;
+                if away_only && d < 0.0 {
+                    continue;
+                }
                 let v = f(d);
                 if v < best.1 {
                     best = (d, v);
@@ -288,7 +293,7 @@ fn relaxation_table(rmin: f64, b: f64, kappa: f64, cutoff: f64) -> Vec<f64> {
 
 /// Adds the relaxation of the anions (see [`relaxation_table`]) to a Morse part per unit
 /// `d0_ev`.
-fn add_relaxation(g: &mut Grid, s: &Structure, o: &AnalysisOptions, kappa: f64) {
+fn add_relaxation(g: &mut Grid, s: &Structure, o: &AnalysisOptions, kappa: f64, away_only: bool) {
     use hopmap::landscape::FrameworkKind;
     let model = anion_model(s, o);
     let anions: Vec<(hopmap::lattice::Frac, usize, f64)> = model
@@ -305,7 +310,7 @@ fn add_relaxation(g: &mut Grid, s: &Structure, o: &AnalysisOptions, kappa: f64) 
     let tables: Vec<Vec<f64>> = model
         .anions
         .iter()
-        .map(|k| relaxation_table(k.rmin, k.b, kappa, k.cutoff))
+        .map(|k| relaxation_table(k.rmin, k.b, kappa, k.cutoff, away_only))
         .collect();
     let dims = g.dims;
     let delta: Vec<f32> = (0..g.values.len())
@@ -359,7 +364,11 @@ fn tabulate(
                 o.knobs.d0_length_exponent,
                 o.knobs.softness_transfer,
                 o.knobs.d0_chalcogenide_factor,
-                (set.get("saturation"), set.get("relax_stiffness"))
+                (
+                    set.get("saturation"),
+                    set.get("relax_stiffness"),
+                    set.get("relax_away")
+                )
             );
             let morse = match morse_cache.iter().find(|(k, _)| *k == mkey) {
                 Some((_, g)) => g.clone(),
@@ -369,7 +378,10 @@ fn tabulate(
                         _ => morse_part(s, &o).expect("morse part"),
                     };
                     if let Some(kappa) = set.get("relax_stiffness").filter(|k| *k > 0.0) {
-                        add_relaxation(&mut g, s, &o, kappa);
+                        add_relaxation(&mut g, s, &o, kappa, false);
+                    }
+                    if let Some(kappa) = set.get("relax_away").filter(|k| *k > 0.0) {
+                        add_relaxation(&mut g, s, &o, kappa, true);
                     }
                     morse_cache.push((mkey, g.clone()));
                     g

@@ -292,6 +292,26 @@ fn in_input_cell(mut s: Structure, ds: &MoyoDataset, t: CellTransformation) -> S
     s
 }
 
+/// Moyo's dataset of a conventional cell built from the input, which must keep the input's
+/// space group `number`.
+fn conventional_dataset(s: &Structure, number: i32) -> Result<MoyoDataset, String> {
+    let (cell, _) = moyo_cell(s);
+    let ds = MoyoDataset::new(
+        &cell,
+        SYMPREC_A,
+        AngleTolerance::Default,
+        Setting::Standard,
+        false,
+    )
+    .map_err(|e| format!("moyo on the conventional cell: {e}"))?;
+    if ds.number != number {
+        return Err(format!(
+            "the conventional cell has space group {} where the input had {}",
+            ds.number, number
+        ));
+    }
+    Ok(ds)
+}
 /// The same crystal in the conventional cell of `ds` (see the module docs).
 fn conventional(s: &Structure, ds: &MoyoDataset) -> Result<(Structure, Vector3<f64>), String> {
     let p = ds.std_linear;
@@ -364,21 +384,7 @@ fn conventional(s: &Structure, ds: &MoyoDataset) -> Result<(Structure, Vector3<f
         warnings: s.warnings.clone(),
         oxidation_states_assigned: s.oxidation_states_assigned,
     };
-    let (cell, _) = moyo_cell(&out);
-    let ds2 = MoyoDataset::new(
-        &cell,
-        SYMPREC_A,
-        AngleTolerance::Default,
-        Setting::Standard,
-        false,
-    )
-    .map_err(|e| format!("moyo on the conventional cell: {e}"))?;
-    if ds2.number != ds.number {
-        return Err(format!(
-            "the conventional cell has space group {} where the input had {}",
-            ds2.number, ds.number
-        ));
-    }
+    let ds2 = conventional_dataset(&out, ds.number)?;
     fill_symmetry(&mut out, &ds2);
     symmetrise(&mut out, &ds2.orbits);
     // the canonical description: the origin of `canonical_shift`, the sites in a fixed order
@@ -389,21 +395,7 @@ fn conventional(s: &Structure, ds: &MoyoDataset) -> Result<(Structure, Vector3<f
     }
     out.sites
         .sort_by_cached_key(|x| (kind_key(x), rounded(x.frac.0)));
-    let (cell, _) = moyo_cell(&out);
-    let ds3 = MoyoDataset::new(
-        &cell,
-        SYMPREC_A,
-        AngleTolerance::Default,
-        Setting::Standard,
-        false,
-    )
-    .map_err(|e| format!("moyo on the conventional cell: {e}"))?;
-    if ds3.number != ds.number {
-        return Err(format!(
-            "the conventional cell has space group {} where the input had {}",
-            ds3.number, ds.number
-        ));
-    }
+    let ds3 = conventional_dataset(&out, ds.number)?;
     fill_symmetry(&mut out, &ds3);
     // moyo's Wyckoff letters hold for its own choice of origin; ours are looked up in its table
     // of Wyckoff positions for this description

@@ -622,21 +622,22 @@ impl Kernel<'_> {
     }
 }
 
-/// One block of grid points: the index ranges along a, b, c.
+/// One block of grid points: the index ranges along a, b, c (shared with the SIMD kernel).
 #[derive(Debug, Clone, Copy)]
-struct Block {
-    lo: [usize; 3],
-    hi: [usize; 3],
+pub(super) struct Block {
+    pub(super) lo: [usize; 3],
+    pub(super) hi: [usize; 3],
 }
 
-fn blocks(dims: [usize; 3]) -> Vec<Block> {
-    let nb = dims.map(|n| n.div_ceil(BLOCK));
+/// The grid cut into blocks of `size` points along each axis (smaller at the far faces).
+pub(super) fn blocks(dims: [usize; 3], size: usize) -> Vec<Block> {
+    let nb = dims.map(|n| n.div_ceil(size));
     let mut out = Vec::with_capacity(nb[0] * nb[1] * nb[2]);
     for bi in 0..nb[0] {
         for bj in 0..nb[1] {
             for bk in 0..nb[2] {
-                let lo = [bi * BLOCK, bj * BLOCK, bk * BLOCK];
-                let hi = [0, 1, 2].map(|a| (lo[a] + BLOCK).min(dims[a]));
+                let lo = [bi * size, bj * size, bk * size];
+                let hi = [0, 1, 2].map(|a| (lo[a] + size).min(dims[a]));
                 out.push(Block { lo, hi });
             }
         }
@@ -646,12 +647,30 @@ fn blocks(dims: [usize; 3]) -> Vec<Block> {
 
 /// Cartesian position of grid point (i, j, k).
 #[inline]
-fn point_cart(m: &Matrix3<f64>, inv_dims: [f64; 3], ijk: [usize; 3]) -> Vector3<f64> {
+pub(super) fn point_cart(m: &Matrix3<f64>, inv_dims: [f64; 3], ijk: [usize; 3]) -> Vector3<f64> {
     m * Vector3::new(
         ijk[0] as f64 * inv_dims[0],
         ijk[1] as f64 * inv_dims[1],
         ijk[2] as f64 * inv_dims[2],
     )
+}
+
+/// Centre and bounding-sphere radius of a block (A).
+pub(super) fn block_sphere(m: &Matrix3<f64>, inv_dims: [f64; 3], b: &Block) -> ([f64; 3], f64) {
+    let hi_idx = [0, 1, 2].map(|a| b.hi[a] - 1);
+    let c = (point_cart(m, inv_dims, b.lo) + point_cart(m, inv_dims, hi_idx)) * 0.5;
+    let mut r: f64 = 0.0;
+    for n in 0..8 {
+        let ijk = [0, 1, 2].map(|a| {
+            if (n >> a) & 1 == 0 {
+                b.lo[a]
+            } else {
+                hi_idx[a]
+            }
+        });
+        r = r.max((point_cart(m, inv_dims, ijk) - c).norm());
+    }
+    ([c.x, c.y, c.z], r)
 }
 
 /// Per-thread scratch: the neighbour lists of the current block.
@@ -741,27 +760,12 @@ pub fn compute_f64(
     let anion_reach: Vec<f64> = model.anions.iter().map(|k| k.cutoff.max(0.0)).collect();
     let cation_reach: Vec<f64> = ct.iter().map(|t| t.reach).collect();
 
-    let blocks = blocks(dims);
+    let blocks = blocks(dims, BLOCK);
     // The largest bounding-sphere radius of a block, so that one cell-wide list covers them all.
-    let block_radius = |b: &Block| -> ([f64; 3], f64) {
-        let lo = point_cart(&m, inv_dims, b.lo);
-        let hi_idx = [0, 1, 2].map(|a| b.hi[a] - 1);
-        let hi = point_cart(&m, inv_dims, hi_idx);
-        let c = (lo + hi) * 0.5;
-        let mut r: f64 = 0.0;
-        for n in 0..8 {
-            let ijk = [0, 1, 2].map(|a| {
-                if (n >> a) & 1 == 0 {
-                    b.lo[a]
-                } else {
-                    hi_idx[a]
-                }
-            });
-            r = r.max((point_cart(&m, inv_dims, ijk) - c).norm());
-        }
-        ([c.x, c.y, c.z], r)
-    };
-    let margin = blocks.iter().map(|b| block_radius(b).1).fold(0.0, f64::max);
+    let margin = blocks
+        .iter()
+        .map(|b| block_sphere(&m, inv_dims, b).1)
+        .fold(0.0, f64::max);
     let all_anions = cell_images(model, true, &anion_reach, margin);
     let all_cations = cell_images(model, false, &cation_reach, margin);
 
@@ -789,7 +793,7 @@ pub fn compute_f64(
             if stop.load(std::sync::atomic::Ordering::Relaxed) {
                 return (Vec::new(), Vec::new(), 0);
             }
-            let (centre, radius) = block_radius(b);
+            let (centre, radius) = block_sphere(&m, inv_dims, b);
             let an_reach: Vec<f64> = anion_reach.iter().map(|r| r + radius).collect();
             let ca_reach: Vec<f64> = cation_reach.iter().map(|r| r + radius).collect();
             scratch.anions.fill_near(&all_anions, centre, &an_reach);

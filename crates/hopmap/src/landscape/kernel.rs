@@ -33,7 +33,7 @@
 //! to different block centres and may differ by a few units in the last place; the stages
 //! after the grid do not rely on exact ties.
 
-use super::compute::{Cancelled, ComputeStats, Progress};
+use super::compute::{Block, Cancelled, ComputeStats, Progress, block_sphere, blocks, point_cart};
 use super::model::{COULOMB_EV_A, FrameworkKind, LandscapeModel};
 use super::simd::{self, Isa, Lanes, Portable};
 use crate::grid::Grid;
@@ -589,55 +589,6 @@ struct Scratch {
     cnt: Vec<f32>,
 }
 
-/// One block of grid points: the index ranges along a, b, c.
-#[derive(Debug, Clone, Copy)]
-struct Block {
-    lo: [usize; 3],
-    hi: [usize; 3],
-}
-
-fn blocks(dims: [usize; 3]) -> Vec<Block> {
-    let nb = dims.map(|n| n.div_ceil(BLOCK));
-    let mut out = Vec::with_capacity(nb[0] * nb[1] * nb[2]);
-    for bi in 0..nb[0] {
-        for bj in 0..nb[1] {
-            for bk in 0..nb[2] {
-                let lo = [bi * BLOCK, bj * BLOCK, bk * BLOCK];
-                let hi = [0, 1, 2].map(|a| (lo[a] + BLOCK).min(dims[a]));
-                out.push(Block { lo, hi });
-            }
-        }
-    }
-    out
-}
-
-#[inline]
-fn point_cart(m: &Matrix3<f64>, inv_dims: [f64; 3], ijk: [usize; 3]) -> Vector3<f64> {
-    m * Vector3::new(
-        ijk[0] as f64 * inv_dims[0],
-        ijk[1] as f64 * inv_dims[1],
-        ijk[2] as f64 * inv_dims[2],
-    )
-}
-
-/// Centre and bounding-sphere radius of a block (A).
-fn block_sphere(m: &Matrix3<f64>, inv_dims: [f64; 3], b: &Block) -> ([f64; 3], f64) {
-    let hi_idx = [0, 1, 2].map(|a| b.hi[a] - 1);
-    let c = (point_cart(m, inv_dims, b.lo) + point_cart(m, inv_dims, hi_idx)) * 0.5;
-    let mut r: f64 = 0.0;
-    for n in 0..8 {
-        let ijk = [0, 1, 2].map(|a| {
-            if (n >> a) & 1 == 0 {
-                b.lo[a]
-            } else {
-                hi_idx[a]
-            }
-        });
-        r = r.max((point_cart(m, inv_dims, ijk) - c).norm());
-    }
-    ([c.x, c.y, c.z], r)
-}
-
 /// The points of every block of one shape, in the order the kernel evaluates them: blocks of
 /// one shape differ by a lattice translation, so this is computed once per shape (at most 8).
 struct Layout {
@@ -1038,7 +989,7 @@ pub(crate) fn compute_simd(
     let t = terms(model);
     let m = *model.lattice.matrix();
     let inv_dims = dims.map(|n| 1.0 / n as f64);
-    let blocks = blocks(dims);
+    let blocks = blocks(dims, BLOCK);
     let layouts = layouts(&m, dims);
     let margin = layouts.iter().map(|l| l.radius).fold(0.0, f64::max);
     let energy = fields == Fields::Both;
@@ -1135,7 +1086,7 @@ pub(crate) fn compute_simd(
 mod tests {
     use super::super::compute::{compute_f64, compute_with_isa, evaluate_point};
     use super::super::fixtures::mixed_model;
-    use super::{Isa, Progress, TILE, blocks, layouts};
+    use super::{BLOCK, Isa, Progress, TILE, blocks, layouts};
 
     #[test]
     fn core_and_shell_lists_give_the_plain_sums_at_every_point() {
@@ -1182,7 +1133,7 @@ mod tests {
         let layouts = layouts(&m, dims);
         assert_eq!(layouts.len(), 8);
         let mut seen = vec![0u32; dims[0] * dims[1] * dims[2]];
-        for b in blocks(dims) {
+        for b in blocks(dims, BLOCK) {
             let shape = [0, 1, 2].map(|a| b.hi[a] - b.lo[a]);
             let l = layouts.iter().find(|l| l.shape == shape).unwrap();
             assert_eq!(l.px.len() % TILE, 0);
