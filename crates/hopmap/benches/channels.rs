@@ -6,48 +6,16 @@
 //! memory figure is the peak of live heap bytes during each stage above what was live before
 //! it, per grid point (the grid itself, 4 bytes per point, is not counted).
 
+#[path = "support/heap.rs"]
+mod heap;
+
+use heap::peak_during;
 use hopmap::grid::Grid;
 use hopmap::lattice::{CellParameters, Frac, Lattice};
 use hopmap::network::{self, FrameworkIon, SiteOptions};
 use hopmap::percolation;
 use hopmap::spacegroup::SymOp;
-use std::alloc::{GlobalAlloc, Layout, System};
-use std::sync::atomic::{AtomicUsize, Ordering::Relaxed};
 use std::time::Instant;
-
-struct Counting;
-static LIVE: AtomicUsize = AtomicUsize::new(0);
-static PEAK: AtomicUsize = AtomicUsize::new(0);
-
-unsafe impl GlobalAlloc for Counting {
-    unsafe fn alloc(&self, l: Layout) -> *mut u8 {
-        let p = unsafe { System.alloc(l) };
-        if !p.is_null() {
-            let now = LIVE.fetch_add(l.size(), Relaxed) + l.size();
-            PEAK.fetch_max(now, Relaxed);
-        }
-        p
-    }
-    unsafe fn dealloc(&self, p: *mut u8, l: Layout) {
-        unsafe { System.dealloc(p, l) };
-        LIVE.fetch_sub(l.size(), Relaxed);
-    }
-    unsafe fn realloc(&self, p: *mut u8, l: Layout, new: usize) -> *mut u8 {
-        let q = unsafe { System.realloc(p, l, new) };
-        if !q.is_null() {
-            if new > l.size() {
-                let now = LIVE.fetch_add(new - l.size(), Relaxed) + new - l.size();
-                PEAK.fetch_max(now, Relaxed);
-            } else {
-                LIVE.fetch_sub(l.size() - new, Relaxed);
-            }
-        }
-        q
-    }
-}
-
-#[global_allocator]
-static ALLOC: Counting = Counting;
 
 struct Stage {
     name: &'static str,
@@ -56,15 +24,13 @@ struct Stage {
 }
 
 fn stage<T>(stages: &mut Vec<Stage>, name: &'static str, f: impl FnOnce() -> T) -> T {
-    let base = LIVE.load(Relaxed);
-    PEAK.store(base, Relaxed);
     let t = Instant::now();
-    let out = f();
+    let (out, peak_bytes) = peak_during(f);
     let seconds = t.elapsed().as_secs_f64();
     stages.push(Stage {
         name,
         seconds,
-        peak_bytes: PEAK.load(Relaxed).saturating_sub(base),
+        peak_bytes,
     });
     out
 }

@@ -19,8 +19,11 @@
 
 #[path = "support/cpu.rs"]
 mod cpu;
+#[path = "support/heap.rs"]
+mod heap;
 
 use cpu::measure;
+use heap::peak_during;
 use hopmap::analysis::{
     self, AnalysisOptions, framework_ions, mobile_sites, model_and_landscape, occupied_wells,
 };
@@ -32,52 +35,12 @@ use hopmap::percolation;
 use hopmap::read::read_structure;
 use hopmap::spacegroup::SymOp;
 use hopmap::structure::{AsymmetricSite, Site, Structure, SymmetryInfo};
-use std::alloc::{GlobalAlloc, Layout, System};
 use std::path::PathBuf;
-use std::sync::atomic::{AtomicUsize, Ordering::Relaxed};
-
-/// Counts live heap bytes and their peak, for the memory per grid point of each stage.
-struct Counting;
-static LIVE: AtomicUsize = AtomicUsize::new(0);
-static PEAK: AtomicUsize = AtomicUsize::new(0);
-
-// SAFETY: forwards to the system allocator unchanged; only counts sizes.
-unsafe impl GlobalAlloc for Counting {
-    unsafe fn alloc(&self, l: Layout) -> *mut u8 {
-        let p = unsafe { System.alloc(l) };
-        if !p.is_null() {
-            let now = LIVE.fetch_add(l.size(), Relaxed) + l.size();
-            PEAK.fetch_max(now, Relaxed);
-        }
-        p
-    }
-    unsafe fn dealloc(&self, p: *mut u8, l: Layout) {
-        unsafe { System.dealloc(p, l) };
-        LIVE.fetch_sub(l.size(), Relaxed);
-    }
-    unsafe fn realloc(&self, p: *mut u8, l: Layout, new: usize) -> *mut u8 {
-        let q = unsafe { System.realloc(p, l, new) };
-        if !q.is_null() {
-            if new > l.size() {
-                let now = LIVE.fetch_add(new - l.size(), Relaxed) + new - l.size();
-                PEAK.fetch_max(now, Relaxed);
-            } else {
-                LIVE.fetch_sub(l.size() - new, Relaxed);
-            }
-        }
-        q
-    }
-}
-
-#[global_allocator]
-static ALLOC: Counting = Counting;
 
 /// [`measure`] plus the peak of live heap bytes during `f` above what was live before it.
 fn stage<T>(f: impl FnOnce() -> T) -> (T, f64, f64, usize) {
-    let base = LIVE.load(Relaxed);
-    PEAK.store(base, Relaxed);
-    let (out, wall, cpu) = measure(f);
-    (out, wall, cpu, PEAK.load(Relaxed).saturating_sub(base))
+    let ((out, wall, cpu), peak) = peak_during(|| measure(f));
+    (out, wall, cpu, peak)
 }
 
 fn reference(name: &str) -> Structure {
