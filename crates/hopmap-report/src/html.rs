@@ -546,14 +546,7 @@ fn sites_section(a: &Analysis, o: &mut String) {
         );
     }
     // minima above the highest threshold lie outside every network: the ion does not reach them
-    if let Some(level) = a
-        .percolation
-        .thresholds
-        .iter()
-        .flatten()
-        .last()
-        .map(|t| t.energy)
-    {
+    if let Some(level) = a.percolation.highest_threshold() {
         let outside: Vec<String> = net
             .orbits
             .iter()
@@ -586,11 +579,7 @@ fn hops_section(a: &Analysis, o: &mut String) {
     };
     let level = a
         .percolation
-        .thresholds
-        .iter()
-        .flatten()
-        .last()
-        .map(|t| t.energy)
+        .highest_threshold()
         .unwrap_or(f32::NEG_INFINITY);
     let groups = &a.summary.hop_groups;
     let shown: usize = groups.iter().map(|g| g.count).sum();

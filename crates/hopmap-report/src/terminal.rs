@@ -196,14 +196,7 @@ pub fn paths(a: &Analysis, file: &str) -> String {
             "    {:>4} {:>5} {:>9} {:>9} {:>9} {:>12} {:<26} {:<10}",
             "site", "mult", "x", "y", "z", "energy (eV)", "coordination", "label"
         );
-        let level = a
-            .percolation
-            .thresholds
-            .iter()
-            .flatten()
-            .last()
-            .map(|t| t.energy)
-            .unwrap_or(f32::INFINITY);
+        let level = a.percolation.highest_threshold().unwrap_or(f32::INFINITY);
         let mut shallow = 0;
         let mut above = 0;
         for (oi, orb) in net.orbits.iter().enumerate() {

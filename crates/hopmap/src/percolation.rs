@@ -342,6 +342,12 @@ pub struct Percolation {
 }
 
 impl Percolation {
+    /// Energy of the highest threshold reached (the network of the highest dimension opens
+    /// there); None when nothing percolates.
+    pub fn highest_threshold(&self) -> Option<f32> {
+        self.thresholds.iter().flatten().last().map(|t| t.energy)
+    }
+
     /// The first `d`-dimensional percolation (`d` = 1, 2, 3).
     pub fn threshold(&self, d: u8) -> Option<&Threshold> {
         if (1..=3).contains(&d) {
