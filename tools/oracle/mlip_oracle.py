@@ -1166,6 +1166,12 @@ def read_table(path: Path):
         return list(csv.DictReader(fh))
 
 
+def repo_relative(message) -> str:
+    """A message with this checkout's absolute path cut to the repository-relative one, for
+    what is stored in the tables (which travel with the repository)."""
+    return str(message).replace(str(REPO) + os.sep, "")
+
+
 def write_table(path: Path, rows, columns=None):
     """Whole table to a temporary file in the same folder, then renamed over the target."""
     path.parent.mkdir(parents=True, exist_ok=True)
@@ -1353,13 +1359,13 @@ def cmd_run_set(args):
             res = run_neb(path, ref["ion"], args.hopmap, args.images, args.min_image,
                           steps=args.steps, hop_mode=args.hop_mode)
         except Exception as e:  # one bad row never stops the set
-            errs.append(f"neb skipped: {e}")
+            errs.append(f"neb skipped: {repo_relative(e)}")
             print(f"  neb failed: {e}", file=sys.stderr)
         if not args.no_sites:
             try:
                 verdict, srows, _ = run_sites(path, ref["ion"], args.hopmap, args.min_image)
             except Exception as e:
-                errs.append(f"sites skipped: {e}")
+                errs.append(f"sites skipped: {repo_relative(e)}")
                 print(f"  sites failed: {e}", file=sys.stderr)
         row = row_from(res, verdict, srows, time.time() - t0, errs, path, ref["ion"])
         old = [r for r in read_table(out) if (r["file"], r["ion"]) == key]
@@ -1694,6 +1700,13 @@ def cmd_self_test(args):
           not other_well({"notes": slid, "end_minus_start_ev": "0.0031"}))
     check("pairing: asymmetric band without a slide kept",
           not other_well({"notes": "", "end_minus_start_ev": "0.6985"}))
+    # stored tables travel with the repository: no checkout's absolute path in them
+    check("stored messages are repository-relative",
+          repo_relative(f"{REPO}{os.sep}structures{os.sep}x.cif: bad") ==
+          f"structures{os.sep}x.cif: bad")
+    stored = "".join(p.read_text() for p in (DEFAULT_RESULTS, DEFAULT_DIRECTIONS) if p.exists())
+    check("results.csv and directions.csv name no absolute path",
+          not any(m in stored for m in ("/work/", "/home/", "/tmp/", str(REPO))))
     passed = sum(results)
     print(f"{passed} passed, {len(results) - passed} failed")
     return 0 if passed == len(results) else 1

@@ -325,12 +325,20 @@ fn the_report_capacity_section_is_rounded_and_names_electrolytes() {
 /// In spinel the 8b tetrahedra share faces with the framework's 16d octahedra and are never
 /// occupied (the spinel framework as described by Thackeray, Prog. Solid State Chem. 25 (1997)
 /// 1; citation from memory, the face sharing is common practice); the landscape keeps a minimum
-/// there far above every threshold. The site table must say the ion does not reach it, and must
+/// there far above every threshold. The site table must say no network passes through it, and must
 /// not mark the two orbits the network runs through (the 16c octahedra and 8a tetrahedra).
 #[test]
-fn sites_above_every_network_are_marked_as_not_reached() {
+fn sites_above_every_network_are_marked() {
     let cif = root("structures/reference/MnO2_lambda_spinel.cif");
-    let out = ok(&hopmap(&["paths", &cif, "--ion", "Mg"]));
+    let html = tmp("outside").join("report.html");
+    let out = ok(&hopmap(&[
+        "paths",
+        &cif,
+        "--ion",
+        "Mg",
+        "--report",
+        html.to_str().unwrap(),
+    ]));
     let rows: Vec<&str> = out
         .lines()
         .skip_while(|l| !l.trim_start().starts_with("sites ("))
@@ -345,5 +353,11 @@ fn sites_above_every_network_are_marked_as_not_reached() {
     assert_eq!(cols[1], "8");
     let energy: f64 = cols[5].parse().unwrap();
     assert!(energy > 0.0, "{}", marked[0]);
-    assert!(out.contains("outside every network, not reached"), "{out}");
+    assert!(out.contains("no network passes through it"), "{out}");
+    // the report names the same orbit (S2: the third, as in the terminal's order)
+    let page = std::fs::read_to_string(&html).unwrap();
+    assert!(
+        page.contains("no network passes through S2 at its threshold"),
+        "the report does not name the 8b orbit"
+    );
 }

@@ -545,7 +545,7 @@ fn sites_section(a: &Analysis, o: &mut String) {
             net.orbits.len() - MAX
         );
     }
-    // minima above the highest threshold lie outside every network: the ion does not reach them
+    // minima above the highest threshold lie outside every network at its threshold
     if let Some(level) = a.percolation.highest_threshold() {
         let outside: Vec<String> = net
             .orbits
@@ -562,8 +562,8 @@ fn sites_section(a: &Analysis, o: &mut String) {
         if !outside.is_empty() {
             let _ = writeln!(
                 o,
-                "<p class=\"note\">Above the highest threshold ({level:.3} eV), outside every \
-                 network and not reached by the ion: {}.</p>",
+                "<p class=\"note\">Above the highest threshold ({level:.3} eV): no network \
+                 passes through {} at its threshold.</p>",
                 outside.join(", ")
             );
         }

@@ -205,8 +205,8 @@ pub fn paths(a: &Analysis, file: &str) -> String {
                 shallow += 1;
                 continue;
             }
-            // a minimum above the highest threshold lies outside every network: the ion does
-            // not reach it (e.g. a tetrahedron sharing faces with framework octahedra)
+            // a minimum above the highest threshold lies outside every network at its threshold
+            // (e.g. a tetrahedron sharing faces with framework octahedra, eV above it)
             let outside = s.energy > level + 1e-4;
             above += usize::from(outside);
             let _ = writeln!(
@@ -226,7 +226,7 @@ pub fn paths(a: &Analysis, file: &str) -> String {
         if above > 0 {
             let _ = writeln!(
                 o,
-                "    (* above the highest threshold, {level:.3} eV: outside every network, not reached)"
+                "    (* above the highest threshold, {level:.3} eV: no network passes through it at its threshold)"
             );
         }
         if shallow > 0 {

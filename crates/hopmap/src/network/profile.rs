@@ -10,10 +10,10 @@
 //! runs under it (see `known_bottleneck`, `bottleneck_is`); then, among the voxels at or below
 //! that level, the path of least cost, where a step costs its length (A) times
 //! `1 + w (E - E_start) / (E_bottleneck - E_start)`: with `w = 0` the shortest path under the
-//! bottleneck, with `w > 0` one that keeps to the valley floor. The second pass is an A* search in the covering, guided by the least length
-//! any chain of face steps to the end must still travel. It searches the cells spanned by the
-//! translation first, then those and one more on each side, and the unbounded covering only
-//! when the end is not reached in either: in a network open in other directions too (a 3D
+//! bottleneck, with `w > 0` one that keeps to the valley floor. The second pass is an A* search
+//! in the covering, guided by the least length any chain of face steps to the end must still
+//! travel. It searches the cells spanned by the translation first, then those and one more on
+//! each side, and the unbounded covering only when the end is not reached in either: in a network open in other directions too (a 3D
 //! network crossing the blocks of a shear oxide), cheap detours along short axes would
 //! otherwise make the search visit millions of points in dozens of cells. So the path is always
 //! the lowest (pass 1 needs no window), and the cheapest under that level among the paths in
