@@ -44,6 +44,8 @@ use std::collections::HashMap;
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::time::Instant;
 
+/// Vectors of points evaluated together against each image (see [`anion_run`]).
+const TILES: usize = 2;
 /// Points per block edge.
 const BLOCK: usize = 8;
 /// Points per tile of 2 x 2 x 4: the vectors of the kernel (16 lanes, or two of 8).
@@ -704,24 +706,26 @@ fn coulomb<V: Lanes>(c: &CationConstants, d2: V, r: V) -> V {
 }
 
 /// Running sums of one vector of points: bond-valence sum (v.u.), energy (eV), pairs counted.
+#[derive(Clone, Copy)]
 struct Sums<V> {
     bvs: V,
     energy: V,
     count: V,
 }
 
-/// Adds one run of images of an anion kind. `SHELL`: the images are within the cutoff of some
-/// points only, so each lane is tested (and a vector none of whose lanes is inside is skipped);
-/// otherwise every lane is inside and the count grows by the run's length. `CLAMP`: the
-/// exponent may leave the range of normal f32 results.
+/// Adds one run of images of an anion kind to `T` vectors of points at once (each image's
+/// coordinates and weights are loaded once for all of them, and the vectors' independent
+/// chains keep the arithmetic units busy). `SHELL`: the images are within the cutoff of some
+/// points only, so each lane is tested (and an image none of whose lanes is inside, in any of
+/// the vectors, is skipped); otherwise every lane is inside and the count grows by the run's
+/// length. `CLAMP`: the exponent may leave the range of normal f32 results.
 #[inline(always)]
-fn anion_run<V: Lanes, const ENERGY: bool, const SHELL: bool, const CLAMP: bool>(
+fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, const CLAMP: bool>(
     c: &AnionConstants,
     run: &Run,
-    p: (V, V, V),
-    acc: &mut Sums<V>,
+    p: &[(V, V, V); T],
+    acc: &mut [Sums<V>; T],
 ) {
-    let (px, py, pz) = p;
     let zero = V::splat(0.0);
     let one = V::splat(1.0);
     let two = V::splat(2.0);
@@ -736,131 +740,168 @@ fn anion_run<V: Lanes, const ENERGY: bool, const SHELL: bool, const CLAMP: bool>
         &run.w[..n],
         &run.w2[..n],
     );
-    let (mut bvs, mut energy, mut count) = (acc.bvs, acc.energy, acc.count);
+    let mut sums = *acc;
     for j in 0..n {
-        let d2 = dist2_run(px, py, pz, xs[j], ys[j], zs[j]);
-        let inside = d2.lt(cutoff2);
-        if SHELL && !V::any(inside) {
+        let mut d2 = [zero; T];
+        let mut inside = [zero.lt(zero); T];
+        let mut any = false;
+        for t in 0..T {
+            d2[t] = dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]);
+            inside[t] = d2[t].lt(cutoff2);
+            if SHELL {
+                any |= V::any(inside[t]);
+            }
+        }
+        if SHELL && !any {
             continue;
         }
-        // lanes outside the cutoff are masked below; held at the cutoff, their exponent
-        // stays in the range the unclamped exponential handles
-        let d2 = if SHELL { d2.min(cutoff2) } else { d2 };
-        // no guard at R = 0: the exponential is finite there (the f64 loop's guard of 1e-6 A
-        // moves the term by 1e-6/b relative, well inside the tested agreement)
-        let r = d2.sqrt();
-        let arg = r.fma(slope, offset);
-        let x = if CLAMP {
-            exp(arg)
-        } else {
-            simd::exp_in_range(arg)
-        };
-        let (w, w2) = if SHELL {
-            count = count.add(V::select(inside, one, zero));
-            (
-                V::select(inside, V::splat(ws[j]), zero),
-                V::select(inside, V::splat(w2s[j]), zero),
-            )
-        } else {
-            (V::splat(ws[j]), V::splat(w2s[j]))
-        };
-        bvs = w.fma(x, bvs);
-        if ENERGY {
-            let morse = x.fma(x.sub(two), neg_cut);
-            energy = w2.fma(morse, energy);
+        let (wj, w2j) = (V::splat(ws[j]), V::splat(w2s[j]));
+        for t in 0..T {
+            // lanes outside the cutoff are masked below; held at the cutoff, their exponent
+            // stays in the range the unclamped exponential handles
+            let d2 = if SHELL { d2[t].min(cutoff2) } else { d2[t] };
+            // no guard at R = 0: the exponential is finite there (the f64 loop's guard of
+            // 1e-6 A moves the term by 1e-6/b relative, well inside the tested agreement)
+            let r = d2.sqrt();
+            let arg = r.fma(slope, offset);
+            let x = if CLAMP {
+                exp(arg)
+            } else {
+                simd::exp_in_range(arg)
+            };
+            let (w, w2) = if SHELL {
+                sums[t].count = sums[t].count.add(V::select(inside[t], one, zero));
+                (
+                    V::select(inside[t], wj, zero),
+                    V::select(inside[t], w2j, zero),
+                )
+            } else {
+                (wj, w2j)
+            };
+            sums[t].bvs = w.fma(x, sums[t].bvs);
+            if ENERGY {
+                let morse = x.fma(x.sub(two), neg_cut);
+                sums[t].energy = w2.fma(morse, sums[t].energy);
+            }
         }
     }
     if !SHELL {
         // n is a whole number below 2^24: exact in f32
-        count = count.add(V::splat(n as f32));
+        for s in sums.iter_mut() {
+            s.count = s.count.add(V::splat(n as f32));
+        }
     }
-    *acc = Sums { bvs, energy, count };
+    *acc = sums;
 }
 
-/// Adds one run of images of a cation kind (screened Coulomb); `SHELL` as in [`anion_run`].
+/// Adds one run of images of a cation kind (screened Coulomb) to `T` vectors of points; `SHELL`
+/// as in [`anion_run`].
 #[inline(always)]
-fn cation_run<V: Lanes, const SHELL: bool>(
+fn cation_run<V: Lanes, const T: usize, const SHELL: bool>(
     c: &CationConstants,
     run: &Run,
-    p: (V, V, V),
-    acc: &mut Sums<V>,
+    p: &[(V, V, V); T],
+    acc: &mut [Sums<V>; T],
 ) {
-    let (px, py, pz) = p;
     let zero = V::splat(0.0);
     let one = V::splat(1.0);
     let g2 = V::splat(R_GUARD * R_GUARD);
     let reach2 = V::splat(c.reach2);
     let n = run.x.len();
     let (xs, ys, zs, ws) = (&run.x[..n], &run.y[..n], &run.z[..n], &run.w[..n]);
-    let (mut energy, mut count) = (acc.energy, acc.count);
+    let mut sums = *acc;
     for j in 0..n {
-        let d2 = dist2_run(px, py, pz, xs[j], ys[j], zs[j]);
-        let inside = d2.lt(reach2);
-        if SHELL && !V::any(inside) {
+        let mut d2 = [zero; T];
+        let mut inside = [zero.lt(zero); T];
+        let mut any = false;
+        for t in 0..T {
+            d2[t] = dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]);
+            inside[t] = d2[t].lt(reach2);
+            if SHELL {
+                any |= V::any(inside[t]);
+            }
+        }
+        if SHELL && !any {
             continue;
         }
-        // masked lanes held at the reach, where the exponent stays in range
-        let d2 = if SHELL { d2.min(reach2) } else { d2 };
-        let d2 = d2.max(g2);
-        let term = coulomb(c, d2, d2.sqrt());
-        let w = if SHELL {
-            count = count.add(V::select(inside, one, zero));
-            V::select(inside, V::splat(ws[j]), zero)
-        } else {
-            V::splat(ws[j])
-        };
-        energy = w.fma(term, energy);
+        let wj = V::splat(ws[j]);
+        for t in 0..T {
+            // masked lanes held at the reach, where the exponent stays in range
+            let d2 = if SHELL { d2[t].min(reach2) } else { d2[t] };
+            let d2 = d2.max(g2);
+            let term = coulomb(c, d2, d2.sqrt());
+            let w = if SHELL {
+                sums[t].count = sums[t].count.add(V::select(inside[t], one, zero));
+                V::select(inside[t], wj, zero)
+            } else {
+                wj
+            };
+            sums[t].energy = w.fma(term, sums[t].energy);
+        }
     }
     if !SHELL {
-        count = count.add(V::splat(n as f32));
+        for s in sums.iter_mut() {
+            s.count = s.count.add(V::splat(n as f32));
+        }
     }
-    acc.energy = energy;
-    acc.count = count;
+    *acc = sums;
 }
 
-/// The two fields of one vector of points, written to `out[0][..N]` and `out[1][..N]`, and the
-/// contributions counted per point (pairs within the cutoff of their term) to `out[2][..N]`.
+/// The two fields of `T` vectors of points starting at point `v` of the block, written to
+/// `out[0]` and `out[1]`, and the contributions counted per point (pairs within the cutoff of
+/// their term) to `out[2]`.
 #[inline(always)]
-fn points<V: Lanes, const ENERGY: bool>(
+fn points<V: Lanes, const T: usize, const ENERGY: bool>(
     t: &Terms,
-    p: [&[f32]; 3],
+    v: usize,
     s: &Scratch,
     out: [&mut [f32]; 3],
 ) {
     let [dv, en, cnt] = out;
-    let (px, py, pz) = (V::load(p[0]), V::load(p[1]), V::load(p[2]));
     let zero = V::splat(0.0);
     let one = V::splat(1.0);
     let g2 = V::splat(R_GUARD * R_GUARD);
-    let mut acc = Sums {
+    let mut pv = [(zero, zero, zero); T];
+    for (i, p) in pv.iter_mut().enumerate() {
+        let o = v + i * V::N;
+        *p = (
+            V::load(&s.px[o..]),
+            V::load(&s.py[o..]),
+            V::load(&s.pz[o..]),
+        );
+    }
+    let mut acc = [Sums {
         bvs: zero,
         energy: zero,
         count: zero,
-    };
-    let pv = (px, py, pz);
+    }; T];
     for (c, k) in t.anion_kinds.iter().zip(&s.anions) {
         if c.in_range {
-            anion_run::<V, ENERGY, false, false>(c, &k.core, pv, &mut acc);
-            anion_run::<V, ENERGY, true, false>(c, &k.shell, pv, &mut acc);
+            anion_run::<V, T, ENERGY, false, false>(c, &k.core, &pv, &mut acc);
+            anion_run::<V, T, ENERGY, true, false>(c, &k.shell, &pv, &mut acc);
         } else {
-            anion_run::<V, ENERGY, false, true>(c, &k.core, pv, &mut acc);
-            anion_run::<V, ENERGY, true, true>(c, &k.shell, pv, &mut acc);
+            anion_run::<V, T, ENERGY, false, true>(c, &k.core, &pv, &mut acc);
+            anion_run::<V, T, ENERGY, true, true>(c, &k.shell, &pv, &mut acc);
         }
     }
-    let Sums {
-        bvs,
-        mut energy,
-        mut count,
-    } = acc;
     if ENERGY {
-        let mut acc = Sums { bvs, energy, count };
-        for (c, k) in t.cation_kinds.iter().zip(&s.cations) {
-            cation_run::<V, false>(c, &k.core, pv, &mut acc);
-            cation_run::<V, true>(c, &k.shell, pv, &mut acc);
+        // the screened Coulomb term holds more constants in registers: one vector at a time
+        for (p, a) in pv.iter().zip(acc.iter_mut()) {
+            let (p, mut one) = ([*p], [*a]);
+            for (c, k) in t.cation_kinds.iter().zip(&s.cations) {
+                cation_run::<V, 1, false>(c, &k.core, &p, &mut one);
+                cation_run::<V, 1, true>(c, &k.shell, &p, &mut one);
+            }
+            *a = one[0];
         }
-        energy = acc.energy;
-        count = acc.count;
-        if t.exclude > 0 {
+    }
+    for (i, (&(px, py, pz), sums)) in pv.iter().zip(acc).enumerate() {
+        let Sums {
+            bvs,
+            mut energy,
+            mut count,
+        } = sums;
+        if ENERGY && t.exclude > 0 {
             // the mobile ions: the k nearest sites of each point take no part
             let far = V::splat(f32::INFINITY);
             let mut near_r = [far; 4];
@@ -894,21 +935,23 @@ fn points<V: Lanes, const ENERGY: bool>(
                 energy = energy.sub(*nt);
             }
         }
+        let o = v + i * V::N;
+        let dvv = bvs.sub(V::splat(t.valence));
+        let dvv = dvv.max(zero.sub(dvv));
+        let mcap = V::splat(t.mismatch_cap);
+        V::select(dvv.lt(mcap), dvv, mcap).store(&mut dv[o..]);
+        if ENERGY {
+            let ecap = V::splat(t.energy_cap);
+            V::select(energy.lt(ecap), energy, ecap).store(&mut en[o..]);
+        }
+        count.store(&mut cnt[o..]);
     }
-    let dvv = bvs.sub(V::splat(t.valence));
-    let dvv = dvv.max(zero.sub(dvv));
-    let mcap = V::splat(t.mismatch_cap);
-    V::select(dvv.lt(mcap), dvv, mcap).store(dv);
-    if ENERGY {
-        let ecap = V::splat(t.energy_cap);
-        V::select(energy.lt(ecap), energy, ecap).store(en);
-    }
-    count.store(cnt);
 }
 
 use simd::exp;
 
-/// Evaluates the points in `s.px/py/pz` (a multiple of `V::N`) into `s.dv`, `s.en`, `s.cnt`.
+/// Evaluates the points in `s.px/py/pz` (a multiple of `V::N`) into `s.dv`, `s.en`, `s.cnt`,
+/// [`TILES`] vectors at a time.
 #[inline(always)]
 fn block_points<V: Lanes, const ENERGY: bool>(t: &Terms, s: &mut Scratch) {
     let n = s.px.len();
@@ -918,9 +961,12 @@ fn block_points<V: Lanes, const ENERGY: bool>(t: &Terms, s: &mut Scratch) {
     dv.resize(n, 0.0);
     en.resize(n, 0.0);
     cnt.resize(n, 0.0);
-    for v in (0..n).step_by(V::N) {
-        let p = [&s.px[v..], &s.py[v..], &s.pz[v..]];
-        points::<V, ENERGY>(t, p, s, [&mut dv[v..], &mut en[v..], &mut cnt[v..]]);
+    let wide = n - n % (TILES * V::N);
+    for v in (0..wide).step_by(TILES * V::N) {
+        points::<V, TILES, ENERGY>(t, v, s, [&mut dv, &mut en, &mut cnt]);
+    }
+    for v in (wide..n).step_by(V::N) {
+        points::<V, 1, ENERGY>(t, v, s, [&mut dv, &mut en, &mut cnt]);
     }
     s.dv = dv;
     s.en = en;
