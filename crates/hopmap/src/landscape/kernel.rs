@@ -15,7 +15,9 @@
 //! with the kind's constants held in registers. Each list is cut in two: the *core*, images
 //! within the cutoff of every point of the block (no test, no mask: the count grows by the
 //! list's length), and the *shell*, where each lane is tested, a vector none of whose lanes
-//! is inside is skipped after its distances, and a lane outside gets weight 0.
+//! is inside is skipped after its distances, and a lane outside gets weight 0. The anion runs
+//! take two vectors of points per image ([`TILES`]: one load of the image, two independent
+//! chains); the screened Coulomb runs, with more constants in registers, one.
 //!
 //! **Arithmetic per pair** (f32): the distance (3 subtractions, a multiplication and two FMAs,
 //! a square root); per anion term `x = exp((Rmin - R)/b)` (one FMA for the argument, the
