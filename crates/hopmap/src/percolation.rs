@@ -1060,18 +1060,7 @@ pub fn percolate_levels(grid: &Grid, ceiling: f32, levels: &[f32]) -> Percolatio
 /// As [`percolate_levels`] with the visiting order already computed by [`visit_order`] (so
 /// that callers measuring the stages, or reusing the order, do not sort twice).
 pub fn percolate_in_order(grid: &Grid, ceiling: f32, order: &[u64], levels: &[f32]) -> Percolation {
-    sweep_grid(grid, ceiling, order, levels, &[]).finish_with(ceiling)
-}
-
-#[cfg(test)]
-fn percolate_levels_marked(
-    grid: &Grid,
-    ceiling: f32,
-    levels: &[f32],
-    marks: &[usize],
-) -> Percolation {
-    let order = visit_order(&grid.values, ceiling);
-    sweep_grid(grid, ceiling, &order, levels, marks).finish_with(ceiling)
+    sweep_grid(grid, ceiling, order, levels, &[], Settle::Yes).finish_with(ceiling)
 }
 
 /// As [`percolate`], with marked points: the occupied sites of the mobile ion, say. Every
@@ -1080,7 +1069,7 @@ fn percolate_levels_marked(
 /// sits, not from a deeper empty pocket of the landscape.
 pub fn percolate_marked(grid: &Grid, ceiling: f32, marks: &[usize]) -> Percolation {
     let order = visit_order(&grid.values, ceiling);
-    sweep_grid(grid, ceiling, &order, &[], marks).finish_with(ceiling)
+    sweep_grid(grid, ceiling, &order, &[], marks, Settle::Yes).finish_with(ceiling)
 }
 
 struct GridSweep<'a> {
@@ -1100,6 +1089,7 @@ fn sweep_grid<'a>(
     order: &[u64],
     levels: &[f32],
     marks: &[usize],
+    settle: Settle,
 ) -> GridSweep<'a> {
     let mut sweep = Sweep::new(&grid.values, &grid.lattice);
     sweep.set_marks(marks);
@@ -1187,7 +1177,7 @@ fn sweep_grid<'a>(
         }
         if pos + 1 == order.len() || order[pos + 1] >> 32 != key >> 32 {
             sweep.end_group(e);
-            if settled.is_none() {
+            if settled.is_none() && settle == Settle::Yes {
                 settled = sweep.largest_of_rank(3);
             }
         }
@@ -1200,6 +1190,16 @@ fn sweep_grid<'a>(
         sweep,
         levels: stats,
     }
+}
+
+/// Whether the grid sweep settles the first 3D region (see `sweep_grid`). The sweep's result
+/// is the same either way; the union-find left behind is not: with `Yes`, the voxels that
+/// joined the settled region by the bit maps have no record, and its winding lattice is no
+/// longer kept.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Settle {
+    Yes,
+    No,
 }
 
 /// Two bits per voxel for the grid sweep: added, and in the settled region.
@@ -1261,7 +1261,9 @@ pub fn regions_at(grid: &Grid, level: f32) -> RegionMap {
     regions_from(
         grid,
         level,
-        sweep_grid(grid, ceiling, &order, &[], &[]).sweep,
+        // every voxel through the union-find: the map reads the winding lattice of every
+        // region, that of the 3D ones included
+        sweep_grid(grid, ceiling, &order, &[], &[], Settle::No).sweep,
         &order,
     )
 }
@@ -1327,40 +1329,6 @@ mod tests {
         }
     }
 
-    /// The grid sweep without its settled region: every voxel through the union-find. The
-    /// reference for the test below.
-    fn sweep_without_settling(
-        grid: &Grid,
-        ceiling: f32,
-        levels: &[f32],
-        marks: &[usize],
-    ) -> Percolation {
-        let order = visit_order(&grid.values, ceiling);
-        let mut sweep = Sweep::new(&grid.values, &grid.lattice);
-        sweep.set_marks(marks);
-        let mut lv = levels.to_vec();
-        lv.sort_by(|a, b| a.total_cmp(b));
-        let (mut stats, mut li) = (vec![], 0);
-        for (pos, &key) in order.iter().enumerate() {
-            let (x, e) = (key_index(key), key_value(key));
-            while li < lv.len() && lv[li] < e {
-                stats.push(sweep.level_stats(lv[li]));
-                li += 1;
-            }
-            sweep.add(x, e);
-            for (v, t) in face_neighbours(grid.dims, grid.ijk(x)) {
-                if sweep.is_added(v) {
-                    sweep.join(x, v, t);
-                }
-            }
-            if pos + 1 == order.len() || order[pos + 1] >> 32 != key >> 32 {
-                sweep.end_group(e);
-            }
-        }
-        stats.extend(lv[li..].iter().map(|&l| sweep.level_stats(l)));
-        sweep.finish(ceiling, stats)
-    }
-
     #[test]
     fn the_settled_region_changes_no_field_of_the_result() {
         // random values (some quantised so that many voxels tie, some smooth, some walled by
@@ -1421,9 +1389,16 @@ mod tests {
             let ceiling = if case % 5 == 0 { 0.7 } else { f32::INFINITY };
             let marks: Vec<usize> = (0..n).filter(|x| x % 7 == case % 7).collect();
             let levels = [0.1f32, 0.5, 0.45, 0.95, 2.0];
-            let settled = percolate_levels_marked(&grid, ceiling, &levels, &marks);
-            let reference = sweep_without_settling(&grid, ceiling, &levels, &marks);
+            let order = visit_order(&grid.values, ceiling);
+            let settled = sweep_grid(&grid, ceiling, &order, &levels, &marks, Settle::Yes)
+                .finish_with(ceiling);
+            let reference = sweep_grid(&grid, ceiling, &order, &levels, &marks, Settle::No)
+                .finish_with(ceiling);
             assert_eq!(settled, reference, "case {case}, dims {dims:?}");
+            // the region map keeps every record (it reads the 3D regions' lattices too)
+            let map = regions_at(&grid, 0.95);
+            let open = grid.values.iter().filter(|&&v| v <= 0.95).count();
+            assert_eq!(map.label.iter().filter(|&&l| l != NONE).count(), open);
             compared += settled.openings.len();
             if let Some(t) = &settled.thresholds[2] {
                 late += settled
