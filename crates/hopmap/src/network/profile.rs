@@ -22,7 +22,8 @@
 use crate::grid::Grid;
 use crate::lattice::Frac;
 use crate::percolation::{
-    FastMap, Percolation, Threshold, face_neighbours, hnf, in_lattice, total_key,
+    FastMap, Offset, Percolation, Threshold, face_neighbours, hnf, in_lattice, offsets_fit_i16,
+    total_key,
 };
 use nalgebra::Vector3;
 use rayon::prelude::*;
@@ -629,7 +630,25 @@ fn least_cost_in_windows(
 /// generating the winding lattice of that region (any spanning tree's fundamental cycles do);
 /// then the flood goes on through the voxels equal to `level` it met. No queue ordered by
 /// value, and each voxel is visited once.
+///
+/// Each voxel's image is kept in `i16` where the grid's shape bounds it (see
+/// [`crate::percolation::Offset`]): 6 bytes per point instead of 12, so that the flood's
+/// front stays in cache longer on large grids.
 fn bottleneck_is(
+    grid: &Grid,
+    start: usize,
+    translation: [i32; 3],
+    level: f32,
+    ceiling: f32,
+) -> bool {
+    if offsets_fit_i16(grid.dims) {
+        bottleneck_is_with::<i16>(grid, start, translation, level, ceiling)
+    } else {
+        bottleneck_is_with::<i32>(grid, start, translation, level, ceiling)
+    }
+}
+
+fn bottleneck_is_with<O: Offset>(
     grid: &Grid,
     start: usize,
     translation: [i32; 3],
@@ -641,14 +660,15 @@ fn bottleneck_is(
         return false;
     }
     let target = translation.map(i64::from);
-    const UNSEEN: i32 = i32::MIN;
-    let mut image = vec![[UNSEEN, 0, 0]; values.len()];
+    // images are bounded well inside i16 (see `Offset`): this one is never reached
+    let unseen = i16::MIN as i32;
+    let mut image = vec![[O::put(unseen), O::put(0), O::put(0)]; values.len()];
     let mut rows: Vec<[i64; 3]> = Vec::new();
     let mut queue: Vec<u32> = Vec::new();
     // voxels equal to `level` met in the first flood, with the image they were met in
     let mut at_level: Vec<(u32, [i32; 3])> = Vec::new();
     if values[start] < level {
-        image[start] = [0, 0, 0];
+        image[start] = [O::put(0); 3];
         queue.push(start as u32);
     } else {
         at_level.push((start as u32, [0, 0, 0]));
@@ -666,10 +686,13 @@ fn bottleneck_is(
         if second {
             for &(y, iy) in &at_level {
                 let y = y as usize;
-                if image[y][0] == UNSEEN {
-                    image[y] = iy;
+                if image[y][0].get() == unseen {
+                    image[y] = iy.map(O::put);
                     queue.push(y as u32);
-                } else if close(&mut rows, [0, 1, 2].map(|a| (iy[a] - image[y][a]) as i64)) {
+                } else if close(
+                    &mut rows,
+                    [0, 1, 2].map(|a| (iy[a] - image[y][a].get()) as i64),
+                ) {
                     return true;
                 }
             }
@@ -678,12 +701,15 @@ fn bottleneck_is(
         while head < queue.len() {
             let x = queue[head] as usize;
             head += 1;
-            let ix = image[x];
+            let ix = image[x].map(O::get);
             for (y, t) in face_neighbours(grid.dims, grid.ijk(x)) {
                 let iy = [ix[0] + t[0], ix[1] + t[1], ix[2] + t[2]];
-                if image[y][0] != UNSEEN {
+                if image[y][0].get() != unseen {
                     // a loop (y == x on an axis of one point is a loop of one step)
-                    if close(&mut rows, [0, 1, 2].map(|a| (iy[a] - image[y][a]) as i64)) {
+                    if close(
+                        &mut rows,
+                        [0, 1, 2].map(|a| (iy[a] - image[y][a].get()) as i64),
+                    ) {
                         // below the level: the bottleneck is lower
                         return second;
                     }
@@ -691,11 +717,11 @@ fn bottleneck_is(
                 }
                 let v = values[y];
                 if v < level {
-                    image[y] = iy;
+                    image[y] = iy.map(O::put);
                     queue.push(y as u32);
                 } else if v == level {
                     if second {
-                        image[y] = iy;
+                        image[y] = iy.map(O::put);
                         queue.push(y as u32);
                     } else {
                         at_level.push((y as u32, iy));
