@@ -1177,7 +1177,8 @@ fn sweep_grid<'a>(
         }
         if pos + 1 == order.len() || order[pos + 1] >> 32 != key >> 32 {
             sweep.end_group(e);
-            if settled.is_none() && settle == Settle::Yes {
+            // (the regions with windings are looked through only once one has rank 3)
+            if settled.is_none() && settle == Settle::Yes && sweep.in_rank[3] > 0 {
                 settled = sweep.largest_of_rank(3);
             }
         }
@@ -1301,6 +1302,18 @@ fn regions_from(grid: &Grid, level: f32, mut sweep: Sweep<'_>, order: &[u64]) ->
     }
 }
 
+/// A small deterministic random source for the unit tests (xorshift64), uniform in [0, 1).
+#[cfg(test)]
+pub(crate) fn xorshift(seed: u64) -> impl FnMut() -> f64 {
+    let mut state = seed;
+    move || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        (state >> 11) as f64 / (1u64 << 53) as f64
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -1344,13 +1357,7 @@ mod tests {
             gamma: 90.0,
         })
         .unwrap();
-        let mut state = 0x9e37_79b9_7f4a_7c15u64;
-        let mut next = move || {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            (state >> 11) as f64 / (1u64 << 53) as f64
-        };
+        let mut next = xorshift(0x9e37_79b9_7f4a_7c15);
         let (mut compared, mut late) = (0, 0);
         for case in 0..80 {
             let frames = case % 4 == 3;

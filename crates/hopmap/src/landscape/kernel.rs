@@ -707,6 +707,29 @@ fn coulomb<V: Lanes>(c: &CationConstants, d2: V, r: V) -> V {
     inv.mul(simd::exp_in_range(arg))
 }
 
+/// Squared distances from `T` vectors of points to one image, and which lanes lie within
+/// `limit2`; None when `SHELL` and no lane of any vector does (the image is then skipped).
+#[inline(always)]
+#[allow(clippy::type_complexity)]
+fn near<V: Lanes, const T: usize, const SHELL: bool>(
+    p: &[(V, V, V); T],
+    image: [f32; 3],
+    limit2: V,
+) -> Option<([V; T], [V::Mask; T])> {
+    let zero = V::splat(0.0);
+    let mut d2 = [zero; T];
+    let mut inside = [zero.lt(zero); T];
+    let mut any = false;
+    for t in 0..T {
+        d2[t] = dist2_run(p[t].0, p[t].1, p[t].2, image[0], image[1], image[2]);
+        inside[t] = d2[t].lt(limit2);
+        if SHELL {
+            any |= V::any(inside[t]);
+        }
+    }
+    (!SHELL || any).then_some((d2, inside))
+}
+
 /// Running sums of one vector of points: bond-valence sum (v.u.), energy (eV), pairs counted.
 #[derive(Clone, Copy)]
 struct Sums<V> {
@@ -744,19 +767,9 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
     );
     let mut sums = *acc;
     for j in 0..n {
-        let mut d2 = [zero; T];
-        let mut inside = [zero.lt(zero); T];
-        let mut any = false;
-        for t in 0..T {
-            d2[t] = dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]);
-            inside[t] = d2[t].lt(cutoff2);
-            if SHELL {
-                any |= V::any(inside[t]);
-            }
-        }
-        if SHELL && !any {
+        let Some((d2, inside)) = near::<V, T, SHELL>(p, [xs[j], ys[j], zs[j]], cutoff2) else {
             continue;
-        }
+        };
         let (wj, w2j) = (V::splat(ws[j]), V::splat(w2s[j]));
         for t in 0..T {
             // lanes outside the cutoff are masked below; held at the cutoff, their exponent
@@ -813,19 +826,9 @@ fn cation_run<V: Lanes, const T: usize, const SHELL: bool>(
     let (xs, ys, zs, ws) = (&run.x[..n], &run.y[..n], &run.z[..n], &run.w[..n]);
     let mut sums = *acc;
     for j in 0..n {
-        let mut d2 = [zero; T];
-        let mut inside = [zero.lt(zero); T];
-        let mut any = false;
-        for t in 0..T {
-            d2[t] = dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]);
-            inside[t] = d2[t].lt(reach2);
-            if SHELL {
-                any |= V::any(inside[t]);
-            }
-        }
-        if SHELL && !any {
+        let Some((d2, inside)) = near::<V, T, SHELL>(p, [xs[j], ys[j], zs[j]], reach2) else {
             continue;
-        }
+        };
         let wj = V::splat(ws[j]);
         for t in 0..T {
             // masked lanes held at the reach, where the exponent stays in range

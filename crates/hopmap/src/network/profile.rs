@@ -1001,13 +1001,7 @@ mod bottleneck_tests {
             gamma: 112.0,
         })
         .unwrap();
-        let mut state = 0x2545_f491_4f6c_dd1du64;
-        let mut next = move || {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            (state >> 11) as f64 / (1u64 << 53) as f64
-        };
+        let mut next = crate::percolation::xorshift(0x2545_f491_4f6c_dd1d);
         let mut out = Vec::new();
         for dims in [[6, 5, 4], [1, 6, 6], [2, 2, 9], [9, 8, 7], [12, 11, 10]] {
             for quantum in [None, Some(6.0)] {
