@@ -299,6 +299,9 @@ struct Covering {
     pages: Vec<Page>,
 }
 
+/// Cells from the start's that the covering's keys hold along each axis (10 bits, biased).
+const CELL_BIAS: i64 = 512;
+
 /// log2 of the slots per page of the covering.
 const PAGE_BITS: u32 = 12;
 const PAGE: usize = 1 << PAGE_BITS;
@@ -332,12 +335,20 @@ impl Covering {
     /// more from the start's along some axis.
     #[inline]
     fn slot_of(cell: [i64; 3], index: u64) -> Option<u64> {
-        const BIAS: i64 = 512;
-        if cell.iter().any(|c| c.abs() >= BIAS) {
+        if cell.iter().any(|c| c.abs() >= CELL_BIAS) {
             return None;
         }
-        let c = |x: i64| (x + BIAS) as u64;
+        let c = |x: i64| (x + CELL_BIAS) as u64;
         Some(index | (c(cell[0]) << 32) | (c(cell[1]) << 42) | (c(cell[2]) << 52))
+    }
+    /// The cell and the voxel coordinates of the point of a key (the inverse of
+    /// [`Covering::slot_of`]) on a grid of `n` points.
+    #[inline]
+    fn point_of(slot: u64, n: [usize; 3]) -> ([i64; 3], [usize; 3]) {
+        let cell = [32, 42, 52].map(|shift| ((slot >> shift) & 0x3ff) as i64 - CELL_BIAS);
+        let index = (slot & 0xffff_ffff) as usize;
+        let r = [index / (n[1] * n[2]), (index / n[2]) % n[1], index % n[2]];
+        (cell, r)
     }
     /// Cost and arriving direction (0..6, or [`SOURCE`]) of a point reached.
     fn get(&self, slot: u64) -> Option<(f64, u8)> {
@@ -518,9 +529,10 @@ fn least_cost_path(
     let target = store.slot(to)?;
     store.set(s, 0.0, SOURCE);
     let mut heap = BinaryHeap::new();
-    heap.push(Reverse((estimate(from).to_bits(), u64::MAX, s, from)));
+    // entries (f, u64::MAX - g, slot): the slot names the point (24 bytes per entry)
+    heap.push(Reverse((estimate(from).to_bits(), u64::MAX, s)));
     let mut reached = false;
-    while let Some(Reverse((_, gneg, slot, p))) = heap.pop() {
+    while let Some(Reverse((_, gneg, slot))) = heap.pop() {
         let g = f64::from_bits(u64::MAX - gneg);
         if slot == target {
             reached = true;
@@ -529,8 +541,7 @@ fn least_cost_path(
         if store.get(slot).is_some_and(|(b, _)| b < g) {
             continue;
         }
-        let cell = [0, 1, 2].map(|a| p[a].div_euclid(dims[a]));
-        let r = [0, 1, 2].map(|a| p[a].rem_euclid(dims[a]) as usize);
+        let (cell, r) = Covering::point_of(slot, n);
         let terms = [0, 1, 2].map(|a| term(a, cell[a], r[a]));
         for dir in 0..6 {
             let a = dir / 2;
@@ -569,9 +580,7 @@ fn least_cost_path(
                 let mut tq = terms;
                 tq[a] = term(a, c, ra);
                 let f = nd + tq.iter().copied().sum::<f64>();
-                let mut q = p;
-                q[a] += if dir % 2 == 0 { 1 } else { -1 };
-                heap.push(Reverse((f.to_bits(), u64::MAX - nd.to_bits(), qs, q)));
+                heap.push(Reverse((f.to_bits(), u64::MAX - nd.to_bits(), qs)));
             }
         }
     }
@@ -980,6 +989,33 @@ mod tests {
             assert_eq!(store.get(slot), Some(v));
         }
         assert!(store.slot([0, 0, 512 * 300]).is_none());
+    }
+
+    #[test]
+    fn a_key_gives_back_its_point() {
+        // exact: p = cell * n + r along each axis, for points within the keys' range of cells
+        let n = [7usize, 5, 300];
+        let store = Covering::new(n.map(|x| x as i64));
+        let mut state = 777u64;
+        let mut seen = 0;
+        for _ in 0..20_000 {
+            state = state
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            let p = [0, 1, 2].map(|a| ((state >> (16 * a + 8)) % 8000) as i64 - 4000);
+            let Some(slot) = store.slot(p) else { continue };
+            seen += 1;
+            let (cell, r) = Covering::point_of(slot, n);
+            for a in 0..3 {
+                assert_eq!(cell[a] * n[a] as i64 + r[a] as i64, p[a], "{p:?} axis {a}");
+                assert!(r[a] < n[a]);
+            }
+        }
+        assert!(seen > 10_000);
+        for p in [[-511 * 7, 511 * 5 + 4, -511 * 300], [0, 0, 0], [6, 4, 299]] {
+            let (cell, r) = Covering::point_of(store.slot(p).unwrap(), n);
+            assert_eq!([0, 1, 2].map(|a| cell[a] * n[a] as i64 + r[a] as i64), p);
+        }
     }
 }
 
