@@ -297,6 +297,8 @@ struct Covering {
     /// Page key (slot >> [`PAGE_BITS`]) -> position in `pages`.
     index: FastMap<u64, u32>,
     pages: Vec<Page>,
+    /// The page found last: (key, position in `pages`); no key is `u64::MAX`.
+    last: std::cell::Cell<(u64, u32)>,
 }
 
 /// Cells from the start's that the covering's keys hold along each axis (10 bits, biased).
@@ -321,6 +323,7 @@ impl Covering {
             dims,
             index: FastMap::default(),
             pages: Vec::new(),
+            last: std::cell::Cell::new((u64::MAX, 0)),
         }
     }
     /// Key of a point; None for cells 512 or more from the start's along some axis.
@@ -352,14 +355,32 @@ impl Covering {
     }
     /// Cost and arriving direction (0..6, or [`SOURCE`]) of a point reached.
     fn get(&self, slot: u64) -> Option<(f64, u8)> {
-        let page = &self.pages[*self.index.get(&(slot >> PAGE_BITS))? as usize];
+        let page = &self.pages[self.page_of(slot >> PAGE_BITS)? as usize];
         let at = slot as usize & (PAGE - 1);
         let dir = page.dir[at];
         (dir != UNREACHED).then(|| (page.cost[at], dir))
     }
+    /// Position in `pages` of the page with key `key`, if made: the last page found is
+    /// remembered, since a search's consecutive look-ups mostly fall in one page.
+    #[inline]
+    fn page_of(&self, key: u64) -> Option<u32> {
+        let (last_key, last) = self.last.get();
+        if key == last_key {
+            return Some(last);
+        }
+        let k = *self.index.get(&key)?;
+        self.last.set((key, k));
+        Some(k)
+    }
     fn set(&mut self, slot: u64, cost: f64, dir: u8) {
         let next = self.pages.len() as u32;
-        let k = *self.index.entry(slot >> PAGE_BITS).or_insert(next);
+        let k = match self.page_of(slot >> PAGE_BITS) {
+            Some(k) => k,
+            None => {
+                self.index.insert(slot >> PAGE_BITS, next);
+                next
+            }
+        };
         if k == next {
             self.pages.push(Page {
                 cost: vec![0.0; PAGE].into_boxed_slice(),
