@@ -1189,17 +1189,19 @@ pub(crate) fn compute_simd(
                     return 0;
                 }
                 let radius = layout.radius;
-                let (near_a, near_c, near_m) = (
-                    std::mem::take(&mut s.near_a),
-                    std::mem::take(&mut s.near_c),
-                    std::mem::take(&mut s.near_m),
-                );
-                near_a.near_kinds(&t.anions, &t.anion_reach, *centre, radius, &mut s.anions);
+                let s = &mut *s;
+                s.near_a
+                    .near_kinds(&t.anions, &t.anion_reach, *centre, radius, &mut s.anions);
                 if energy {
-                    near_c.near_kinds(&t.cations, &t.cation_reach, *centre, radius, &mut s.cations);
-                    near_m.near(&t.mobile, *centre, radius, &mut s.mobile);
+                    s.near_c.near_kinds(
+                        &t.cations,
+                        &t.cation_reach,
+                        *centre,
+                        radius,
+                        &mut s.cations,
+                    );
+                    s.near_m.near(&t.mobile, *centre, radius, &mut s.mobile);
                 }
-                (s.near_a, s.near_c, s.near_m) = (near_a, near_c, near_m);
                 if energy {
                     block_with::<true>(isa, &t, layout, s)
                 } else {

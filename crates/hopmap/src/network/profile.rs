@@ -983,17 +983,38 @@ pub fn path_between(
 mod tests {
     use super::*;
 
-    #[test]
-    fn the_paged_covering_keeps_what_a_hash_map_keeps() {
-        // oracle: the standard library's HashMap, keyed by the same slots
-        let mut store = Covering::new([7, 5, 300]);
-        let mut reference = std::collections::HashMap::new();
-        let mut state = 12345u64;
-        for i in 0..20_000 {
+    /// `count` points with coordinates in [-half, half) along each axis, from a linear
+    /// congruential generator (Knuth's MMIX constants); every other point is a neighbour of the
+    /// one before, so that consecutive look-ups often fall in one page of the covering.
+    fn points(seed: u64, half: i64, count: usize) -> Vec<[i64; 3]> {
+        let mut state = seed;
+        let mut out: Vec<[i64; 3]> = Vec::with_capacity(count);
+        for i in 0..count {
             state = state
                 .wrapping_mul(6364136223846793005)
                 .wrapping_add(1442695040888963407);
-            let p = [0, 1, 2].map(|a| ((state >> (16 * a + 8)) % 4000) as i64 - 2000);
+            let p = match out.last() {
+                Some(&q) if i % 2 == 1 => {
+                    let mut p = q;
+                    p[(state >> 40) as usize % 3] += if state >> 63 == 0 { 1 } else { -1 };
+                    p
+                }
+                _ => [0, 1, 2].map(|a| ((state >> (16 * a + 8)) % (2 * half as u64)) as i64 - half),
+            };
+            out.push(p);
+        }
+        out
+    }
+
+    #[test]
+    fn the_paged_covering_keeps_what_a_hash_map_keeps() {
+        // oracle: the standard library's HashMap, keyed by the same slots; points spread over
+        // many cells, then a dense walk whose pages are found again and again (the remembered
+        // page of the covering)
+        let mut store = Covering::new([7, 5, 300]);
+        let mut reference = std::collections::HashMap::new();
+        let spread = points(12345, 2000, 20_000).into_iter();
+        for (i, p) in spread.chain(points(54321, 40, 20_000)).enumerate() {
             let Some(slot) = store.slot(p) else { continue };
             assert_eq!(
                 store.get(slot),
@@ -1017,13 +1038,8 @@ mod tests {
         // exact: p = cell * n + r along each axis, for points within the keys' range of cells
         let n = [7usize, 5, 300];
         let store = Covering::new(n.map(|x| x as i64));
-        let mut state = 777u64;
         let mut seen = 0;
-        for _ in 0..20_000 {
-            state = state
-                .wrapping_mul(6364136223846793005)
-                .wrapping_add(1442695040888963407);
-            let p = [0, 1, 2].map(|a| ((state >> (16 * a + 8)) % 8000) as i64 - 4000);
+        for p in points(777, 4000, 20_000) {
             let Some(slot) = store.slot(p) else { continue };
             seen += 1;
             let (cell, r) = Covering::point_of(slot, n);
