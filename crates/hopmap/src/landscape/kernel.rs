@@ -19,7 +19,10 @@
 //! list's length), and the *shell*, where each lane is tested, a vector none of whose lanes
 //! is inside is skipped after its distances, and a lane outside gets weight 0. The anion runs
 //! take two vectors of points per image ([`TILES`]: one load of the image, two independent
-//! chains); the screened Coulomb runs, with more constants in registers, one.
+//! chains); the screened Coulomb runs, with more constants in registers, one. The anion core
+//! is software-pipelined over three images (the sum of one, the exponential's reduction of the
+//! next, the distance of the one after), so that the scheduler holds work whose inputs are
+//! ready; the images are still summed in order, so the values do not change.
 //!
 //! **Arithmetic per pair** (f32): the distance (3 subtractions, a multiplication and two FMAs,
 //! a square root); per anion term `x = exp((Rmin - R)/b)` (one FMA for the argument, the
@@ -788,12 +791,33 @@ fn near<V: Lanes, const T: usize, const SHELL: bool>(
     (!SHELL || any).then_some((d2, inside))
 }
 
+/// The first half of the exponential (clamped first when `CLAMP`).
+#[inline(always)]
+fn reduce<V: Lanes, const CLAMP: bool>(arg: V) -> (V, V) {
+    if CLAMP {
+        simd::exp_reduce(arg.max(V::splat(-87.0)).min(V::splat(87.0)))
+    } else {
+        simd::exp_reduce(arg)
+    }
+}
+
 /// Running sums of one vector of points: bond-valence sum (v.u.), energy (eV), pairs counted.
 #[derive(Clone, Copy)]
 struct Sums<V> {
     bvs: V,
     energy: V,
     count: V,
+}
+
+/// Adds one anion term `x = exp((Rmin - R)/b)` with weights `w` (bond valence) and `w2`
+/// (Morse, shifted by `-neg_cut` so that it vanishes at the cutoff).
+#[inline(always)]
+fn add_bond<V: Lanes, const ENERGY: bool>(s: &mut Sums<V>, x: V, w: V, w2: V, neg_cut: V) {
+    s.bvs = w.fma(x, s.bvs);
+    if ENERGY {
+        let morse = x.fma(x.sub(V::splat(2.0)), neg_cut);
+        s.energy = w2.fma(morse, s.energy);
+    }
 }
 
 /// Adds one run of images of an anion kind to `T` vectors of points at once (each image's
@@ -811,7 +835,6 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
 ) {
     let zero = V::splat(0.0);
     let one = V::splat(1.0);
-    let two = V::splat(2.0);
     let cutoff2 = V::splat(c.cutoff2);
     let (slope, offset) = (V::splat(c.neg_inv_b), V::splat(c.rmin_inv_b));
     let neg_cut = V::splat(-c.morse_cut);
@@ -824,7 +847,39 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
         &run.w2[..n],
     );
     let mut sums = *acc;
-    for j in 0..n {
+    let mut start = 0;
+    if !SHELL && n >= 2 {
+        // Software pipeline over three images: the sum of image j - 2, the reduction of image
+        // j - 1 and the distance of image j, so that the scheduler sees work whose inputs are
+        // ready. The images are still summed in order.
+        let mut ra = [zero; T];
+        let mut tb = [zero; T];
+        let mut sb = [zero; T];
+        for t in 0..T {
+            let r0 = dist2_run(p[t].0, p[t].1, p[t].2, xs[0], ys[0], zs[0]).sqrt();
+            (tb[t], sb[t]) = reduce::<V, CLAMP>(r0.fma(slope, offset));
+            ra[t] = dist2_run(p[t].0, p[t].1, p[t].2, xs[1], ys[1], zs[1]).sqrt();
+        }
+        for j in 2..n {
+            let (wc, w2c) = (V::splat(ws[j - 2]), V::splat(w2s[j - 2]));
+            for t in 0..T {
+                let x = simd::exp_finish(tb[t], sb[t]);
+                add_bond::<V, ENERGY>(&mut sums[t], x, wc, w2c, neg_cut);
+                (tb[t], sb[t]) = reduce::<V, CLAMP>(ra[t].fma(slope, offset));
+                ra[t] = dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]).sqrt();
+            }
+        }
+        for j in n - 2..n {
+            let (wc, w2c) = (V::splat(ws[j]), V::splat(w2s[j]));
+            for t in 0..T {
+                let x = simd::exp_finish(tb[t], sb[t]);
+                add_bond::<V, ENERGY>(&mut sums[t], x, wc, w2c, neg_cut);
+                (tb[t], sb[t]) = reduce::<V, CLAMP>(ra[t].fma(slope, offset));
+            }
+        }
+        start = n;
+    }
+    for j in start..n {
         let Some((d2, inside)) = near::<V, T, SHELL>(p, [xs[j], ys[j], zs[j]], cutoff2) else {
             continue;
         };
@@ -851,11 +906,7 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
             } else {
                 (wj, w2j)
             };
-            sums[t].bvs = w.fma(x, sums[t].bvs);
-            if ENERGY {
-                let morse = x.fma(x.sub(two), neg_cut);
-                sums[t].energy = w2.fma(morse, sums[t].energy);
-            }
+            add_bond::<V, ENERGY>(&mut sums[t], x, w, w2, neg_cut);
         }
     }
     if !SHELL {

@@ -104,9 +104,12 @@ pub trait Lanes: Copy {
     /// Lanes of `a` where the mask is set, else lanes of `b`.
     fn select(m: Self::Mask, a: Self, b: Self) -> Self;
     fn any(m: Self::Mask) -> bool;
-    /// `2^n` for `s = n + 1.5 * 2^23` with n a whole number in [-126, 127] (the shifter trick
-    /// of [`exp`]): the low bits of `s` shifted into the exponent field.
-    fn pow2_shifted(s: Self) -> Self;
+    /// `self * 2^n` for `s = n + 1.5 * 2^23` with n a whole number (the shifter trick of
+    /// [`exp`]): the low bits of `s` shifted into the exponent field and added to the
+    /// exponent of `self` (exact while the result is a normal f32, as in [`exp_in_range`],
+    /// whose results are; an integer addition where a product by `2^n` would take a
+    /// multiplication too).
+    fn scale_shifted(self, s: Self) -> Self;
 }
 
 /// `exp(y)` on every lane, the argument clamped to [-87, 87] (the range of normal f32
@@ -124,23 +127,36 @@ pub fn exp<V: Lanes>(y: V) -> V {
 /// bits. Relative error within a few f32 rounding steps of the rounded argument (tested against
 /// `f64::exp`).
 #[inline(always)]
-#[allow(clippy::excessive_precision)] // the split of ln 2 is written out in full
 pub fn exp_in_range<V: Lanes>(y: V) -> V {
+    let (t, s) = exp_reduce(y);
+    exp_finish(t, s)
+}
+
+/// The first half of [`exp_in_range`]: the reduced argument `t` and the shifted `n`.
+#[inline(always)]
+#[allow(clippy::excessive_precision)] // the split of ln 2 is written out in full
+pub fn exp_reduce<V: Lanes>(y: V) -> (V, V) {
     const LOG2E: f32 = std::f32::consts::LOG2_E;
     // ln 2 split so that n * LN2_HI is exact for |n| < 2^9
     const LN2_HI: f32 = 0.693_145_751_953_125;
     const LN2_LO: f32 = 1.428_606_765_330_187e-6;
-    const SHIFTER: f32 = 12_582_912.0; // 1.5 * 2^23
     let s = y.fma(V::splat(LOG2E), V::splat(SHIFTER));
     let n = s.sub(V::splat(SHIFTER));
     let t = n.fma(V::splat(-LN2_HI), y);
-    let t = n.fma(V::splat(-LN2_LO), t);
+    (n.fma(V::splat(-LN2_LO), t), s)
+}
+
+/// The second half of [`exp_in_range`]: the polynomial in `t`, scaled by `2^n`.
+#[inline(always)]
+pub fn exp_finish<V: Lanes>(t: V, s: V) -> V {
     let mut p = V::splat(EXP_POLY[5]);
     for c in EXP_POLY[..5].iter().rev() {
         p = p.fma(t, V::splat(*c));
     }
-    p.mul(V::pow2_shifted(s))
+    p.scale_shifted(s)
 }
+
+const SHIFTER: f32 = 12_582_912.0; // 1.5 * 2^23
 
 /// Coefficients of t^0 .. t^5 of the polynomial of [`exp_in_range`], rounded to f32.
 #[allow(clippy::excessive_precision)]
@@ -287,10 +303,10 @@ impl<const N: usize, const FUSED: bool> Lanes for Wide<N, FUSED> {
         m.iter().fold(false, |a, &b| a | b)
     }
     #[inline(always)]
-    fn pow2_shifted(s: Self) -> Self {
+    fn scale_shifted(self, s: Self) -> Self {
         let mut r = [0.0; N];
         for i in 0..N {
-            r[i] = f32::from_bits((s.0[i].to_bits() << 23).wrapping_add(127 << 23));
+            r[i] = f32::from_bits(self.0[i].to_bits().wrapping_add(s.0[i].to_bits() << 23));
         }
         Wide(r)
     }
