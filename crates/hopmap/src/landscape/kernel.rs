@@ -19,8 +19,8 @@
 //! list's length), and the *shell*, where each lane is tested, a vector none of whose lanes
 //! is inside is skipped after its distances, and a lane outside gets weight 0. The anion runs
 //! take two vectors of points per image ([`TILES`]: one load of the image, two independent
-//! chains); the screened Coulomb runs, with more constants in registers, one. The anion core
-//! is software-pipelined over three images (the sum of one, the exponential's reduction of the
+//! chains); the screened Coulomb runs, with more constants in registers, one. The cores of
+//! both are software-pipelined over three images (the sum of one, the exponential's reduction of the
 //! next, the distance of the one after), so that the scheduler holds work whose inputs are
 //! ready; the images are still summed in order, so the values do not change.
 //!
@@ -762,10 +762,26 @@ fn dist2_run<V: Lanes>(px: V, py: V, pz: V, x: f32, y: f32, z: f32) -> V {
 /// (R <= 6.5 rho) the exponent lies in [-44, 0], so the exponential needs no clamp.
 #[inline(always)]
 fn coulomb<V: Lanes>(c: &CationConstants, d2: V, r: V) -> V {
+    let (inv, t, s) = coulomb_reduce(c, d2, r);
+    inv.mul(simd::exp_finish(t, s))
+}
+
+/// The squared distance held at the guard `g2` and the distance.
+#[inline(always)]
+fn guarded<V: Lanes>(d2: V, g2: V) -> (V, V) {
+    let d2 = d2.max(g2);
+    (d2, d2.sqrt())
+}
+
+/// [`coulomb`] up to the exponential's reduction: `1/(R (1 + z/2))` and the reduced
+/// argument and shifted exponent of `exp(-z^2 + P(t))`, for [`simd::exp_finish`].
+#[inline(always)]
+fn coulomb_reduce<V: Lanes>(c: &CationConstants, d2: V, r: V) -> (V, V, V) {
     let inv = V::splat(1.0).div(V::splat(c.half_inv_rho).fma(d2, r));
     let t = inv.mul(r);
     let arg = V::splat(-c.inv_rho2).fma(d2, simd::erfc_poly(t));
-    inv.mul(simd::exp_in_range(arg))
+    let (t, s) = simd::exp_reduce(arg);
+    (inv, t, s)
 }
 
 /// Squared distances from `T` vectors of points to one image, and which lanes lie within
@@ -934,7 +950,39 @@ fn cation_run<V: Lanes, const T: usize, const SHELL: bool>(
     let n = run.x.len();
     let (xs, ys, zs, ws) = (&run.x[..n], &run.y[..n], &run.z[..n], &run.w[..n]);
     let mut sums = *acc;
-    for j in 0..n {
+    let mut start = 0;
+    if !SHELL && n >= 2 {
+        // pipelined as the anion core: the sum of image j - 2, the erfc factor and the
+        // exponential's reduction of image j - 1, the distance of image j (summed in order)
+        let mut da = [(zero, zero); T];
+        let mut tb = [(zero, zero, zero); T];
+        for t in 0..T {
+            let d0 = guarded(dist2_run(p[t].0, p[t].1, p[t].2, xs[0], ys[0], zs[0]), g2);
+            tb[t] = coulomb_reduce(c, d0.0, d0.1);
+            da[t] = guarded(dist2_run(p[t].0, p[t].1, p[t].2, xs[1], ys[1], zs[1]), g2);
+        }
+        for j in 2..n {
+            let wc = V::splat(ws[j - 2]);
+            for t in 0..T {
+                let (inv, tt, ss) = tb[t];
+                let term = inv.mul(simd::exp_finish(tt, ss));
+                sums[t].energy = wc.fma(term, sums[t].energy);
+                tb[t] = coulomb_reduce(c, da[t].0, da[t].1);
+                da[t] = guarded(dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]), g2);
+            }
+        }
+        for j in n - 2..n {
+            let wc = V::splat(ws[j]);
+            for t in 0..T {
+                let (inv, tt, ss) = tb[t];
+                let term = inv.mul(simd::exp_finish(tt, ss));
+                sums[t].energy = wc.fma(term, sums[t].energy);
+                tb[t] = coulomb_reduce(c, da[t].0, da[t].1);
+            }
+        }
+        start = n;
+    }
+    for j in start..n {
         let Some((d2, inside)) = near::<V, T, SHELL>(p, [xs[j], ys[j], zs[j]], reach2) else {
             continue;
         };
