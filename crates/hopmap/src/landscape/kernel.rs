@@ -20,9 +20,9 @@
 //! is inside is skipped after its distances, and a lane outside gets weight 0. The anion runs
 //! take two vectors of points per image ([`TILES`]: one load of the image, two independent
 //! chains); the screened Coulomb runs, with more constants in registers, one. The cores of
-//! both are software-pipelined over three images (the sum of one, the exponential's reduction of the
-//! next, the distance of the one after), so that the scheduler holds work whose inputs are
-//! ready; the images are still summed in order, so the values do not change.
+//! both are software-pipelined over three images (the sum of one, the exponential's reduction
+//! of the next, the distance of the one after), so that the scheduler holds work whose inputs
+//! are ready; the images are still summed in order, so the values do not change.
 //!
 //! **Arithmetic per pair** (f32): the distance (3 subtractions, a multiplication and two FMAs,
 //! a square root); per anion term `x = exp((Rmin - R)/b)` (one FMA for the argument, the
@@ -885,13 +885,14 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
                 ra[t] = dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]).sqrt();
             }
         }
-        for j in n - 2..n {
-            let (wc, w2c) = (V::splat(ws[j]), V::splat(w2s[j]));
-            for t in 0..T {
-                let x = simd::exp_finish(tb[t], sb[t]);
-                add_bond::<V, ENERGY>(&mut sums[t], x, wc, w2c, neg_cut);
-                (tb[t], sb[t]) = reduce::<V, CLAMP>(ra[t].fma(slope, offset));
-            }
+        // the last two images
+        let (wc, w2c) = (V::splat(ws[n - 2]), V::splat(w2s[n - 2]));
+        let (wl, w2l) = (V::splat(ws[n - 1]), V::splat(w2s[n - 1]));
+        for t in 0..T {
+            let x = simd::exp_finish(tb[t], sb[t]);
+            add_bond::<V, ENERGY>(&mut sums[t], x, wc, w2c, neg_cut);
+            let (tl, sl) = reduce::<V, CLAMP>(ra[t].fma(slope, offset));
+            add_bond::<V, ENERGY>(&mut sums[t], simd::exp_finish(tl, sl), wl, w2l, neg_cut);
         }
         start = n;
     }
@@ -971,14 +972,13 @@ fn cation_run<V: Lanes, const T: usize, const SHELL: bool>(
                 da[t] = guarded(dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]), g2);
             }
         }
-        for j in n - 2..n {
-            let wc = V::splat(ws[j]);
-            for t in 0..T {
-                let (inv, tt, ss) = tb[t];
-                let term = inv.mul(simd::exp_finish(tt, ss));
-                sums[t].energy = wc.fma(term, sums[t].energy);
-                tb[t] = coulomb_reduce(c, da[t].0, da[t].1);
-            }
+        // the last two images
+        let (wc, wl) = (V::splat(ws[n - 2]), V::splat(ws[n - 1]));
+        for t in 0..T {
+            let (inv, tt, ss) = tb[t];
+            sums[t].energy = wc.fma(inv.mul(simd::exp_finish(tt, ss)), sums[t].energy);
+            let (inv, tt, ss) = coulomb_reduce(c, da[t].0, da[t].1);
+            sums[t].energy = wl.fma(inv.mul(simd::exp_finish(tt, ss)), sums[t].energy);
         }
         start = n;
     }
