@@ -105,10 +105,9 @@ pub trait Lanes: Copy {
     fn select(m: Self::Mask, a: Self, b: Self) -> Self;
     fn any(m: Self::Mask) -> bool;
     /// `self * 2^n` for `s = n + 1.5 * 2^23` with n a whole number (the shifter trick of
-    /// [`exp`]): the low bits of `s` shifted into the exponent field and added to the
-    /// exponent of `self` (exact while the result is a normal f32, as in [`exp_in_range`],
-    /// whose results are; an integer addition where a product by `2^n` would take a
-    /// multiplication too).
+    /// [`exp`]): the low bits of `s`, shifted into the exponent field, are added to the bits
+    /// of `self`. One integer addition instead of building 2^n and multiplying; exact when
+    /// `self` and the result are normal f32 numbers, as in [`exp_in_range`].
     fn scale_shifted(self, s: Self) -> Self;
 }
 
@@ -123,8 +122,9 @@ pub fn exp<V: Lanes>(y: V) -> V {
 /// argument is bounded by the physics skip the clamp of [`exp`]). Cody-Waite reduction
 /// `y = n ln2 + t`, |t| <= ln2/2, then a degree-5 polynomial in `t` (least-squares fit of
 /// `exp(t)` in relative error on [-ln2/2, ln2/2], largest relative error 7.5e-8 in exact
-/// arithmetic, about 2 f32 rounding steps when evaluated in f32), 2^n built in the exponent
-/// bits. Relative error within a few f32 rounding steps of the rounded argument (tested against
+/// arithmetic, about 2 f32 rounding steps when evaluated in f32), scaled by 2^n through the
+/// exponent bits ([`Lanes::scale_shifted`]; every result in [-87, 87] is a normal f32, so the
+/// scaling is exact). Relative error within a few f32 rounding steps of the rounded argument (tested against
 /// `f64::exp`).
 #[inline(always)]
 pub fn exp_in_range<V: Lanes>(y: V) -> V {
