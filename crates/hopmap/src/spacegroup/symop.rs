@@ -95,7 +95,7 @@ impl SymOp {
                 }
                 let c = chars[i].to_ascii_lowercase();
                 if let Some(col) = "xyz".find(c) {
-                    rot[(row, col)] += sign as i32;
+                    add_coefficient(&mut rot[(row, col)], sign, 1.0).map_err(&err)?;
                     i += 1;
                 } else if c.is_ascii_digit() || c == '.' {
                     let start = i;
@@ -110,10 +110,7 @@ impl SymOp {
                     // a coefficient times an axis, as in "2x" (rare but legal in some writers)
                     if i < chars.len() && "xyzXYZ".contains(chars[i]) {
                         let col = "xyz".find(chars[i].to_ascii_lowercase()).unwrap();
-                        if value.fract() != 0.0 {
-                            return Err(err(format!("non-integer coefficient {num}")));
-                        }
-                        rot[(row, col)] += (sign * value) as i32;
+                        add_coefficient(&mut rot[(row, col)], sign, value).map_err(&err)?;
                         i += 1;
                     } else if i < chars.len() && chars[i] == '*' {
                         i += 1;
@@ -121,7 +118,7 @@ impl SymOp {
                             .get(i)
                             .and_then(|c| "xyz".find(c.to_ascii_lowercase()));
                         let col = col.ok_or_else(|| err("expected x, y or z after '*'".into()))?;
-                        rot[(row, col)] += (sign * value) as i32;
+                        add_coefficient(&mut rot[(row, col)], sign, value).map_err(&err)?;
                         i += 1;
                     } else {
                         trans[row] += sign * value;
@@ -145,13 +142,40 @@ impl SymOp {
     }
 }
 
-fn parse_number(s: &str) -> Option<f64> {
-    if let Some((n, d)) = s.split_once('/') {
-        let (n, d): (f64, f64) = (n.parse().ok()?, d.parse().ok()?);
-        if d == 0.0 { None } else { Some(n / d) }
-    } else {
-        s.parse().ok()
+/// The largest coefficient of an axis accepted in a written operation. A rotation of a lattice
+/// onto itself has small integer entries in any sensible setting; larger ones are damage.
+const MAX_COEFFICIENT: f64 = 12.0;
+
+/// Adds `sign * value` to one entry of the rotation, refusing a coefficient that is not a small
+/// integer or a sum that leaves the same range (a written operation is text from a file, so a
+/// huge or repeated coefficient is an error, never an overflow).
+fn add_coefficient(entry: &mut i32, sign: f64, value: f64) -> Result<(), String> {
+    if value.fract() != 0.0 {
+        return Err(format!("non-integer coefficient {value}"));
     }
+    let sum = f64::from(*entry) + sign * value;
+    if value > MAX_COEFFICIENT || sum.abs() > MAX_COEFFICIENT {
+        return Err(format!(
+            "coefficient {sum} of an axis is outside -{MAX_COEFFICIENT}..{MAX_COEFFICIENT}"
+        ));
+    }
+    *entry = sum as i32;
+    Ok(())
+}
+
+/// Reads `n`, `n.m` or `n/m`; `None` for text that is not a finite number (or a zero
+/// denominator), so that no infinite or undefined translation enters an operation.
+fn parse_number(s: &str) -> Option<f64> {
+    let value = if let Some((n, d)) = s.split_once('/') {
+        let (n, d): (f64, f64) = (n.parse().ok()?, d.parse().ok()?);
+        if d == 0.0 {
+            return None;
+        }
+        n / d
+    } else {
+        s.parse().ok()?
+    };
+    value.is_finite().then_some(value)
 }
 
 /// Reduces a translation component into [0, 1), snapping values within 1e-6 of a multiple of
@@ -234,6 +258,16 @@ mod tests {
         assert!(SymOp::parse_xyz("x,y,q").is_err());
         assert!(SymOp::parse_xyz("x,x,z").is_err());
         assert!(SymOp::parse_xyz("x,y,z+1/0").is_err());
+        // damaged text from a file: huge, repeated or infinite coefficients are errors, never an
+        // overflow (found by fuzzing the reader)
+        assert!(SymOp::parse_xyz("99999999999x,y,z").is_err());
+        assert!(SymOp::parse_xyz("2147483647*x+x,y,z").is_err());
+        assert!(SymOp::parse_xyz(&format!("{},y,z", "x+".repeat(20) + "x")).is_err());
+        assert!(SymOp::parse_xyz(&format!("x,y,z+{}", "9".repeat(400))).is_err());
+        assert!(SymOp::parse_xyz("1.5x,y,z").is_err());
+        assert!(SymOp::parse_xyz("1.5*x,y,z").is_err());
+        // a legal coefficient still reads
+        assert_eq!(SymOp::parse_xyz("2x-x,y,z").unwrap(), SymOp::identity());
     }
 
     #[test]
