@@ -65,6 +65,14 @@ fn huge_atom_counts_are_refused_before_anything_is_allocated() {
 }
 
 #[test]
+fn absurd_coefficients_and_column_widths_are_refused_with_their_line() {
+    // found by fuzzing the readers: each overflowed or indexed past a line before
+    refused("op_huge_coefficient.cif", 10, "outside -12..12");
+    refused("width_zero.xyz", 2, "width 0");
+    refused("width_wrap.xyz", 2, "too large");
+}
+
+#[test]
 fn absurd_cells_are_refused_with_the_cell_line() {
     refused("cell_1e7.cif", 4, "cell edge a = 10000000 A is longer");
     refused("cell_1e300.cif", 4, "cell edge a = 1.000e300 A is longer");

@@ -93,7 +93,7 @@ fn columns(props: &str) -> Result<(usize, bool, usize, usize), String> {
             "Properties '{props}' must be name:type:width triples"
         ));
     }
-    let mut col = 0;
+    let mut col: usize = 0;
     let (mut species, mut pos) = (None, None);
     for t in parts.chunks(3) {
         let width: usize = t[2].parse().map_err(|_| {
@@ -102,6 +102,12 @@ fn columns(props: &str) -> Result<(usize, bool, usize, usize), String> {
                 t[2], t[0]
             )
         })?;
+        if width == 0 {
+            return Err(format!(
+                "property '{}' has width 0; a column has width 1 or more",
+                t[0]
+            ));
+        }
         let name = t[0].to_ascii_lowercase();
         match name.as_str() {
             "species" | "element" | "symbol" if species.is_none() => species = Some((col, false)),
@@ -116,7 +122,9 @@ fn columns(props: &str) -> Result<(usize, bool, usize, usize), String> {
             }
             _ => {}
         }
-        col += width;
+        col = col
+            .checked_add(width)
+            .ok_or_else(|| format!("width '{}' of property '{}' is too large", t[2], t[0]))?;
     }
     let (s, is_z) = species.ok_or("Properties name no species column (species:S:1)")?;
     let p = pos.ok_or("Properties name no position column (pos:R:3)")?;
