@@ -66,7 +66,7 @@ fn huge_atom_counts_are_refused_before_anything_is_allocated() {
 
 #[test]
 fn absurd_coefficients_and_column_widths_are_refused_with_their_line() {
-    // found by fuzzing the readers: each overflowed or indexed past a line before
+    // each overflowed, or indexed past the end of an atom line, before
     refused("op_huge_coefficient.cif", 10, "outside -12..12");
     refused("width_zero.xyz", 2, "width 0");
     refused("width_wrap.xyz", 2, "too large");

@@ -153,10 +153,16 @@ fn add_coefficient(entry: &mut i32, sign: f64, value: f64) -> Result<(), String>
     if value.fract() != 0.0 {
         return Err(format!("non-integer coefficient {value}"));
     }
-    let sum = f64::from(*entry) + sign * value;
-    if value > MAX_COEFFICIENT || sum.abs() > MAX_COEFFICIENT {
+    if value > MAX_COEFFICIENT {
         return Err(format!(
-            "coefficient {sum} of an axis is outside -{MAX_COEFFICIENT}..{MAX_COEFFICIENT}"
+            "coefficient {value} of an axis is outside -{MAX_COEFFICIENT}..{MAX_COEFFICIENT}"
+        ));
+    }
+    let sum = f64::from(*entry) + sign * value;
+    if sum.abs() > MAX_COEFFICIENT {
+        return Err(format!(
+            "the coefficients of one axis add up to {sum}, outside \
+             -{MAX_COEFFICIENT}..{MAX_COEFFICIENT}"
         ));
     }
     *entry = sum as i32;
