@@ -1,6 +1,7 @@
 //! Bad and absurd inputs meet a clear error naming the file and the place, never a panic, a
 //! huge allocation or a computation without end. Each file under `testdata/robust/` reproduces a
-//! case that crashed or ran away before (issue 14); its first comment line says what it is.
+//! case that crashed or ran away before (issue 14); its first comment line says what it is
+//! (extended XYZ files, which have no comment lines, are described at their test).
 
 use hopmap::analysis::{AnalysisError, AnalysisOptions, RateOptions, analyse};
 use hopmap::element::Element;
@@ -66,9 +67,12 @@ fn huge_atom_counts_are_refused_before_anything_is_allocated() {
 
 #[test]
 fn absurd_coefficients_and_column_widths_are_refused_with_their_line() {
-    // each overflowed, or indexed past the end of an atom line, before
+    // `2147483647*x+x` overflowed the rotation's integer entry
     refused("op_huge_coefficient.cif", 10, "outside -12..12");
+    // `species:S:0` after `pos:R:3` put the species at column 3 of a three-word atom line, and
+    // indexed past its end
     refused("width_zero.xyz", 2, "width 0");
+    // two widths of 2^64 - 1 overflowed the column count
     refused("width_wrap.xyz", 2, "too large");
 }
 
