@@ -1041,6 +1041,70 @@ pub(crate) fn face_neighbours(dims: [usize; 3], ijk: [usize; 3]) -> [(usize, [i3
     ]
 }
 
+/// Division and remainder by a fixed divisor through multiplications, exact for every 32-bit
+/// numerator and divisor (the method of Lemire, Kaser & Kurz, "Faster remainder by direct
+/// computation", Software: Practice and Experience 49, 953 (2019); the unit test checks it
+/// against the hardware division). The grid sweeps (percolation, basins, profile searches)
+/// split every visited index into (i, j, k), where two hardware divisions cost more than the
+/// rest of a step's arithmetic.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Divisor {
+    d: u32,
+    /// `ceil(2^64 / d)`.
+    c: u64,
+}
+
+impl Divisor {
+    pub(crate) fn new(d: u32) -> Self {
+        assert!(d > 0, "division by zero");
+        Divisor {
+            d,
+            c: (u64::MAX / d as u64).wrapping_add(1),
+        }
+    }
+
+    /// `(n / d, n % d)`.
+    #[inline]
+    pub(crate) fn div_rem(&self, n: u32) -> (u32, u32) {
+        if self.d == 1 {
+            return (n, 0);
+        }
+        let q = ((self.c as u128 * n as u128) >> 64) as u32;
+        let low = self.c.wrapping_mul(n as u64);
+        let r = ((low as u128 * self.d as u128) >> 64) as u32;
+        (q, r)
+    }
+}
+
+/// Splits grid indices into (i, j, k) by [`Divisor`]s.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct IndexSplit {
+    by_c: Divisor,
+    by_b: Divisor,
+}
+
+impl IndexSplit {
+    /// For a grid of `dims` points (fewer than 2^32 of them, as everywhere: see
+    /// [`visit_order`]).
+    pub(crate) fn new(dims: [usize; 3]) -> Self {
+        assert!(
+            dims.iter().product::<usize>() <= u32::MAX as usize,
+            "a grid of {dims:?} points has more than 2^32 of them"
+        );
+        IndexSplit {
+            by_c: Divisor::new(dims[2] as u32),
+            by_b: Divisor::new(dims[1] as u32),
+        }
+    }
+
+    #[inline]
+    pub(crate) fn ijk(&self, x: usize) -> [usize; 3] {
+        let (ij, k) = self.by_c.div_rem(x as u32);
+        let (i, j) = self.by_b.div_rem(ij);
+        [i as usize, j as usize, k as usize]
+    }
+}
+
 /// Percolation of the open voxels of `grid` (value strictly below `ceiling`).
 ///
 /// When nothing percolates below the ceiling the result has `dimension == 0`, no thresholds,
@@ -1107,30 +1171,35 @@ fn sweep_grid<'a>(
     // A neighbour found by the union-find to lie in the settled region gets its bit then.
     let mut bits = SweepBits::new(grid.values.len());
     let mut settled: Option<usize> = None;
+    let split = IndexSplit::new(grid.dims);
     for (pos, &key) in order.iter().enumerate() {
         let x = key_index(key);
         let e = key_value(key);
-        if settled.is_none()
-            && let Some(&later) = order.get(pos + AHEAD)
-        {
-            // the union-find entries of a voxel's neighbours are scattered over the grid:
-            // ask for them well before they are needed
+        if let Some(&later) = order.get(pos + AHEAD) {
+            // the union-find entries and bits of a voxel's neighbours are scattered over the
+            // grid: ask for them well before they are needed
             let y = key_index(later);
-            for z in [
+            let near = [
                 y,
                 y.wrapping_sub(grid.dims[2]),
                 y + grid.dims[2],
                 y.wrapping_sub(plane),
                 y + plane,
-            ] {
-                sweep.prefetch(z);
+            ];
+            for z in near {
+                bits.prefetch(z);
+            }
+            if settled.is_none() {
+                for z in near {
+                    sweep.prefetch(z);
+                }
             }
         }
         while li < lv.len() && lv[li] < e {
             stats.push(sweep.level_stats(lv[li]));
             li += 1;
         }
-        let near = face_neighbours(grid.dims, grid.ijk(x));
+        let near = face_neighbours(grid.dims, split.ijk(x));
         match settled {
             None => {
                 sweep.add(x, e);
@@ -1203,35 +1272,47 @@ enum Settle {
     No,
 }
 
-/// Two bits per voxel for the grid sweep: added, and in the settled region.
+/// Two bits per voxel for the grid sweep: added, and in the settled region. The two words of
+/// 64 voxels sit side by side, so that one load from memory brings both.
 struct SweepBits {
-    added: Vec<u64>,
-    settled: Vec<u64>,
+    words: Vec<[u64; 2]>,
 }
 
 impl SweepBits {
     fn new(n: usize) -> Self {
-        let words = n.div_ceil(64);
         SweepBits {
-            added: vec![0; words],
-            settled: vec![0; words],
+            words: vec![[0; 2]; n.div_ceil(64)],
         }
     }
     #[inline]
     fn added(&self, x: usize) -> bool {
-        self.added[x / 64] >> (x % 64) & 1 == 1
+        self.words[x / 64][0] >> (x % 64) & 1 == 1
     }
     #[inline]
     fn settled(&self, x: usize) -> bool {
-        self.settled[x / 64] >> (x % 64) & 1 == 1
+        self.words[x / 64][1] >> (x % 64) & 1 == 1
     }
     #[inline]
     fn add(&mut self, x: usize) {
-        self.added[x / 64] |= 1 << (x % 64);
+        self.words[x / 64][0] |= 1 << (x % 64);
     }
     #[inline]
     fn settle(&mut self, x: usize) {
-        self.settled[x / 64] |= 1 << (x % 64);
+        self.words[x / 64][1] |= 1 << (x % 64);
+    }
+    /// Hints the processor to load the words of `x` (no effect off x86-64 or out of range).
+    #[inline]
+    fn prefetch(&self, x: usize) {
+        #[cfg(target_arch = "x86_64")]
+        if x / 64 < self.words.len() {
+            use std::arch::x86_64::{_MM_HINT_T0, _mm_prefetch};
+            // SAFETY: prefetching is a hint; the address lies inside a live allocation
+            unsafe {
+                _mm_prefetch::<_MM_HINT_T0>(self.words.as_ptr().add(x / 64) as *const i8);
+            }
+        }
+        #[cfg(not(target_arch = "x86_64"))]
+        let _ = x;
     }
 }
 
@@ -1423,6 +1504,39 @@ mod tests {
             late > 10,
             "regions must open after the first 3D one: {late}"
         );
+    }
+
+    #[test]
+    fn division_by_multiplication_equals_the_hardware_division() {
+        // exact results: every divisor a grid axis can have up to 3000, numerators at both
+        // ends of the 32-bit range and random ones between
+        let mut next = xorshift(0x2545_f491_4f6c_dd1d);
+        for d in 1..=3000u32 {
+            let div = Divisor::new(d);
+            let ends = [0, 1, d - 1, d, d + 1, u32::MAX - 1, u32::MAX];
+            let random = (0..200).map(|_| (next() * u32::MAX as f64) as u32);
+            for n in ends.into_iter().chain(random) {
+                assert_eq!(div.div_rem(n), (n / d, n % d), "{n} / {d}");
+            }
+        }
+        let dims = [7, 61, 47];
+        let split = IndexSplit::new(dims);
+        let grid = Grid::new(
+            Lattice::from_parameters(crate::lattice::CellParameters {
+                a: 1.0,
+                b: 1.0,
+                c: 1.0,
+                alpha: 90.0,
+                beta: 90.0,
+                gamma: 90.0,
+            })
+            .unwrap(),
+            dims,
+            0.0,
+        );
+        for x in 0..grid.len() {
+            assert_eq!(split.ijk(x), grid.ijk(x));
+        }
     }
 
     #[test]

@@ -17,7 +17,9 @@ use super::FrameworkIon;
 use super::sites::{Site, SiteAssignment};
 use crate::grid::Grid;
 use crate::lattice::Frac;
-use crate::percolation::{FastMap, Offset, face_neighbours, offsets_fit_i16, total_key};
+use crate::percolation::{
+    FastMap, IndexSplit, Offset, face_neighbours, offsets_fit_i16, total_key,
+};
 use nalgebra::Vector3;
 
 /// Marks voxels that belong to no basin (at or above the ceiling, or NaN).
@@ -74,6 +76,7 @@ fn descent(grid: &Grid, ceiling: f32) -> Vec<u8> {
     use rayon::prelude::*;
     let values = &grid.values;
     let plane = grid.dims[1] * grid.dims[2];
+    let split = IndexSplit::new(grid.dims);
     let mut down = vec![CLOSED; grid.len()];
     down.par_chunks_mut(plane)
         .enumerate()
@@ -86,7 +89,7 @@ fn descent(grid: &Grid, ceiling: f32) -> Vec<u8> {
                 }
                 let mut best = total_key(v, x);
                 let mut dir = MINIMUM;
-                for (n, (y, _)) in face_neighbours(grid.dims, grid.ijk(x))
+                for (n, (y, _)) in face_neighbours(grid.dims, split.ijk(x))
                     .into_iter()
                     .enumerate()
                 {
@@ -104,6 +107,7 @@ fn descent(grid: &Grid, ceiling: f32) -> Vec<u8> {
 
 fn basins_with<O: Offset>(grid: &Grid, ceiling: f32) -> (Basins, Vec<BasinHop>) {
     let n = grid.len();
+    let split = IndexSplit::new(grid.dims);
     let down = descent(grid, ceiling);
     let mut label = vec![NO_BASIN; n];
     // image of each voxel relative to the image of its basin's minimum
@@ -118,14 +122,14 @@ fn basins_with<O: Offset>(grid: &Grid, ceiling: f32) -> (Basins, Vec<BasinHop>) 
         let mut y = x;
         while label[y] == NO_BASIN && down[y] != MINIMUM {
             stack.push(y);
-            y = face_neighbours(grid.dims, grid.ijk(y))[down[y] as usize].0;
+            y = face_neighbours(grid.dims, split.ijk(y))[down[y] as usize].0;
         }
         if label[y] == NO_BASIN {
             label[y] = minima.len() as u32;
             minima.push(y);
         }
         while let Some(z) = stack.pop() {
-            let (target, t) = face_neighbours(grid.dims, grid.ijk(z))[down[z] as usize];
+            let (target, t) = face_neighbours(grid.dims, split.ijk(z))[down[z] as usize];
             label[z] = label[target];
             let ot = off[target];
             off[z] = [
@@ -145,7 +149,7 @@ fn basins_with<O: Offset>(grid: &Grid, ceiling: f32) -> (Basins, Vec<BasinHop>) 
         if a == NO_BASIN {
             continue;
         }
-        let nb = face_neighbours(grid.dims, grid.ijk(u));
+        let nb = face_neighbours(grid.dims, split.ijk(u));
         for &(v, t) in [nb[0], nb[2], nb[4]].iter() {
             let b = label[v];
             if b == NO_BASIN {

@@ -22,8 +22,8 @@
 use crate::grid::Grid;
 use crate::lattice::Frac;
 use crate::percolation::{
-    FastMap, Offset, Percolation, Threshold, face_neighbours, hnf, in_lattice, offsets_fit_i16,
-    total_key,
+    FastMap, IndexSplit, Offset, Percolation, Threshold, face_neighbours, hnf, in_lattice,
+    offsets_fit_i16, total_key,
 };
 use nalgebra::Vector3;
 use rayon::prelude::*;
@@ -241,6 +241,7 @@ fn known_bottleneck(
 fn bottleneck_key(grid: &Grid, start: usize, translation: [i32; 3], ceiling: f32) -> Option<u64> {
     let values = &grid.values;
     let n = values.len();
+    let split = IndexSplit::new(grid.dims);
     let target = translation.map(i64::from);
     let mut label = vec![u64::MAX; n];
     let mut image = vec![[0i32; 3]; n];
@@ -256,7 +257,7 @@ fn bottleneck_key(grid: &Grid, start: usize, translation: [i32; 3], ceiling: f32
         }
         visited[x] = true;
         let ix = image[x];
-        for (y, t) in face_neighbours(grid.dims, grid.ijk(x)) {
+        for (y, t) in face_neighbours(grid.dims, split.ijk(x)) {
             let iy = [ix[0] + t[0], ix[1] + t[1], ix[2] + t[2]];
             if visited[y] {
                 // a loop (y == x on an axis of one point is a loop of one step)
@@ -690,6 +691,7 @@ fn bottleneck_is_with<O: Offset>(
         return false;
     }
     let target = translation.map(i64::from);
+    let split = IndexSplit::new(grid.dims);
     // images are bounded well inside i16 (see `Offset`): this one is never reached
     let unseen = i16::MIN as i32;
     let mut image = vec![[O::put(unseen), O::put(0), O::put(0)]; values.len()];
@@ -732,7 +734,7 @@ fn bottleneck_is_with<O: Offset>(
             let x = queue[head] as usize;
             head += 1;
             let ix = image[x].map(O::get);
-            for (y, t) in face_neighbours(grid.dims, grid.ijk(x)) {
+            for (y, t) in face_neighbours(grid.dims, split.ijk(x)) {
                 let iy = [ix[0] + t[0], ix[1] + t[1], ix[2] + t[2]];
                 if image[y][0].get() != unseen {
                     // a loop (y == x on an axis of one point is a loop of one step)
