@@ -16,13 +16,16 @@
 //! relative to it (a few A, so that f32 differences lose nothing), one list per kind of term
 //! with the kind's constants held in registers. Each list is cut in two: the *core*, images
 //! within the cutoff of every point of the block (no test, no mask: the count grows by the
-//! list's length), and the *shell*, where each lane is tested, a vector none of whose lanes
-//! is inside is skipped after its distances, and a lane outside gets weight 0. The anion runs
-//! take two vectors of points per image ([`TILES`]: one load of the image, two independent
-//! chains); the screened Coulomb runs, with more constants in registers, one. The cores of
-//! both are software-pipelined over three images (the sum of one, the exponential's reduction
-//! of the next, the distance of the one after), so that the scheduler holds work whose inputs
-//! are ready; the images are still summed in order, so the values do not change.
+//! list's length), and the *shell*, where each lane is tested. The anion runs take two
+//! vectors of points per image ([`TILES`]: one load of the image, two independent chains); the
+//! screened Coulomb runs, with more constants in registers, one. The anion runs, core and
+//! shell, and the Coulomb cores are software-pipelined over three images (the sum of one, the
+//! exponential's reduction of the next, the distance of the one after), so that the scheduler
+//! holds work whose inputs are ready; the images are still summed in order, so the values do
+//! not change. An anion shell image is computed at every lane, and only the lanes inside the
+//! cutoff add to their sums (a masked operation with AVX-512); in a Coulomb shell, an image
+//! none of whose lanes is inside is skipped after its distances, and a lane outside gets
+//! weight 0.
 //!
 //! **Arithmetic per pair** (f32): the distance (3 subtractions, a multiplication and two FMAs,
 //! a square root); per anion term `x = exp((Rmin - R)/b)` (one FMA for the argument, the
@@ -836,12 +839,38 @@ fn add_bond<V: Lanes, const ENERGY: bool>(s: &mut Sums<V>, x: V, w: V, w2: V, ne
     }
 }
 
+/// [`add_bond`] at every lane, or when `SHELL` at the lanes of `m` only (the others keep
+/// their sums, whatever `x` holds there; with AVX-512 one masked operation per sum).
+#[inline(always)]
+fn add_lanes<V: Lanes, const ENERGY: bool, const SHELL: bool>(
+    s: &mut Sums<V>,
+    x: V,
+    w: V,
+    w2: V,
+    neg_cut: V,
+    m: V::Mask,
+) {
+    if SHELL {
+        let old = *s;
+        add_bond::<V, ENERGY>(s, x, w, w2, neg_cut);
+        s.bvs = V::select(m, s.bvs, old.bvs);
+        if ENERGY {
+            s.energy = V::select(m, s.energy, old.energy);
+        }
+        s.count = V::select(m, old.count.add(V::splat(1.0)), old.count);
+    } else {
+        add_bond::<V, ENERGY>(s, x, w, w2, neg_cut);
+    }
+}
+
 /// Adds one run of images of an anion kind to `T` vectors of points at once (each image's
 /// coordinates and weights are loaded once for all of them, and the vectors' independent
 /// chains keep the arithmetic units busy). `SHELL`: the images are within the cutoff of some
-/// points only, so each lane is tested (and an image none of whose lanes is inside, in any of
-/// the vectors, is skipped); otherwise every lane is inside and the count grows by the run's
-/// length. `CLAMP`: the exponent may leave the range of normal f32 results.
+/// points only, so each lane is tested and only the lanes inside add to their sums (every
+/// image is computed at every lane: skipping those with no lane inside, as an unpipelined
+/// loop must, costs more in a shell than it saves); otherwise every lane is inside and the
+/// count grows by the run's length. `CLAMP`: the exponent may leave the range of normal f32
+/// results; a lane outside the cutoff may leave it anyway, and its result is not used.
 #[inline(always)]
 fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, const CLAMP: bool>(
     c: &AnionConstants,
@@ -864,25 +893,40 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
     );
     let mut sums = *acc;
     let mut start = 0;
-    if !SHELL && n >= 2 {
+    if n >= 2 {
         // Software pipeline over three images: the sum of image j - 2, the reduction of image
         // j - 1 and the distance of image j, so that the scheduler sees work whose inputs are
-        // ready. The images are still summed in order.
+        // ready. The images are still summed in order. In the shell, every image is computed
+        // at every lane and only the lanes inside the cutoff add to their sums (the mask of
+        // each image travels down the pipeline with it).
+        let all = zero.lt(one);
         let mut ra = [zero; T];
+        let mut ma = [all; T];
         let mut tb = [zero; T];
         let mut sb = [zero; T];
+        let mut mb = [all; T];
         for t in 0..T {
-            let r0 = dist2_run(p[t].0, p[t].1, p[t].2, xs[0], ys[0], zs[0]).sqrt();
-            (tb[t], sb[t]) = reduce::<V, CLAMP>(r0.fma(slope, offset));
-            ra[t] = dist2_run(p[t].0, p[t].1, p[t].2, xs[1], ys[1], zs[1]).sqrt();
+            let d0 = dist2_run(p[t].0, p[t].1, p[t].2, xs[0], ys[0], zs[0]);
+            let d1 = dist2_run(p[t].0, p[t].1, p[t].2, xs[1], ys[1], zs[1]);
+            if SHELL {
+                mb[t] = d0.lt(cutoff2);
+                ma[t] = d1.lt(cutoff2);
+            }
+            (tb[t], sb[t]) = reduce::<V, CLAMP>(d0.sqrt().fma(slope, offset));
+            ra[t] = d1.sqrt();
         }
         for j in 2..n {
             let (wc, w2c) = (V::splat(ws[j - 2]), V::splat(w2s[j - 2]));
             for t in 0..T {
                 let x = simd::exp_finish(tb[t], sb[t]);
-                add_bond::<V, ENERGY>(&mut sums[t], x, wc, w2c, neg_cut);
+                add_lanes::<V, ENERGY, SHELL>(&mut sums[t], x, wc, w2c, neg_cut, mb[t]);
                 (tb[t], sb[t]) = reduce::<V, CLAMP>(ra[t].fma(slope, offset));
-                ra[t] = dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]).sqrt();
+                let d = dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]);
+                if SHELL {
+                    mb[t] = ma[t];
+                    ma[t] = d.lt(cutoff2);
+                }
+                ra[t] = d.sqrt();
             }
         }
         // the last two images
@@ -890,9 +934,10 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
         let (wl, w2l) = (V::splat(ws[n - 1]), V::splat(w2s[n - 1]));
         for t in 0..T {
             let x = simd::exp_finish(tb[t], sb[t]);
-            add_bond::<V, ENERGY>(&mut sums[t], x, wc, w2c, neg_cut);
+            add_lanes::<V, ENERGY, SHELL>(&mut sums[t], x, wc, w2c, neg_cut, mb[t]);
             let (tl, sl) = reduce::<V, CLAMP>(ra[t].fma(slope, offset));
-            add_bond::<V, ENERGY>(&mut sums[t], simd::exp_finish(tl, sl), wl, w2l, neg_cut);
+            let x = simd::exp_finish(tl, sl);
+            add_lanes::<V, ENERGY, SHELL>(&mut sums[t], x, wl, w2l, neg_cut, ma[t]);
         }
         start = n;
     }
