@@ -1091,9 +1091,10 @@ impl IndexSplit {
             dims.iter().product::<usize>() <= u32::MAX as usize,
             "a grid of {dims:?} points has more than 2^32 of them"
         );
+        // (an axis of no points leaves no index to split)
         IndexSplit {
-            by_c: Divisor::new(dims[2] as u32),
-            by_b: Divisor::new(dims[1] as u32),
+            by_c: Divisor::new(dims[2].max(1) as u32),
+            by_b: Divisor::new(dims[1].max(1) as u32),
         }
     }
 
@@ -1537,6 +1538,8 @@ mod tests {
         for x in 0..grid.len() {
             assert_eq!(split.ijk(x), grid.ijk(x));
         }
+        // an empty grid has nothing to split, and building the split must not fail
+        let _ = IndexSplit::new([4, 0, 0]);
     }
 
     #[test]
