@@ -709,16 +709,7 @@ impl<'a> Sweep<'a> {
     /// Hints the processor to load the entry of `x` (no effect off x86-64 or out of range).
     #[inline]
     pub(crate) fn prefetch(&self, x: usize) {
-        #[cfg(target_arch = "x86_64")]
-        if x < self.nodes.len() {
-            use std::arch::x86_64::{_MM_HINT_T0, _mm_prefetch};
-            // SAFETY: prefetching is a hint; the address lies inside a live allocation
-            unsafe {
-                _mm_prefetch::<_MM_HINT_T0>(self.nodes.as_ptr().add(x) as *const i8);
-            }
-        }
-        #[cfg(not(target_arch = "x86_64"))]
-        let _ = x;
+        prefetch_item(&self.nodes, x);
     }
 
     #[inline]
@@ -1304,17 +1295,24 @@ impl SweepBits {
     /// Hints the processor to load the words of `x` (no effect off x86-64 or out of range).
     #[inline]
     fn prefetch(&self, x: usize) {
-        #[cfg(target_arch = "x86_64")]
-        if x / 64 < self.words.len() {
-            use std::arch::x86_64::{_MM_HINT_T0, _mm_prefetch};
-            // SAFETY: prefetching is a hint; the address lies inside a live allocation
-            unsafe {
-                _mm_prefetch::<_MM_HINT_T0>(self.words.as_ptr().add(x / 64) as *const i8);
-            }
-        }
-        #[cfg(not(target_arch = "x86_64"))]
-        let _ = x;
+        prefetch_item(&self.words, x / 64);
     }
+}
+
+/// Hints the processor to load `items[i]` into its caches (no effect off x86-64, or when `i`
+/// is out of range).
+#[inline]
+fn prefetch_item<T>(items: &[T], i: usize) {
+    #[cfg(target_arch = "x86_64")]
+    if i < items.len() {
+        use std::arch::x86_64::{_MM_HINT_T0, _mm_prefetch};
+        // SAFETY: prefetching is a hint; the address lies inside a live allocation
+        unsafe {
+            _mm_prefetch::<_MM_HINT_T0>(items.as_ptr().add(i) as *const i8);
+        }
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = (items, i);
 }
 
 /// The connected regions open at one level, painted on the grid.
@@ -1509,13 +1507,17 @@ mod tests {
 
     #[test]
     fn division_by_multiplication_equals_the_hardware_division() {
-        // exact results: every divisor a grid axis can have up to 3000, numerators at both
-        // ends of the 32-bit range and random ones between
+        // exact results: every divisor up to 3000, then every 7th up to 60,000 (the limits
+        // allow 1000 A / 0.02 A = 50,000 points along an axis) and the largest ones, each with
+        // numerators at both ends of the 32-bit range and random ones between
         let mut next = xorshift(0x2545_f491_4f6c_dd1d);
-        for d in 1..=3000u32 {
+        let large = (3001..=60_000u32)
+            .step_by(7)
+            .chain([u32::MAX - 1, u32::MAX]);
+        for d in (1..=3000u32).chain(large) {
             let div = Divisor::new(d);
-            let ends = [0, 1, d - 1, d, d + 1, u32::MAX - 1, u32::MAX];
-            let random = (0..200).map(|_| (next() * u32::MAX as f64) as u32);
+            let ends = [0, 1, d - 1, d, d.saturating_add(1), u32::MAX - 1, u32::MAX];
+            let random = (0..50).map(|_| (next() * u32::MAX as f64) as u32);
             for n in ends.into_iter().chain(random) {
                 assert_eq!(div.div_rem(n), (n / d, n % d), "{n} / {d}");
             }

@@ -33,7 +33,8 @@
 //! exponent cannot leave the f32 range), the bond valence and the shifted Morse term (2 FMAs
 //! and a subtraction); per cation term the screened Coulomb `erfc(R/rho)/R` from
 //! [`simd::erfc_poly`] (one division, 12 FMAs and the exp, whose exponent is bounded within
-//! the reach). A shell pair adds the cutoff test, the selects of the weights and the count.
+//! the reach). A shell pair adds the cutoff test and the count; an anion shell pair's sums
+//! are masked to the lanes inside, a Coulomb shell pair's weight is selected.
 //! The mobile-ion repulsion with its nearest sites excluded keeps the k nearest distances and
 //! terms per lane (compare and blend).
 //!
