@@ -16,7 +16,13 @@
 //! relative to it (a few A, so that f32 differences lose nothing), one list per kind of term
 //! with the kind's constants held in registers. Each list is cut in two: the *core*, images
 //! within the cutoff of every point of the block (no test, no mask: the count grows by the
-//! list's length), and the *shell*, where each lane is tested. The anion runs take two
+//! list's length), and the *shell*, where each lane is tested. The lists are filled without a
+//! branch on where an image goes (it is written to both and counted in one, or none): that
+//! branch follows the geometry, and no predictor guesses it. Before the vectors of points
+//! taken together meet a shell, the shell's images that reach none of their points (beyond
+//! the cutoff plus the radius of the points' sphere, [`Layout::spheres`]) are dropped, by a
+//! list of indices filled the same way; dropped images would only have had every lane
+//! masked, so the values do not change. The anion runs take two
 //! vectors of points per image ([`TILES`]: one load of the image, two independent chains); the
 //! screened Coulomb runs, with more constants in registers, one. The anion runs, core and
 //! shell, and the Coulomb cores are software-pipelined over three images (the sum of one, the
@@ -507,32 +513,35 @@ impl Candidates {
         out: &mut Vec<KindImages>,
     ) {
         out.resize_with(kind_reach.len(), KindImages::default);
-        for k in out.iter_mut() {
+        for (k, &reach) in out.iter_mut().zip(kind_reach) {
             k.core.clear();
             k.shell.clear();
+            // squared: an image at `dist` reaches some point when dist <= reach + radius, and
+            // every point when dist + radius + CORE_MARGIN_A < reach
+            k.reach2 = (reach + radius).powi(2);
+            let inner = reach - radius - CORE_MARGIN_A;
+            k.core2 = if inner > 0.0 { inner * inner } else { -1.0 };
+        }
+        // A position holds at most one entry of a kind, so a kind's lists hold at most one
+        // image per candidate. Each image is written at the next free place of both lists and
+        // counted in one of them, or none: no branch on where it goes, which no predictor
+        // could guess.
+        let most = self.xyz.len();
+        for k in out.iter_mut() {
+            k.core.make_room(most);
+            k.shell.make_room(most);
         }
         for (c, &q) in self.xyz.iter().zip(&self.pos) {
-            let q = q as usize;
             let d = [c[0] - centre[0], c[1] - centre[1], c[2] - centre[2]];
-            let reach = p.reach[q] + radius;
             let dist2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
-            if dist2 > reach * reach {
-                continue;
-            }
-            let dist = dist2.sqrt();
             let rel = d.map(|x| x as f32);
-            for e in p.entries_of(q) {
-                let k = e.kind();
-                let reach = kind_reach[k];
-                if dist > reach + radius {
-                    continue;
-                }
-                let run = if dist + radius + CORE_MARGIN_A < reach {
-                    &mut out[k].core
-                } else {
-                    &mut out[k].shell
-                };
-                run.push(rel, e.weights());
+            for e in p.entries_of(q as usize) {
+                let k = &mut out[e.kind()];
+                let core = dist2 < k.core2;
+                let shell = !core & (dist2 <= k.reach2);
+                let w = e.weights();
+                k.core.put(rel, w, core);
+                k.shell.put(rel, w, shell);
             }
         }
     }
@@ -561,7 +570,8 @@ impl Candidates {
 const CORE_MARGIN_A: f64 = 1e-3;
 
 /// Images of one kind near a block, relative to its centre, with their weights (the second is
-/// the Morse weight of an anion, unused for a cation).
+/// the Morse weight of an anion, unused for a cation): the first `n` places of the columns,
+/// which may be longer.
 #[derive(Default)]
 struct Run {
     x: Vec<f32>,
@@ -569,22 +579,106 @@ struct Run {
     z: Vec<f32>,
     w: Vec<f32>,
     w2: Vec<f32>,
+    n: usize,
 }
 
 impl Run {
     fn clear(&mut self) {
-        self.x.clear();
-        self.y.clear();
-        self.z.clear();
-        self.w.clear();
-        self.w2.clear();
+        self.n = 0;
     }
-    fn push(&mut self, d: [f32; 3], (w, w2): (f32, f32)) {
-        self.x.push(d[0]);
-        self.y.push(d[1]);
-        self.z.push(d[2]);
-        self.w.push(w);
-        self.w2.push(w2);
+
+    /// Makes the columns long enough for `m` images.
+    fn make_room(&mut self, m: usize) {
+        if self.x.len() < m {
+            for v in [
+                &mut self.x,
+                &mut self.y,
+                &mut self.z,
+                &mut self.w,
+                &mut self.w2,
+            ] {
+                v.resize(m, 0.0);
+            }
+        }
+    }
+
+    /// Writes an image at the next free place, and counts it when `keep` (with room made).
+    #[inline(always)]
+    fn put(&mut self, d: [f32; 3], (w, w2): (f32, f32), keep: bool) {
+        let i = self.n;
+        self.x[i] = d[0];
+        self.y[i] = d[1];
+        self.z[i] = d[2];
+        self.w[i] = w;
+        self.w2[i] = w2;
+        self.n += usize::from(keep);
+    }
+
+    /// Writes to the start of `out` the indices, in order, of the images within `limit` of
+    /// `centre` (A), and returns how many: the squared distances first (a loop the compiler
+    /// vectorises), then every index written at the next free place, which moves on only
+    /// when the image is kept (no branch). `out` only grows.
+    fn near_indices(
+        &self,
+        centre: [f32; 3],
+        limit: f32,
+        d2: &mut Vec<f32>,
+        out: &mut Vec<u32>,
+    ) -> usize {
+        let n = self.n;
+        d2.clear();
+        d2.extend(
+            self.x[..n]
+                .iter()
+                .zip(&self.y[..n])
+                .zip(&self.z[..n])
+                .map(|((x, y), z)| {
+                    let (dx, dy, dz) = (x - centre[0], y - centre[1], z - centre[2]);
+                    dx * dx + dy * dy + dz * dz
+                }),
+        );
+        let limit2 = limit * limit;
+        if out.len() < n {
+            out.resize(n, 0);
+        }
+        let mut k = 0;
+        for (j, &d) in d2.iter().enumerate() {
+            out[k] = j as u32;
+            k += usize::from(d <= limit2);
+        }
+        k
+    }
+}
+
+/// Which images of a run an evaluation takes, in order: all, or those at some indices.
+trait Pick: Copy {
+    fn len(self) -> usize;
+    fn at(self, j: usize) -> usize;
+}
+
+/// The first `n` images of a run.
+#[derive(Clone, Copy)]
+struct All(usize);
+
+impl Pick for All {
+    #[inline(always)]
+    fn len(self) -> usize {
+        self.0
+    }
+    #[inline(always)]
+    fn at(self, j: usize) -> usize {
+        j
+    }
+}
+
+impl Pick for &[u32] {
+    #[inline(always)]
+    fn len(self) -> usize {
+        <[u32]>::len(self)
+    }
+    #[inline(always)]
+    fn at(self, j: usize) -> usize {
+        self[j] as usize
     }
 }
 
@@ -593,6 +687,10 @@ impl Run {
 struct KindImages {
     core: Run,
     shell: Run,
+    /// The squared distances (A^2) within which an image reaches some point of the block, and
+    /// every point (negative when none can).
+    reach2: f64,
+    core2: f64,
 }
 
 /// The images near one block, relative to its centre.
@@ -622,6 +720,10 @@ struct Scratch {
     anions: Vec<KindImages>,
     cations: Vec<KindImages>,
     mobile: List,
+    /// The indices of the images of an anion shell that can reach the vectors of points being
+    /// evaluated, and the squared distances they are chosen by.
+    reach_points: Vec<u32>,
+    reach_d2: Vec<f32>,
     /// The images of each family near the current group of blocks.
     near_a: Candidates,
     near_c: Candidates,
@@ -651,9 +753,51 @@ struct Layout {
     /// The block's rows along c: their first point's index in the grid relative to the
     /// block's first point, and the slots of their points in order.
     rows: Vec<(usize, [u16; BLOCK])>,
+    /// The spheres around the runs of 8, 16 and 32 slots that the kernel evaluates together
+    /// (one or two vectors of 8 or 16 lanes): centre and radius (A), by run.
+    spheres: [Vec<([f32; 3], f32)>; 3],
 }
 
+/// The widths of the runs of slots of [`Layout::spheres`].
+const SPHERE_WIDTHS: [usize; 3] = [8, 16, 32];
+
 impl Layout {
+    /// The sphere around slots `v..v + n` (`n` one of [`SPHERE_WIDTHS`], `v` a multiple).
+    #[inline(always)]
+    fn sphere(&self, v: usize, n: usize) -> ([f32; 3], f32) {
+        let w = SPHERE_WIDTHS
+            .iter()
+            .position(|&w| w == n)
+            .expect("a width of the spheres");
+        self.spheres[w][v / n]
+    }
+
+    /// Fills [`Layout::spheres`] from the slots' coordinates: for each run, the centre of its
+    /// bounding box and the largest distance from it.
+    fn set_spheres(&mut self) {
+        for (w, &n) in SPHERE_WIDTHS.iter().enumerate() {
+            self.spheres[w] = (0..self.px.len() / n)
+                .map(|r| {
+                    let run = r * n..(r + 1) * n;
+                    let (xs, ys, zs) =
+                        (&self.px[run.clone()], &self.py[run.clone()], &self.pz[run]);
+                    let mid = |a: &[f32]| {
+                        let lo = a.iter().copied().fold(f32::INFINITY, f32::min);
+                        let hi = a.iter().copied().fold(f32::NEG_INFINITY, f32::max);
+                        0.5 * (lo + hi)
+                    };
+                    let c = [mid(xs), mid(ys), mid(zs)];
+                    let r2 = (0..n)
+                        .map(|i| {
+                            (xs[i] - c[0]).powi(2) + (ys[i] - c[1]).powi(2) + (zs[i] - c[2]).powi(2)
+                        })
+                        .fold(0.0f32, f32::max);
+                    (c, r2.sqrt())
+                })
+                .collect();
+        }
+    }
+
     /// Pairs counted over the points of the block (not the padding), from the per-slot counts.
     fn count(&self, cnt: &[f32]) -> u64 {
         // whole numbers below 2^24 per lane: the f32 sums are exact
@@ -697,6 +841,7 @@ fn layouts(m: &Matrix3<f64>, dims: [usize; 3]) -> Vec<Layout> {
                     pz: Vec::new(),
                     real: Vec::new(),
                     rows: Vec::new(),
+                    spheres: Default::default(),
                 };
                 let mut slot_of = vec![0u16; sa * sb * sc];
                 for ti in (0..sa).step_by(2) {
@@ -734,6 +879,7 @@ fn layouts(m: &Matrix3<f64>, dims: [usize; 3]) -> Vec<Layout> {
                         l.rows.push(((i * dims[1] + j) * dims[2], slots));
                     }
                 }
+                l.set_spheres();
                 out.push(l);
             }
         }
@@ -876,6 +1022,7 @@ fn add_lanes<V: Lanes, const ENERGY: bool, const SHELL: bool>(
 fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, const CLAMP: bool>(
     c: &AnionConstants,
     run: &Run,
+    pick: impl Pick,
     p: &[(V, V, V); T],
     acc: &mut [Sums<V>; T],
 ) {
@@ -884,14 +1031,24 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
     let cutoff2 = V::splat(c.cutoff2);
     let (slope, offset) = (V::splat(c.neg_inv_b), V::splat(c.rmin_inv_b));
     let neg_cut = V::splat(-c.morse_cut);
-    let n = run.x.len();
+    let n = pick.len();
+    let m = run.n;
     let (xs, ys, zs, ws, w2s) = (
-        &run.x[..n],
-        &run.y[..n],
-        &run.z[..n],
-        &run.w[..n],
-        &run.w2[..n],
+        &run.x[..m],
+        &run.y[..m],
+        &run.z[..m],
+        &run.w[..m],
+        &run.w2[..m],
     );
+    // image j of the evaluation
+    let xyz = |j: usize| {
+        let i = pick.at(j);
+        (xs[i], ys[i], zs[i])
+    };
+    let wts = |j: usize| {
+        let i = pick.at(j);
+        (V::splat(ws[i]), V::splat(w2s[i]))
+    };
     let mut sums = *acc;
     let mut start = 0;
     if n >= 2 {
@@ -907,8 +1064,9 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
         let mut sb = [zero; T];
         let mut mb = [all; T];
         for t in 0..T {
-            let d0 = dist2_run(p[t].0, p[t].1, p[t].2, xs[0], ys[0], zs[0]);
-            let d1 = dist2_run(p[t].0, p[t].1, p[t].2, xs[1], ys[1], zs[1]);
+            let ((x0, y0, z0), (x1, y1, z1)) = (xyz(0), xyz(1));
+            let d0 = dist2_run(p[t].0, p[t].1, p[t].2, x0, y0, z0);
+            let d1 = dist2_run(p[t].0, p[t].1, p[t].2, x1, y1, z1);
             if SHELL {
                 mb[t] = d0.lt(cutoff2);
                 ma[t] = d1.lt(cutoff2);
@@ -917,12 +1075,13 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
             ra[t] = d1.sqrt();
         }
         for j in 2..n {
-            let (wc, w2c) = (V::splat(ws[j - 2]), V::splat(w2s[j - 2]));
+            let (wc, w2c) = wts(j - 2);
+            let (ix, iy, iz) = xyz(j);
             for t in 0..T {
                 let x = simd::exp_finish(tb[t], sb[t]);
                 add_lanes::<V, ENERGY, SHELL>(&mut sums[t], x, wc, w2c, neg_cut, mb[t]);
                 (tb[t], sb[t]) = reduce::<V, CLAMP>(ra[t].fma(slope, offset));
-                let d = dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]);
+                let d = dist2_run(p[t].0, p[t].1, p[t].2, ix, iy, iz);
                 if SHELL {
                     mb[t] = ma[t];
                     ma[t] = d.lt(cutoff2);
@@ -931,8 +1090,8 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
             }
         }
         // the last two images
-        let (wc, w2c) = (V::splat(ws[n - 2]), V::splat(w2s[n - 2]));
-        let (wl, w2l) = (V::splat(ws[n - 1]), V::splat(w2s[n - 1]));
+        let (wc, w2c) = wts(n - 2);
+        let (wl, w2l) = wts(n - 1);
         for t in 0..T {
             let x = simd::exp_finish(tb[t], sb[t]);
             add_lanes::<V, ENERGY, SHELL>(&mut sums[t], x, wc, w2c, neg_cut, mb[t]);
@@ -943,10 +1102,11 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
         start = n;
     }
     for j in start..n {
-        let Some((d2, inside)) = near::<V, T, SHELL>(p, [xs[j], ys[j], zs[j]], cutoff2) else {
+        let (x, y, z) = xyz(j);
+        let Some((d2, inside)) = near::<V, T, SHELL>(p, [x, y, z], cutoff2) else {
             continue;
         };
-        let (wj, w2j) = (V::splat(ws[j]), V::splat(w2s[j]));
+        let (wj, w2j) = wts(j);
         for t in 0..T {
             // lanes outside the cutoff are masked below; held at the cutoff, their exponent
             // stays in the range the unclamped exponential handles
@@ -987,6 +1147,7 @@ fn anion_run<V: Lanes, const T: usize, const ENERGY: bool, const SHELL: bool, co
 fn cation_run<V: Lanes, const T: usize, const SHELL: bool>(
     c: &CationConstants,
     run: &Run,
+    pick: impl Pick,
     p: &[(V, V, V); T],
     acc: &mut [Sums<V>; T],
 ) {
@@ -994,8 +1155,15 @@ fn cation_run<V: Lanes, const T: usize, const SHELL: bool>(
     let one = V::splat(1.0);
     let g2 = V::splat(R_GUARD * R_GUARD);
     let reach2 = V::splat(c.reach2);
-    let n = run.x.len();
-    let (xs, ys, zs, ws) = (&run.x[..n], &run.y[..n], &run.z[..n], &run.w[..n]);
+    let n = pick.len();
+    let m = run.n;
+    let (xs, ys, zs, ws) = (&run.x[..m], &run.y[..m], &run.z[..m], &run.w[..m]);
+    // image j of the evaluation
+    let xyz = |j: usize| {
+        let i = pick.at(j);
+        (xs[i], ys[i], zs[i])
+    };
+    let wt = |j: usize| V::splat(ws[pick.at(j)]);
     let mut sums = *acc;
     let mut start = 0;
     if !SHELL && n >= 2 {
@@ -1004,22 +1172,24 @@ fn cation_run<V: Lanes, const T: usize, const SHELL: bool>(
         let mut da = [(zero, zero); T];
         let mut tb = [(zero, zero, zero); T];
         for t in 0..T {
-            let d0 = guarded(dist2_run(p[t].0, p[t].1, p[t].2, xs[0], ys[0], zs[0]), g2);
+            let ((x0, y0, z0), (x1, y1, z1)) = (xyz(0), xyz(1));
+            let d0 = guarded(dist2_run(p[t].0, p[t].1, p[t].2, x0, y0, z0), g2);
             tb[t] = coulomb_reduce(c, d0.0, d0.1);
-            da[t] = guarded(dist2_run(p[t].0, p[t].1, p[t].2, xs[1], ys[1], zs[1]), g2);
+            da[t] = guarded(dist2_run(p[t].0, p[t].1, p[t].2, x1, y1, z1), g2);
         }
         for j in 2..n {
-            let wc = V::splat(ws[j - 2]);
+            let wc = wt(j - 2);
+            let (ix, iy, iz) = xyz(j);
             for t in 0..T {
                 let (inv, tt, ss) = tb[t];
                 let term = inv.mul(simd::exp_finish(tt, ss));
                 sums[t].energy = wc.fma(term, sums[t].energy);
                 tb[t] = coulomb_reduce(c, da[t].0, da[t].1);
-                da[t] = guarded(dist2_run(p[t].0, p[t].1, p[t].2, xs[j], ys[j], zs[j]), g2);
+                da[t] = guarded(dist2_run(p[t].0, p[t].1, p[t].2, ix, iy, iz), g2);
             }
         }
         // the last two images
-        let (wc, wl) = (V::splat(ws[n - 2]), V::splat(ws[n - 1]));
+        let (wc, wl) = (wt(n - 2), wt(n - 1));
         for t in 0..T {
             let (inv, tt, ss) = tb[t];
             sums[t].energy = wc.fma(inv.mul(simd::exp_finish(tt, ss)), sums[t].energy);
@@ -1029,10 +1199,11 @@ fn cation_run<V: Lanes, const T: usize, const SHELL: bool>(
         start = n;
     }
     for j in start..n {
-        let Some((d2, inside)) = near::<V, T, SHELL>(p, [xs[j], ys[j], zs[j]], reach2) else {
+        let (x, y, z) = xyz(j);
+        let Some((d2, inside)) = near::<V, T, SHELL>(p, [x, y, z], reach2) else {
             continue;
         };
-        let wj = V::splat(ws[j]);
+        let wj = wt(j);
         for t in 0..T {
             // masked lanes held at the reach, where the exponent stays in range
             let d2 = if SHELL { d2[t].min(reach2) } else { d2[t] };
@@ -1064,6 +1235,7 @@ fn points<V: Lanes, const T: usize, const ENERGY: bool>(
     l: &Layout,
     v: usize,
     s: &Scratch,
+    (reach_points, reach_d2): (&mut Vec<u32>, &mut Vec<f32>),
     out: [&mut [f32]; 3],
 ) {
     let [dv, en, cnt] = out;
@@ -1084,22 +1256,32 @@ fn points<V: Lanes, const T: usize, const ENERGY: bool>(
         energy: zero,
         count: zero,
     }; T];
+    // An image of a block's anion shell reaches some points of the block; those that reach
+    // none of these vectors' points are dropped first (their lanes would all be masked).
+    let (centre, radius) = l.sphere(v, T * V::N);
     for (c, k) in t.anion_kinds.iter().zip(&s.anions) {
+        let limit = c.cutoff2.sqrt() + radius + CULL_MARGIN_A;
+        let kept = k.shell.near_indices(centre, limit, reach_d2, reach_points);
+        let (core, shell) = (All(k.core.n), &reach_points[..kept]);
         if c.in_range {
-            anion_run::<V, T, ENERGY, false, false>(c, &k.core, &pv, &mut acc);
-            anion_run::<V, T, ENERGY, true, false>(c, &k.shell, &pv, &mut acc);
+            anion_run::<V, T, ENERGY, false, false>(c, &k.core, core, &pv, &mut acc);
+            anion_run::<V, T, ENERGY, true, false>(c, &k.shell, shell, &pv, &mut acc);
         } else {
-            anion_run::<V, T, ENERGY, false, true>(c, &k.core, &pv, &mut acc);
-            anion_run::<V, T, ENERGY, true, true>(c, &k.shell, &pv, &mut acc);
+            anion_run::<V, T, ENERGY, false, true>(c, &k.core, core, &pv, &mut acc);
+            anion_run::<V, T, ENERGY, true, true>(c, &k.shell, shell, &pv, &mut acc);
         }
     }
     if ENERGY {
         // the screened Coulomb term holds more constants in registers: one vector at a time
-        for (p, a) in pv.iter().zip(acc.iter_mut()) {
+        for (i, (p, a)) in pv.iter().zip(acc.iter_mut()).enumerate() {
             let (p, mut one) = ([*p], [*a]);
+            // the shell's images that reach no point of this vector dropped first, as above
+            let (centre, radius) = l.sphere(v + i * V::N, V::N);
             for (c, k) in t.cation_kinds.iter().zip(&s.cations) {
-                cation_run::<V, 1, false>(c, &k.core, &p, &mut one);
-                cation_run::<V, 1, true>(c, &k.shell, &p, &mut one);
+                let limit = c.reach2.sqrt() + radius + CULL_MARGIN_A;
+                let kept = k.shell.near_indices(centre, limit, reach_d2, reach_points);
+                cation_run::<V, 1, false>(c, &k.core, All(k.core.n), &p, &mut one);
+                cation_run::<V, 1, true>(c, &k.shell, &reach_points[..kept], &p, &mut one);
             }
             *a = one[0];
         }
@@ -1159,6 +1341,11 @@ fn points<V: Lanes, const T: usize, const ENERGY: bool>(
 
 use simd::exp;
 
+/// How much farther than its cutoff plus the radius of the points' sphere an image of a shell
+/// is kept (A): far more than the f32 rounding of coordinates of a few A (below 1e-6 A), so
+/// that no image with a lane inside its cutoff is dropped.
+const CULL_MARGIN_A: f32 = 1e-3;
+
 /// Evaluates the points of layout `l` (a multiple of `V::N`) into `s.dv`, `s.en`, `s.cnt`,
 /// [`TILES`] vectors at a time.
 #[inline(always)]
@@ -1170,13 +1357,19 @@ fn block_points<V: Lanes, const ENERGY: bool>(t: &Terms, l: &Layout, s: &mut Scr
     dv.resize(n, 0.0);
     en.resize(n, 0.0);
     cnt.resize(n, 0.0);
+    let mut near = std::mem::take(&mut s.reach_points);
+    let mut d2 = std::mem::take(&mut s.reach_d2);
     let wide = n - n % (TILES * V::N);
     for v in (0..wide).step_by(TILES * V::N) {
-        points::<V, TILES, ENERGY>(t, l, v, s, [&mut dv, &mut en, &mut cnt]);
+        let buf = (&mut near, &mut d2);
+        points::<V, TILES, ENERGY>(t, l, v, s, buf, [&mut dv, &mut en, &mut cnt]);
     }
     for v in (wide..n).step_by(V::N) {
-        points::<V, 1, ENERGY>(t, l, v, s, [&mut dv, &mut en, &mut cnt]);
+        let buf = (&mut near, &mut d2);
+        points::<V, 1, ENERGY>(t, l, v, s, buf, [&mut dv, &mut en, &mut cnt]);
     }
+    s.reach_points = near;
+    s.reach_d2 = d2;
     s.dv = dv;
     s.en = en;
     s.cnt = cnt;
@@ -1393,7 +1586,7 @@ pub(crate) fn compute_simd(
 mod tests {
     use super::super::compute::{compute_f64, compute_with_isa, evaluate_point};
     use super::super::fixtures::mixed_model;
-    use super::{BLOCK, Isa, Progress, TILE, blocks, layouts, point_cart};
+    use super::{BLOCK, Isa, Progress, SPHERE_WIDTHS, TILE, blocks, layouts, point_cart};
 
     #[test]
     fn core_and_shell_lists_give_the_plain_sums_at_every_point() {
@@ -1477,6 +1670,20 @@ mod tests {
             }
             for (q, &n) in named.iter().enumerate() {
                 assert_eq!(n as f32, l.real[q], "{b:?} slot {q}: named {n} times");
+            }
+            // every slot lies within the sphere of each run of slots the kernel takes together
+            for w in SPHERE_WIDTHS {
+                for v in (0..l.px.len() - l.px.len() % w).step_by(w) {
+                    let (c, r) = l.sphere(v, w);
+                    for q in v..v + w {
+                        let d = [l.px[q] - c[0], l.py[q] - c[1], l.pz[q] - c[2]];
+                        let d = (d[0] * d[0] + d[1] * d[1] + d[2] * d[2]).sqrt();
+                        assert!(
+                            d <= r * (1.0 + 1e-6),
+                            "{b:?} slot {q}: {d} A from its sphere of {r}"
+                        );
+                    }
+                }
             }
             let cnt: Vec<f32> = (0..l.px.len()).map(|q| (q % 7 + 1) as f32).collect();
             let want: u64 = (0..l.px.len())
