@@ -16,7 +16,8 @@
 use super::FrameworkIon;
 use super::sites::{Site, SiteAssignment};
 use crate::grid::Grid;
-use crate::lattice::Frac;
+use crate::lattice::{Frac, Lattice};
+use crate::neighbours::NeighbourSearch;
 use crate::percolation::{
     FastMap, IndexSplit, Offset, face_neighbours, offsets_fit_i16, total_key,
 };
@@ -303,6 +304,7 @@ pub fn site_hops(
             .or_insert((k, i, flip));
     }
     let lattice = &grid.lattice;
+    let openings = Openings::new(lattice, framework);
     let mut hops: Vec<Hop> = best
         .into_iter()
         .map(|((from, to, image), (_, i, flip))| {
@@ -336,7 +338,7 @@ pub fn site_hops(
             let pt =
                 sites[to].frac.0 + Vector3::new(image[0] as f64, image[1] as f64, image[2] as f64);
             let length = lattice.frac_delta_length(pt - pf);
-            let bottleneck = nearest_opening(grid, saddle, framework, mobile_radius);
+            let bottleneck = openings.nearest(saddle, mobile_radius);
             Hop {
                 from,
                 to,
@@ -362,15 +364,81 @@ pub fn site_hops(
     hops
 }
 
-fn nearest_opening(
-    grid: &Grid,
+/// The framework ion nearest to a point in the sense of [`Bottleneck`] (distance minus its
+/// radius), found with a cell list over the ions, so that the site network stays linear in the
+/// number of atoms: the search looks within a distance `cutoff` and widens it until the best
+/// found is at most `cutoff - largest radius`, beyond which no ion can do better.
+struct Openings<'a> {
+    lattice: &'a Lattice,
+    framework: &'a [FrameworkIon],
+    search: NeighbourSearch,
+    largest_radius: f64,
+    first_cutoff: f64,
+}
+
+impl<'a> Openings<'a> {
+    fn new(lattice: &'a Lattice, framework: &'a [FrameworkIon]) -> Self {
+        let fracs: Vec<Frac> = framework.iter().map(|f| f.frac).collect();
+        let largest_radius = framework
+            .iter()
+            .map(|f| f.radius)
+            .filter(|r| r.is_finite())
+            .fold(0.0, f64::max);
+        // a saddle sits a few A from its nearest ions
+        let first_cutoff = 3.0 + largest_radius;
+        Openings {
+            lattice,
+            framework,
+            search: NeighbourSearch::new(lattice, &fracs, first_cutoff),
+            largest_radius,
+            first_cutoff,
+        }
+    }
+
+    /// The nearest opening at `p`; of ions equally near, the first in the list. None when
+    /// there is no framework ion.
+    fn nearest(&self, p: Frac, mobile_radius: f64) -> Option<Bottleneck> {
+        if self.framework.is_empty() {
+            return None;
+        }
+        let mut cutoff = self.first_cutoff;
+        // the cutoff doubles until the answer is sure: within 40 doublings it spans any cell
+        // a file can describe; past that (radii that are not finite) every ion is looked at
+        for _ in 0..40 {
+            let mut best: Option<(f64, usize, f64)> = None;
+            self.search.for_each_within(p, cutoff, |n| {
+                let r = n.distance - self.framework[n.index].radius;
+                if best.is_none_or(|(br, bi, _)| r < br || (r == br && n.index < bi)) {
+                    best = Some((r, n.index, n.distance));
+                }
+            });
+            if let Some((radius, ion, distance)) = best
+                && radius <= cutoff - self.largest_radius
+            {
+                return Some(Bottleneck {
+                    radius,
+                    ion,
+                    distance,
+                    clearance: radius - mobile_radius,
+                });
+            }
+            cutoff *= 2.0;
+        }
+        nearest_opening_by_scan(self.lattice, p, self.framework, mobile_radius)
+    }
+}
+
+/// [`Openings::nearest`] by looking at every ion (the reference of the tests, and the answer
+/// when the widening search gives up).
+fn nearest_opening_by_scan(
+    lattice: &Lattice,
     p: Frac,
     framework: &[FrameworkIon],
     mobile_radius: f64,
 ) -> Option<Bottleneck> {
     let mut best: Option<Bottleneck> = None;
     for (i, ion) in framework.iter().enumerate() {
-        let d = grid.lattice.periodic_distance(p, ion.frac);
+        let d = lattice.periodic_distance(p, ion.frac);
         let r = d - ion.radius;
         if best.as_ref().is_none_or(|b| r < b.radius) {
             best = Some(Bottleneck {
@@ -382,4 +450,65 @@ fn nearest_opening(
         }
     }
     best
+}
+
+#[cfg(test)]
+mod tests {
+    use super::{FrameworkIon, Openings, nearest_opening_by_scan};
+    use crate::lattice::{CellParameters, Frac, Lattice};
+
+    #[test]
+    fn the_cell_list_finds_the_opening_a_scan_of_every_ion_finds() {
+        // A monoclinic cell, ions of three radii at pseudo-random places (a fixed sequence),
+        // and points all over it: the widening search must name the ion and the distances that
+        // looking at every ion in every nearby image names (an exact result).
+        let lattice = Lattice::from_parameters(CellParameters {
+            a: 7.3,
+            b: 5.1,
+            c: 9.6,
+            alpha: 90.0,
+            beta: 104.0,
+            gamma: 90.0,
+        })
+        .unwrap();
+        let mut seed = 0x2545_f491_4f6c_dd1d_u64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            (seed >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let framework: Vec<FrameworkIon> = (0..40)
+            .map(|i| FrameworkIon {
+                label: format!("X{i}"),
+                element: "O".into(),
+                frac: Frac::new(next(), next(), next()),
+                charge: -2.0,
+                radius: [1.40, 0.53, 0.78][i % 3],
+                is_anion: i % 3 == 0,
+            })
+            .collect();
+        let mut openings = Openings::new(&lattice, &framework);
+        // the widening itself: from a first cutoff far too short, it doubles several times
+        let mut short = Openings::new(&lattice, &framework);
+        short.first_cutoff = 0.25;
+        for i in 0..1000 {
+            if i == 500 {
+                std::mem::swap(&mut openings, &mut short);
+            }
+            // points outside [0, 1) as well: saddles are given in the frame of a site image
+            let p = Frac::new(3.0 * next() - 1.0, 3.0 * next() - 1.0, 3.0 * next() - 1.0);
+            let have = openings.nearest(p, 0.76).unwrap();
+            let want = nearest_opening_by_scan(&lattice, p, &framework, 0.76).unwrap();
+            assert_eq!(have.ion, want.ion, "{p:?}");
+            assert!((have.radius - want.radius).abs() < 1e-9, "{p:?}");
+            assert!((have.distance - want.distance).abs() < 1e-9, "{p:?}");
+            assert!((have.clearance - (have.radius - 0.76)).abs() < 1e-12);
+        }
+        assert!(
+            Openings::new(&lattice, &[])
+                .nearest(Frac::new(0.1, 0.2, 0.3), 0.76)
+                .is_none()
+        );
+    }
 }
