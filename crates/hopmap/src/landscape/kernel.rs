@@ -720,8 +720,8 @@ struct Scratch {
     anions: Vec<KindImages>,
     cations: Vec<KindImages>,
     mobile: List,
-    /// The indices of the images of an anion shell that can reach the vectors of points being
-    /// evaluated, and the squared distances they are chosen by.
+    /// The indices of the images of a shell (anion or Coulomb) that can reach the vectors of
+    /// points being evaluated, and the squared distances they are chosen by.
     reach_points: Vec<u32>,
     reach_d2: Vec<f32>,
     /// The images of each family near the current group of blocks.
