@@ -471,13 +471,7 @@ mod tests {
             gamma: 90.0,
         })
         .unwrap();
-        let mut seed = 0x2545_f491_4f6c_dd1d_u64;
-        let mut next = move || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            (seed >> 11) as f64 / (1u64 << 53) as f64
-        };
+        let mut next = crate::percolation::xorshift(0x2545_f491_4f6c_dd1d);
         let framework: Vec<FrameworkIon> = (0..40)
             .map(|i| FrameworkIon {
                 label: format!("X{i}"),
