@@ -522,8 +522,8 @@ impl Candidates {
             let inner = reach - radius - CORE_MARGIN_A;
             k.core2 = if inner > 0.0 { inner * inner } else { -1.0 };
         }
-        // A position holds at most one entry of a kind, so a kind's lists hold at most one
-        // image per candidate. Each image is written at the next free place of both lists and
+        // A position holds at most one entry of a kind (`group` sums the entries of one key,
+        // and the key is the kind), so a kind's lists hold at most one image per candidate. Each image is written at the next free place of both lists and
         // counted in one of them, or none: no branch on where it goes, which no predictor
         // could guess.
         let most = self.xyz.len();
