@@ -31,6 +31,7 @@ pub mod lattice;
 pub mod limits;
 pub mod neighbours;
 pub mod network;
+mod pages;
 pub mod percolation;
 pub mod read;
 pub mod scoring;

@@ -83,7 +83,7 @@ pub fn key_value(key: u64) -> f32 {
 /// skipped). Grids must have fewer than 2^32 points.
 pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
     let mut items = open_items(values, ceiling);
-    let mut buf = vec![0u64; items.len()];
+    let mut buf = crate::pages::filled(items.len(), 0u64);
     let mut hist = [[0usize; 2048]; 3];
     const SHIFTS: [u32; 3] = [32, 43, 54];
     const MASKS: [u64; 3] = [0x7ff, 0x7ff, 0x3ff];
@@ -128,12 +128,16 @@ pub fn visit_order_by_comparison(values: &[f32], ceiling: f32) -> Vec<u64> {
 }
 
 fn open_items(values: &[f32], ceiling: f32) -> Vec<u64> {
-    values
-        .iter()
-        .enumerate()
-        .filter(|(_, v)| **v < ceiling)
-        .map(|(i, &v)| total_key(v, i))
-        .collect()
+    let open = values.iter().filter(|v| **v < ceiling).count();
+    let mut items = crate::pages::with_capacity(open);
+    items.extend(
+        values
+            .iter()
+            .enumerate()
+            .filter(|(_, v)| **v < ceiling)
+            .map(|(i, &v)| total_key(v, i)),
+    );
+    items
 }
 
 // ------------------------------------------------------------------------------------------
@@ -495,46 +499,62 @@ pub(crate) fn in_lattice(rows: &[[i64; 3]], w: [i64; 3]) -> bool {
 // The sweep: union-find with image offsets and winding lattices
 // ------------------------------------------------------------------------------------------
 
-/// Integer type of the image offsets stored by the basin search (`network::hops`; the sweep
-/// below stores `i32`).
+/// Integer type of the image offsets stored, one per voxel, by the basin search
+/// (`network::hops`) and the profile's floods (`network::profile`); the sweep below stores
+/// `i32`.
 ///
-/// Offsets are relative to the parent in the union-find tree and are differences of two images
-/// of the same realisation of a component. That realisation is the one given by the joins that
-/// merged it, so the image of a node is reached by a chain of face steps no longer than the
-/// component: along axis `a` an offset never exceeds `N / n_a + 1` cells (N voxels, n_a points
-/// on that axis), and a stored offset at most twice that. `i16` is used when that bound fits,
-/// `i32` otherwise.
-pub(crate) trait Offset: Copy + Default {
+/// An offset is a difference of two images of one realisation of a region, reached by a chain
+/// of face steps, so it can in principle grow to the number of voxels over the points along
+/// the shortest axis: past `i16` on grids of a few million points. In practice the images
+/// stay within a few cells of each other. So the searches store `i8` first (3 bytes per voxel
+/// rather than 6 or 12: less memory to clear, and a front that stays in cache on large
+/// grids); a search that meets an offset `i8` cannot hold stops, and is run again with `i32`,
+/// which holds every offset of a grid of fewer than 2^30 points (the memory budget of
+/// `limits` allows far fewer). The answer is the same either way.
+pub(crate) trait Offset: Copy + Default + PartialEq {
+    /// Marks an entry not written yet; never a stored offset.
+    const UNSET: Self;
     fn get(self) -> i32;
-    fn put(v: i32) -> Self;
+    /// `v` when this type holds it (and it is not [`Offset::UNSET`]); None otherwise.
+    fn try_put(v: i32) -> Option<Self>;
 }
-impl Offset for i16 {
+impl Offset for i8 {
+    const UNSET: i8 = i8::MIN;
     #[inline]
     fn get(self) -> i32 {
         self as i32
     }
     #[inline]
-    fn put(v: i32) -> Self {
-        debug_assert!(v >= i16::MIN as i32 && v <= i16::MAX as i32);
-        v as i16
+    fn try_put(v: i32) -> Option<i8> {
+        (v > i8::MIN as i32 && v <= i8::MAX as i32).then_some(v as i8)
     }
 }
 impl Offset for i32 {
+    const UNSET: i32 = i32::MIN;
     #[inline]
     fn get(self) -> i32 {
         self
     }
     #[inline]
-    fn put(v: i32) -> Self {
-        v
+    fn try_put(v: i32) -> Option<i32> {
+        (v != i32::MIN).then_some(v)
     }
 }
 
-/// True when the offsets of a grid of these dimensions fit in `i16` (see [`Offset`]).
-pub(crate) fn offsets_fit_i16(dims: [usize; 3]) -> bool {
-    let n: usize = dims.iter().product();
-    let min = *dims.iter().min().unwrap_or(&1);
-    2 * (n / min.max(1) + 2) <= i16::MAX as usize
+/// An offset type that holds 0 only: the tests run the narrow searches with it, so that any
+/// crossing of the cell's boundary takes their fallback to `i32`.
+#[cfg(test)]
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub(crate) struct ZeroOnly(i8);
+#[cfg(test)]
+impl Offset for ZeroOnly {
+    const UNSET: ZeroOnly = ZeroOnly(1);
+    fn get(self) -> i32 {
+        self.0 as i32
+    }
+    fn try_put(v: i32) -> Option<ZeroOnly> {
+        (v == 0).then_some(ZeroOnly(0))
+    }
 }
 
 /// A multiplicative hasher for small integer keys (roots, basin pairs): the keys are not
@@ -628,7 +648,7 @@ impl<'a> Sweep<'a> {
         Sweep {
             values,
             lattice,
-            nodes: vec![UNADDED; n],
+            nodes: crate::pages::filled(n, UNADDED),
             windings: FastMap::default(),
             in_rank: [0; 4],
             added: 0,
@@ -1555,9 +1575,17 @@ mod tests {
     }
 
     #[test]
-    fn offsets_fit_i16_for_usual_grids_only() {
-        assert!(offsets_fit_i16([100, 100, 100]));
-        assert!(!offsets_fit_i16([2, 700, 700]));
+    fn an_offset_type_takes_what_it_holds_and_refuses_the_rest() {
+        assert_eq!(<i8 as Offset>::try_put(127), Some(127));
+        assert_eq!(<i8 as Offset>::try_put(-127), Some(-127));
+        assert_eq!(<i8 as Offset>::try_put(128), None);
+        // the marker of an unwritten entry is never stored
+        assert_eq!(<i8 as Offset>::try_put(-128), None);
+        assert_eq!(<i32 as Offset>::try_put(i32::MIN), None);
+        assert_eq!(
+            <i32 as Offset>::try_put(-40_000).map(Offset::get),
+            Some(-40_000)
+        );
     }
 
     #[test]

@@ -18,9 +18,7 @@ use super::sites::{Site, SiteAssignment};
 use crate::grid::Grid;
 use crate::lattice::{Frac, Lattice};
 use crate::neighbours::NeighbourSearch;
-use crate::percolation::{
-    FastMap, IndexSplit, Offset, face_neighbours, offsets_fit_i16, total_key,
-};
+use crate::percolation::{FastMap, IndexSplit, Offset, face_neighbours, total_key};
 use nalgebra::Vector3;
 
 /// Marks voxels that belong to no basin (at or above the ceiling, or NaN).
@@ -61,11 +59,14 @@ impl BasinHop {
 /// Steepest descent (6 face neighbours) of every voxel strictly below `ceiling`, and the hops
 /// between the resulting basins.
 pub fn basins(grid: &Grid, ceiling: f32) -> (Basins, Vec<BasinHop>) {
-    if offsets_fit_i16(grid.dims) {
-        basins_with::<i16>(grid, ceiling)
-    } else {
-        basins_with::<i32>(grid, ceiling)
-    }
+    narrow_first::<i8>(grid, ceiling)
+}
+
+/// The basins, the offsets kept in `N` and, if one does not fit, in `i32` (see [`Offset`]).
+fn narrow_first<N: Offset>(grid: &Grid, ceiling: f32) -> (Basins, Vec<BasinHop>) {
+    basins_with::<N>(grid, ceiling)
+        .or_else(|| basins_with::<i32>(grid, ceiling))
+        .expect("i32 holds the offsets of a grid of fewer than 2^30 points")
 }
 
 const MINIMUM: u8 = 6;
@@ -106,7 +107,8 @@ fn descent(grid: &Grid, ceiling: f32) -> Vec<u8> {
     down
 }
 
-fn basins_with<O: Offset>(grid: &Grid, ceiling: f32) -> (Basins, Vec<BasinHop>) {
+/// The basins and hops, or None when an offset does not fit in `O`.
+fn basins_with<O: Offset>(grid: &Grid, ceiling: f32) -> Option<(Basins, Vec<BasinHop>)> {
     let n = grid.len();
     let split = IndexSplit::new(grid.dims);
     let down = descent(grid, ceiling);
@@ -134,9 +136,9 @@ fn basins_with<O: Offset>(grid: &Grid, ceiling: f32) -> (Basins, Vec<BasinHop>) 
             label[z] = label[target];
             let ot = off[target];
             off[z] = [
-                O::put(ot[0].get() - t[0]),
-                O::put(ot[1].get() - t[1]),
-                O::put(ot[2].get() - t[2]),
+                O::try_put(ot[0].get() - t[0])?,
+                O::try_put(ot[1].get() - t[1])?,
+                O::try_put(ot[2].get() - t[2])?,
             ];
         }
     }
@@ -204,14 +206,14 @@ fn basins_with<O: Offset>(grid: &Grid, ceiling: f32) -> (Basins, Vec<BasinHop>) 
         })
         .collect();
     hops.sort_by_key(|h| (h.key(), h.a, h.b, h.image));
-    (
+    Some((
         Basins {
             ceiling,
             label,
             minima,
         },
         hops,
-    )
+    ))
 }
 
 pub(crate) fn first_nonzero_negative(v: [i32; 3]) -> bool {
@@ -454,8 +456,53 @@ fn nearest_opening_by_scan(
 
 #[cfg(test)]
 mod tests {
-    use super::{FrameworkIon, Openings, nearest_opening_by_scan};
+    use super::{FrameworkIon, Openings, basins_with, narrow_first, nearest_opening_by_scan};
+    use crate::grid::Grid;
     use crate::lattice::{CellParameters, Frac, Lattice};
+    use crate::percolation::ZeroOnly;
+
+    #[test]
+    fn basins_are_the_same_whatever_type_first_holds_the_offsets() {
+        // Random landscapes on small grids (a descent crosses the cell's boundary often):
+        // offsets that hold 0 only fail at the first crossing and the search is run again in
+        // i32; the answer must be that of i32 (and of i8, which holds these grids' offsets).
+        let lattice = Lattice::from_parameters(CellParameters {
+            a: 3.1,
+            b: 3.7,
+            c: 4.3,
+            alpha: 83.0,
+            beta: 97.0,
+            gamma: 112.0,
+        })
+        .unwrap();
+        let mut next = crate::percolation::xorshift(0x9e37_79b9_7f4a_7c15);
+        let mut fell_back = 0;
+        // (grids one point thick along two axes cross the boundary along the third only)
+        let dims_list = [
+            [6, 5, 4],
+            [1, 6, 6],
+            [2, 2, 9],
+            [9, 8, 7],
+            [9, 1, 1],
+            [1, 9, 1],
+            [1, 1, 9],
+        ];
+        for dims in dims_list {
+            for ceiling in [0.5, 0.8, f32::INFINITY] {
+                let mut g = Grid::new(lattice.clone(), dims, 0.0);
+                for v in g.values.iter_mut() {
+                    *v = next() as f32;
+                }
+                let wide = basins_with::<i32>(&g, ceiling).expect("i32 holds every offset");
+                if basins_with::<ZeroOnly>(&g, ceiling).is_none() {
+                    fell_back += 1;
+                }
+                assert_eq!(narrow_first::<ZeroOnly>(&g, ceiling), wide, "{dims:?}");
+                assert_eq!(basins_with::<i8>(&g, ceiling), Some(wide), "{dims:?}");
+            }
+        }
+        assert!(fell_back >= 12, "{fell_back}");
+    }
 
     #[test]
     fn the_cell_list_finds_the_opening_a_scan_of_every_ion_finds() {

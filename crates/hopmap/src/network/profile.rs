@@ -23,12 +23,13 @@ use crate::grid::Grid;
 use crate::lattice::Frac;
 use crate::percolation::{
     FastMap, IndexSplit, Offset, Percolation, Threshold, face_neighbours, hnf, in_lattice,
-    offsets_fit_i16, total_key,
+    total_key,
 };
 use nalgebra::Vector3;
 use rayon::prelude::*;
 use std::cmp::Reverse;
 use std::collections::BinaryHeap;
+use std::sync::Mutex;
 
 #[derive(Debug, Clone, PartialEq)]
 pub struct ProfileOptions {
@@ -126,12 +127,16 @@ pub fn channel_profiles(
     // longest: it goes first, so that the other thread takes the rest and the two end together.
     let mut by_cost: Vec<usize> = (0..jobs.len()).collect();
     by_cost.sort_by(|&a, &b| levels[b].level().total_cmp(&levels[a].level()));
+    let floods = Floods::default();
     let searched: Vec<(usize, Option<Profile>)> = by_cost
         .par_iter()
         .with_max_len(1)
         .map(|&k| {
             let (start, tr) = jobs[k];
-            (k, search_profile(grid, start, tr, levels[k], options))
+            (
+                k,
+                search_profile(grid, start, tr, levels[k], options, &floods),
+            )
         })
         .collect();
     let mut found: Vec<Option<Profile>> = vec![None; jobs.len()];
@@ -662,45 +667,112 @@ fn least_cost_in_windows(
 /// then the flood goes on through the voxels equal to `level` it met. No queue ordered by
 /// value, and each voxel is visited once.
 ///
-/// Each voxel's image is kept in `i16` where the grid's shape bounds it (see
-/// [`crate::percolation::Offset`]): 6 bytes per point instead of 12, so that the flood's
-/// front stays in cache longer on large grids.
+/// Each voxel's image is kept in `i8` (see [`crate::percolation::Offset`]; 3 bytes per point
+/// instead of 12, so that the flood's front stays in cache longer on large grids), in a buffer
+/// of `floods` that the next search reuses; in `i32` when an image does not fit.
 fn bottleneck_is(
     grid: &Grid,
     start: usize,
     translation: [i32; 3],
     level: f32,
     ceiling: f32,
+    floods: &Floods,
 ) -> bool {
-    if offsets_fit_i16(grid.dims) {
-        bottleneck_is_with::<i16>(grid, start, translation, level, ceiling)
-    } else {
-        bottleneck_is_with::<i32>(grid, start, translation, level, ceiling)
-    }
+    let mut b = floods.take();
+    let narrow = bottleneck_is_with::<i8>(
+        &mut b.image,
+        &mut b.queue,
+        grid,
+        start,
+        translation,
+        level,
+        ceiling,
+    );
+    floods.give(b);
+    narrow.unwrap_or_else(|| bottleneck_is_wide(grid, start, translation, level, ceiling))
 }
 
-fn bottleneck_is_with<O: Offset>(
+/// [`bottleneck_is`] with the images in `i32`, which holds them all.
+fn bottleneck_is_wide(
     grid: &Grid,
     start: usize,
     translation: [i32; 3],
     level: f32,
     ceiling: f32,
 ) -> bool {
+    let (mut image, mut queue) = (Vec::new(), Vec::new());
+    bottleneck_is_with::<i32>(
+        &mut image,
+        &mut queue,
+        grid,
+        start,
+        translation,
+        level,
+        ceiling,
+    )
+    .expect("i32 holds the images of a grid of fewer than 2^30 points")
+}
+
+/// The grid-sized buffers of one flood: the image of each voxel, and the queue.
+#[derive(Default)]
+struct FloodBuffers {
+    image: Vec<[i8; 3]>,
+    queue: Vec<u32>,
+}
+
+/// Flood buffers handed from one search to the next (two run at a time), so that each search
+/// does not clear fresh grid-sized arrays; dropped with the set of searches.
+#[derive(Default)]
+struct Floods(Mutex<Vec<FloodBuffers>>);
+
+impl Floods {
+    fn take(&self) -> FloodBuffers {
+        self.0
+            .lock()
+            .ok()
+            .and_then(|mut v| v.pop())
+            .unwrap_or_default()
+    }
+
+    fn give(&self, buffers: FloodBuffers) {
+        if let Ok(mut v) = self.0.lock() {
+            v.push(buffers);
+        }
+    }
+}
+
+/// The answer of [`bottleneck_is`] with the images kept in `image` and the queue in `queue`
+/// (both filled anew), or None when an image does not fit in `O`.
+fn bottleneck_is_with<O: Offset>(
+    image: &mut Vec<[O; 3]>,
+    queue: &mut Vec<u32>,
+    grid: &Grid,
+    start: usize,
+    translation: [i32; 3],
+    level: f32,
+    ceiling: f32,
+) -> Option<bool> {
     let values = &grid.values;
     if start >= values.len() || !(level < ceiling) || !(values[start] <= level) {
-        return false;
+        return Some(false);
     }
     let target = translation.map(i64::from);
     let split = IndexSplit::new(grid.dims);
-    // images are bounded well inside i16 (see `Offset`): this one is never reached
-    let unseen = i16::MIN as i32;
-    let mut image = vec![[O::put(unseen), O::put(0), O::put(0)]; values.len()];
+    if image.capacity() < values.len() {
+        *image = crate::pages::with_capacity(values.len());
+    }
+    image.clear();
+    image.resize(values.len(), [O::UNSET; 3]);
+    queue.clear();
+    let put = |v: [i32; 3]| -> Option<[O; 3]> {
+        Some([O::try_put(v[0])?, O::try_put(v[1])?, O::try_put(v[2])?])
+    };
+    let unseen = |o: [O; 3]| o[0] == O::UNSET;
     let mut rows: Vec<[i64; 3]> = Vec::new();
-    let mut queue: Vec<u32> = Vec::new();
     // voxels equal to `level` met in the first flood, with the image they were met in
     let mut at_level: Vec<(u32, [i32; 3])> = Vec::new();
     if values[start] < level {
-        image[start] = [O::put(0); 3];
+        image[start] = put([0, 0, 0])?;
         queue.push(start as u32);
     } else {
         at_level.push((start as u32, [0, 0, 0]));
@@ -718,14 +790,14 @@ fn bottleneck_is_with<O: Offset>(
         if second {
             for &(y, iy) in &at_level {
                 let y = y as usize;
-                if image[y][0].get() == unseen {
-                    image[y] = iy.map(O::put);
+                if unseen(image[y]) {
+                    image[y] = put(iy)?;
                     queue.push(y as u32);
                 } else if close(
                     &mut rows,
                     [0, 1, 2].map(|a| (iy[a] - image[y][a].get()) as i64),
                 ) {
-                    return true;
+                    return Some(true);
                 }
             }
         }
@@ -736,24 +808,24 @@ fn bottleneck_is_with<O: Offset>(
             let ix = image[x].map(O::get);
             for (y, t) in face_neighbours(grid.dims, split.ijk(x)) {
                 let iy = [ix[0] + t[0], ix[1] + t[1], ix[2] + t[2]];
-                if image[y][0].get() != unseen {
+                if !unseen(image[y]) {
                     // a loop (y == x on an axis of one point is a loop of one step)
                     if close(
                         &mut rows,
                         [0, 1, 2].map(|a| (iy[a] - image[y][a].get()) as i64),
                     ) {
                         // below the level: the bottleneck is lower
-                        return second;
+                        return Some(second);
                     }
                     continue;
                 }
                 let v = values[y];
                 if v < level {
-                    image[y] = iy.map(O::put);
+                    image[y] = put(iy)?;
                     queue.push(y as u32);
                 } else if v == level {
                     if second {
-                        image[y] = iy.map(O::put);
+                        image[y] = put(iy)?;
                         queue.push(y as u32);
                     } else {
                         at_level.push((y as u32, iy));
@@ -763,7 +835,7 @@ fn bottleneck_is_with<O: Offset>(
         }
         queue.clear();
     }
-    false
+    Some(false)
 }
 
 /// The profile from `start` to its image translated by `translation`; None when the two are not
@@ -774,7 +846,14 @@ pub fn channel_profile(
     translation: [i32; 3],
     options: &ProfileOptions,
 ) -> Option<Profile> {
-    search_profile(grid, start, translation, Bottleneck::Unknown, options)
+    search_profile(
+        grid,
+        start,
+        translation,
+        Bottleneck::Unknown,
+        options,
+        &Floods::default(),
+    )
 }
 
 /// [`channel_profile`] with what is known of the bottleneck beforehand: a proved level skips
@@ -787,6 +866,7 @@ fn search_profile(
     translation: [i32; 3],
     bottleneck: Bottleneck,
     options: &ProfileOptions,
+    floods: &Floods,
 ) -> Option<Profile> {
     if translation == [0, 0, 0]
         || start >= grid.len()
@@ -813,7 +893,7 @@ fn search_profile(
         Bottleneck::Known(level) => pass2(level),
         Bottleneck::Candidate(level) => {
             let (right, path) = rayon::join(
-                || bottleneck_is(grid, start, translation, level, options.ceiling),
+                || bottleneck_is(grid, start, translation, level, options.ceiling, floods),
                 || pass2(level),
             );
             if right { path } else { pass2(pass1()?) }
@@ -1062,7 +1142,7 @@ mod tests {
 mod bottleneck_tests {
     use super::*;
     use crate::lattice::{CellParameters, Lattice};
-    use crate::percolation::percolate;
+    use crate::percolation::{ZeroOnly, percolate};
 
     /// Random landscapes (some quantised so that many voxels tie), odd and tiny grids, a
     /// skewed cell, walls below a ceiling: the cases of the profile tests in `tests/channels.rs`.
@@ -1109,6 +1189,8 @@ mod bottleneck_tests {
         ];
         let mut confirmed = 0;
         let mut refused = 0;
+        let mut fell_back = 0;
+        let floods = Floods::default();
         for (g, ceiling) in landscapes() {
             let mut distinct: Vec<f32> = g.values.clone();
             distinct.sort_by(f32::total_cmp);
@@ -1122,13 +1204,25 @@ mod bottleneck_tests {
                     let at = exact.map_or(0, |e| distinct.partition_point(|&v| v < e));
                     let near = distinct[at.saturating_sub(2)..(at + 3).min(distinct.len())].iter();
                     for &level in near.chain(distinct.iter().step_by(11)) {
-                        let said = bottleneck_is(&g, start, tr, level, ceiling);
+                        let said = bottleneck_is(&g, start, tr, level, ceiling, &floods);
                         assert_eq!(
                             said,
                             exact == Some(level),
                             "dims {:?}, start {start}, {tr:?}, level {level}, pass 1 {exact:?}",
                             g.dims
                         );
+                        // the same with images that hold 0 only: the fallback to i32 whenever
+                        // the flood crosses the cell's boundary
+                        let (mut image, mut queue) = (Vec::new(), Vec::new());
+                        let narrow = bottleneck_is_with::<ZeroOnly>(
+                            &mut image, &mut queue, &g, start, tr, level, ceiling,
+                        );
+                        if narrow.is_none() {
+                            fell_back += 1;
+                        }
+                        let said_narrow = narrow
+                            .unwrap_or_else(|| bottleneck_is_wide(&g, start, tr, level, ceiling));
+                        assert_eq!(said_narrow, said);
                         if said {
                             confirmed += 1;
                         } else {
@@ -1139,6 +1233,7 @@ mod bottleneck_tests {
             }
         }
         assert!(confirmed > 500 && refused > 1000, "{confirmed} {refused}");
+        assert!(fell_back > 1000, "{fell_back}");
     }
 
     #[test]
@@ -1159,7 +1254,7 @@ mod bottleneck_tests {
                     let known = known_bottleneck(&g, &p, &options, t, (start, tr));
                     // the profile is the one of the search without help, right or wrong
                     assert_eq!(
-                        search_profile(&g, start, tr, known, &options),
+                        search_profile(&g, start, tr, known, &options, &Floods::default()),
                         channel_profile(&g, start, tr, &options),
                         "dims {:?}, {tr:?}, {known:?}",
                         g.dims
