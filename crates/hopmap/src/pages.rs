@@ -56,3 +56,52 @@ fn advise_huge<T>(v: &Vec<T>) {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_vectors_hold_what_was_asked() {
+        let v = filled(3 << 20, 7u32);
+        assert_eq!(v.len(), 3 << 20);
+        assert!(v.iter().all(|&x| x == 7));
+        let w: Vec<u64> = with_capacity(5);
+        assert!(w.is_empty() && w.capacity() >= 5);
+    }
+
+    /// The kernel's own account (`/proc/self/smaps`, "hg" among a mapping's flags: marked
+    /// with MADV_HUGEPAGE) says whether the hint reached it. Skipped where the kernel has no
+    /// transparent huge pages.
+    #[cfg(target_os = "linux")]
+    #[test]
+    fn a_large_vector_is_marked_for_huge_pages_and_a_small_one_is_not() {
+        if !std::path::Path::new("/sys/kernel/mm/transparent_hugepage").exists() {
+            eprintln!("skipped: this kernel has no transparent huge pages");
+            return;
+        }
+        let flags_at = |address: usize| -> Option<String> {
+            let smaps = std::fs::read_to_string("/proc/self/smaps").ok()?;
+            let mut inside = false;
+            for line in smaps.lines() {
+                let head = line.split_whitespace().next().unwrap_or("");
+                if let Some((lo, hi)) = head.split_once('-')
+                    && let (Ok(lo), Ok(hi)) =
+                        (usize::from_str_radix(lo, 16), usize::from_str_radix(hi, 16))
+                {
+                    inside = (lo..hi).contains(&address);
+                } else if inside && let Some(flags) = line.strip_prefix("VmFlags:") {
+                    return Some(flags.to_string());
+                }
+            }
+            None
+        };
+        let large = filled(64 << 20, 1u8);
+        let middle = large.as_ptr() as usize + (32 << 20);
+        let flags = flags_at(middle).expect("the vector's mapping is listed");
+        assert!(flags.split_whitespace().any(|f| f == "hg"), "{flags}");
+        let small = filled(1 << 20, 1u8);
+        let flags = flags_at(small.as_ptr() as usize + (1 << 19)).unwrap_or_default();
+        assert!(!flags.split_whitespace().any(|f| f == "hg"), "{flags}");
+    }
+}
