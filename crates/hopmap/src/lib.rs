@@ -31,7 +31,6 @@ pub mod lattice;
 pub mod limits;
 pub mod neighbours;
 pub mod network;
-mod pages;
 pub mod percolation;
 pub mod read;
 pub mod scoring;

@@ -83,7 +83,7 @@ pub fn key_value(key: u64) -> f32 {
 /// skipped). Grids must have fewer than 2^32 points.
 pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
     let mut items = open_items(values, ceiling);
-    let mut buf = crate::pages::filled(items.len(), 0u64);
+    let mut buf = vec![0u64; items.len()];
     let mut hist = [[0usize; 2048]; 3];
     const SHIFTS: [u32; 3] = [32, 43, 54];
     const MASKS: [u64; 3] = [0x7ff, 0x7ff, 0x3ff];
@@ -128,16 +128,12 @@ pub fn visit_order_by_comparison(values: &[f32], ceiling: f32) -> Vec<u64> {
 }
 
 fn open_items(values: &[f32], ceiling: f32) -> Vec<u64> {
-    let open = values.iter().filter(|v| **v < ceiling).count();
-    let mut items = crate::pages::with_capacity(open);
-    items.extend(
-        values
-            .iter()
-            .enumerate()
-            .filter(|(_, v)| **v < ceiling)
-            .map(|(i, &v)| total_key(v, i)),
-    );
-    items
+    values
+        .iter()
+        .enumerate()
+        .filter(|(_, v)| **v < ceiling)
+        .map(|(i, &v)| total_key(v, i))
+        .collect()
 }
 
 // ------------------------------------------------------------------------------------------
@@ -648,7 +644,7 @@ impl<'a> Sweep<'a> {
         Sweep {
             values,
             lattice,
-            nodes: crate::pages::filled(n, UNADDED),
+            nodes: vec![UNADDED; n],
             windings: FastMap::default(),
             in_rank: [0; 4],
             added: 0,

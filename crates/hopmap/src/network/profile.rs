@@ -758,9 +758,6 @@ fn bottleneck_is_with<O: Offset>(
     }
     let target = translation.map(i64::from);
     let split = IndexSplit::new(grid.dims);
-    if image.capacity() < values.len() {
-        *image = crate::pages::with_capacity(values.len());
-    }
     image.clear();
     image.resize(values.len(), [O::UNSET; 3]);
     queue.clear();
