@@ -668,8 +668,8 @@ fn least_cost_in_windows(
 /// value, and each voxel is visited once.
 ///
 /// Each voxel's image is kept in `i8` (see [`crate::percolation::Offset`]; 3 bytes per point
-/// instead of 12, so that the flood's front stays in cache longer on large grids), in a buffer
-/// of `floods` that the next search reuses; in `i32` when an image does not fit.
+/// instead of 6 or 12, so that the flood's front stays in cache longer on large grids), in a
+/// buffer of `floods` that the next search reuses; in `i32` when an image does not fit.
 fn bottleneck_is(
     grid: &Grid,
     start: usize,
@@ -720,8 +720,9 @@ struct FloodBuffers {
     queue: Vec<u32>,
 }
 
-/// Flood buffers handed from one search to the next (two run at a time), so that each search
-/// does not clear fresh grid-sized arrays; dropped with the set of searches.
+/// Flood buffers handed from one search to the next, so that each search does not clear fresh
+/// grid-sized arrays: as many sets as searches run at once (two on two cores), dropped with the
+/// set of searches.
 #[derive(Default)]
 struct Floods(Mutex<Vec<FloodBuffers>>);
 
