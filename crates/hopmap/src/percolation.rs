@@ -1398,6 +1398,21 @@ fn regions_from(grid: &Grid, level: f32, mut sweep: Sweep<'_>, order: &[u64]) ->
     }
 }
 
+/// A skewed triclinic cell (3.1, 3.7, 4.3 A; 83, 97, 112 degrees) for the unit tests' random
+/// landscapes: no two axes alike, no right angle.
+#[cfg(test)]
+pub(crate) fn skewed_lattice() -> crate::lattice::Lattice {
+    crate::lattice::Lattice::from_parameters(crate::lattice::CellParameters {
+        a: 3.1,
+        b: 3.7,
+        c: 4.3,
+        alpha: 83.0,
+        beta: 97.0,
+        gamma: 112.0,
+    })
+    .expect("a valid cell")
+}
+
 /// A small deterministic random source for the unit tests (xorshift64), uniform in [0, 1).
 #[cfg(test)]
 pub(crate) fn xorshift(seed: u64) -> impl FnMut() -> f64 {

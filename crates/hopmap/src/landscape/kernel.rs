@@ -523,9 +523,9 @@ impl Candidates {
             k.core2 = if inner > 0.0 { inner * inner } else { -1.0 };
         }
         // A position holds at most one entry of a kind (`group` sums the entries of one key,
-        // and the key is the kind), so a kind's lists hold at most one image per candidate. Each image is written at the next free place of both lists and
-        // counted in one of them, or none: no branch on where it goes, which no predictor
-        // could guess.
+        // and the key is the kind), so a kind's lists hold at most one image per candidate.
+        // Each image is written at the next free place of both lists and counted in one of
+        // them, or none: no branch on where it goes, which no predictor could guess.
         let most = self.xyz.len();
         for k in out.iter_mut() {
             k.core.make_room(most);

@@ -466,15 +466,7 @@ mod tests {
         // Random landscapes on small grids (a descent crosses the cell's boundary often):
         // offsets that hold 0 only fail at the first crossing and the search is run again in
         // i32; the answer must be that of i32 (and of i8, which holds these grids' offsets).
-        let lattice = Lattice::from_parameters(CellParameters {
-            a: 3.1,
-            b: 3.7,
-            c: 4.3,
-            alpha: 83.0,
-            beta: 97.0,
-            gamma: 112.0,
-        })
-        .unwrap();
+        let lattice = crate::percolation::skewed_lattice();
         let mut next = crate::percolation::xorshift(0x9e37_79b9_7f4a_7c15);
         let mut fell_back = 0;
         // (grids one point thick along two axes cross the boundary along the third only)

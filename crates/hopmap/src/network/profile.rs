@@ -1139,21 +1139,12 @@ mod tests {
 #[cfg(test)]
 mod bottleneck_tests {
     use super::*;
-    use crate::lattice::{CellParameters, Lattice};
     use crate::percolation::{ZeroOnly, percolate};
 
     /// Random landscapes (some quantised so that many voxels tie), odd and tiny grids, a
     /// skewed cell, walls below a ceiling: the cases of the profile tests in `tests/channels.rs`.
     fn landscapes() -> Vec<(Grid, f32)> {
-        let lattice = Lattice::from_parameters(CellParameters {
-            a: 3.1,
-            b: 3.7,
-            c: 4.3,
-            alpha: 83.0,
-            beta: 97.0,
-            gamma: 112.0,
-        })
-        .unwrap();
+        let lattice = crate::percolation::skewed_lattice();
         let mut next = crate::percolation::xorshift(0x2545_f491_4f6c_dd1d);
         let mut out = Vec::new();
         for dims in [[6, 5, 4], [1, 6, 6], [2, 2, 9], [9, 8, 7], [12, 11, 10]] {
