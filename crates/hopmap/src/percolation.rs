@@ -78,25 +78,98 @@ pub fn key_value(key: u64) -> f32 {
 /// The open voxels (value strictly below `ceiling`, NaN excluded) in increasing `(value, index)`
 /// order, as keys `(order-preserving bits of the value) << 32 | index` (read them with
 /// [`key_index`] and [`key_value`]): the sweep then reads values in sequence rather than
-/// scattered over the grid. Sorted by a least-significant-digit radix sort on the value bits
-/// (three passes of 11, 11 and 10 bits; a pass whose digit is the same for every voxel is
-/// skipped). Grids must have fewer than 2^32 points.
+/// scattered over the grid. Grids must have fewer than 2^32 points.
+///
+/// Sorted in two steps, so that only one pass moves keys across main memory. First, one
+/// scatter by the top 16 bits of the value into *chunks*: runs of consecutive 16-bit digits
+/// holding at most `CHUNK` keys together (a digit with more keys is a chunk of its own), so
+/// about 200 streams of writes on a grid of ten million points. The keys are made in this
+/// pass, straight from the values. Then each chunk, small enough to stay in the processor's
+/// second-level cache, is sorted on its own by a least-significant-digit radix sort on the value
+/// bits ([`radix_sort_by_value`]). Every pass is stable and the keys are made in index
+/// order, so ties keep index order.
 pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
-    let mut items = open_items(values, ceiling);
-    let mut buf = vec![0u64; items.len()];
-    let mut hist = [[0usize; 2048]; 3];
+    let open = |v: f32| v < ceiling;
+    let mut hist = vec![0u32; 1 << 16];
+    let mut n = 0usize;
+    for &v in values {
+        if open(v) {
+            hist[(f32_key(v) >> 16) as usize] += 1;
+            n += 1;
+        }
+    }
+    let mut out = vec![0u64; n];
+    if n <= CHUNK {
+        let mut items: Vec<u64> = values
+            .iter()
+            .enumerate()
+            .filter(|(_, v)| open(**v))
+            .map(|(i, &v)| total_key(v, i))
+            .collect();
+        radix_sort_by_value(&mut items, &mut out);
+        return items;
+    }
+    // chunk of each 16-bit digit, and where each chunk starts in `out`
+    let mut chunk_of = vec![0u32; 1 << 16];
+    let mut starts: Vec<usize> = vec![0];
+    let mut filled = 0usize;
+    let mut at = 0usize;
+    for (d, &c) in hist.iter().enumerate() {
+        let c = c as usize;
+        if filled > 0 && filled + c > CHUNK {
+            starts.push(at);
+            filled = 0;
+        }
+        chunk_of[d] = (starts.len() - 1) as u32;
+        filled += c;
+        at += c;
+    }
+    let bounds: Vec<(usize, usize)> = starts
+        .iter()
+        .zip(starts.iter().skip(1).chain(std::iter::once(&n)))
+        .map(|(&a, &b)| (a, b))
+        .collect();
+    let mut next = starts;
+    for (i, &v) in values.iter().enumerate() {
+        if open(v) {
+            let k = f32_key(v);
+            let c = chunk_of[(k >> 16) as usize] as usize;
+            out[next[c]] = (k as u64) << 32 | i as u64;
+            next[c] += 1;
+        }
+    }
+    let mut scratch = vec![0u64; CHUNK];
+    for (a, b) in bounds {
+        let chunk = &mut out[a..b];
+        if scratch.len() < chunk.len() {
+            scratch.resize(chunk.len(), 0);
+        }
+        radix_sort_by_value(chunk, &mut scratch[..b - a]);
+    }
+    out
+}
+
+/// Keys per chunk of [`visit_order`]: 256 KiB of keys and as much scratch, which stay in the
+/// second-level cache (1 MiB per core on this machine's processor, 512 KiB on most).
+const CHUNK: usize = 1 << 15;
+
+/// Sorts `keys` by their value bits (the top 32), stably, by a least-significant-digit radix
+/// sort in three passes of 11, 11 and 10 bits; a pass whose digit is the same for every key is
+/// skipped. `buf` (as long as `keys`) is scratch; the result is left in `keys`.
+fn radix_sort_by_value(keys: &mut [u64], buf: &mut [u64]) {
     const SHIFTS: [u32; 3] = [32, 43, 54];
     const MASKS: [u64; 3] = [0x7ff, 0x7ff, 0x3ff];
-    for &x in &items {
+    let mut hist = [[0usize; 2048]; 3];
+    for &x in keys.iter() {
         for p in 0..3 {
             hist[p][((x >> SHIFTS[p]) & MASKS[p]) as usize] += 1;
         }
     }
-    let n = items.len();
-    let mut src_is_items = true;
+    let n = keys.len();
+    let mut in_keys = true;
     for p in 0..3 {
         if hist[p].contains(&n) {
-            continue; // every item has the same digit: the pass would not move anything
+            continue; // every key has the same digit: the pass would not move anything
         }
         let mut start = [0usize; 2048];
         let mut acc = 0;
@@ -104,19 +177,21 @@ pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
             *s = acc;
             acc += c;
         }
-        let (src, dst) = if src_is_items {
-            (&items, &mut buf)
+        let (src, dst): (&[u64], &mut [u64]) = if in_keys {
+            (keys, buf)
         } else {
-            (&buf, &mut items)
+            (buf, keys)
         };
         for &x in src.iter() {
             let d = ((x >> SHIFTS[p]) & MASKS[p]) as usize;
             dst[start[d]] = x;
             start[d] += 1;
         }
-        src_is_items = !src_is_items;
+        in_keys = !in_keys;
     }
-    if src_is_items { items } else { buf }
+    if !in_keys {
+        keys.copy_from_slice(buf);
+    }
 }
 
 /// The same order as [`visit_order`], by a comparison sort (`sort_unstable` on the packed
@@ -1440,6 +1515,22 @@ mod tests {
             visit_order(&values, 50.0),
             visit_order_by_comparison(&values, 50.0)
         );
+        // more keys than one chunk: smooth values, values of one 16-bit digit (more than a
+        // chunk of them, and ties), signed zeros, NaN and values at or above the ceiling
+        let mut next = xorshift(7);
+        let values: Vec<f32> = (0..5 * CHUNK + 17)
+            .map(|i| match i % 7 {
+                0 | 1 => (next() * 40.0 - 20.0) as f32,
+                2 | 6 => 1.5 + (i % 5) as f32 * 1e-6,
+                3 => [0.0, -0.0, f32::NAN, 50.0, 1e30][i % 5],
+                4 => ((next() * 64.0).floor() * 0.25 - 8.0) as f32,
+                _ => (1e-3 * next()) as f32 * if i % 2 == 0 { -1.0 } else { 1.0 },
+            })
+            .collect();
+        let order = visit_order(&values, 50.0);
+        assert_eq!(order, visit_order_by_comparison(&values, 50.0));
+        let digit = |v: f32| f32_key(v) >> 16;
+        assert!(values.iter().filter(|&&v| digit(v) == digit(1.5)).count() > CHUNK);
         let with_nan = [1.0, f32::NAN, -2.0, 3.0];
         let idx: Vec<usize> = visit_order(&with_nan, 10.0)
             .into_iter()
