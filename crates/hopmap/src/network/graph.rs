@@ -22,7 +22,7 @@ use super::merge::Group;
 use super::sites::Site;
 use crate::grid::Grid;
 use crate::lattice::Lattice;
-use crate::percolation::{Percolation, Sweep, total_key};
+use crate::percolation::{Percolation, Sweep, Wide, total_key};
 use petgraph::graph::{NodeIndex, UnGraph};
 
 /// Sites as nodes (node `i` is site `i`, its weight the site index) and hops as edges (the
@@ -117,7 +117,8 @@ pub(crate) fn percolate_links(
         .map(|(i, l)| (total_key(l.energy, l.voxel), i, l))
         .collect();
     links.sort_unstable_by_key(|&(k, i, _)| (k, i));
-    let mut sweep = Sweep::new(energies, lattice);
+    // (wide records: a graph of sites is small, and its links may carry any image offset)
+    let mut sweep = Sweep::<Wide>::new(energies, lattice);
     for (pos, (_, _, l)) in links.iter().enumerate() {
         for s in [l.a, l.b] {
             if !sweep.is_added(s) {
