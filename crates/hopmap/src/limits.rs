@@ -42,10 +42,12 @@ pub const MIN_SPACING_A: f64 = 0.02;
 pub const MAX_SPACING_A: f64 = 2.0;
 
 /// Peak memory per grid point (bytes) over the whole analysis: two f32 fields (8 bytes), the
-/// 16-byte union-find records of the two percolations running side by side, the basin labels of
-/// the site network and the profiles' covering. Measured as the peak heap of `analyse` by
+/// union-find records of the two percolations running side by side, the basin labels of the
+/// site network and the profiles' covering. Measured as the peak heap of `analyse` by
 /// `cargo bench -p hopmap --bench paths_stages` (olivine LiFePO4, TiNb2O7, LLZO garnet and the
-/// olivine supercells up to 3x3x3: 54-55 bytes per point), rounded up.
+/// olivine supercells up to 3x3x3): 39 bytes per point with the 8-byte records, 54-55 when a
+/// percolation falls back to its 16-byte records (see `percolation::Narrow`); the budget
+/// covers the fallback, rounded up.
 pub const BYTES_PER_GRID_POINT: u64 = 56;
 
 /// Grid evaluation cost (seconds per grid point and framework atom within the 6 A cutoff, one
