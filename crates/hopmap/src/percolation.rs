@@ -90,6 +90,13 @@ pub fn key_value(key: u64) -> f32 {
 /// order, so ties keep index order.
 pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
     let open = |v: f32| v < ceiling;
+    if values.len() <= CHUNK {
+        // one chunk at most: no need to count the digits
+        let mut items = open_items(values, ceiling);
+        let mut buf = vec![0u64; items.len()];
+        radix_sort_by_value(&mut items, &mut buf);
+        return items;
+    }
     let mut hist = vec![0u32; 1 << 16];
     let mut n = 0usize;
     for &v in values {
@@ -99,16 +106,6 @@ pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
         }
     }
     let mut out = vec![0u64; n];
-    if n <= CHUNK {
-        let mut items: Vec<u64> = values
-            .iter()
-            .enumerate()
-            .filter(|(_, v)| open(**v))
-            .map(|(i, &v)| total_key(v, i))
-            .collect();
-        radix_sort_by_value(&mut items, &mut out);
-        return items;
-    }
     // chunk of each 16-bit digit, and where each chunk starts in `out`
     let mut chunk_of = vec![0u32; 1 << 16];
     let mut starts: Vec<usize> = vec![0];
@@ -1736,6 +1733,10 @@ mod tests {
             .collect();
         let order = visit_order(&values, 50.0);
         assert_eq!(order, visit_order_by_comparison(&values, 50.0));
+        // more points than a chunk, fewer of them open than a chunk holds
+        let few = visit_order(&values, -15.0);
+        assert!(!few.is_empty() && few.len() < CHUNK);
+        assert_eq!(few, visit_order_by_comparison(&values, -15.0));
         let digit = |v: f32| f32_key(v) >> 16;
         assert!(values.iter().filter(|&&v| digit(v) == digit(1.5)).count() > CHUNK);
         let with_nan = [1.0, f32::NAN, -2.0, 3.0];
