@@ -29,13 +29,11 @@ use hopmap::analysis::{
     self, AnalysisOptions, framework_ions, mobile_sites, model_and_landscape, occupied_wells,
 };
 use hopmap::element::Element;
-use hopmap::lattice::{CellParameters, Frac, Lattice};
 use hopmap::network::profile::{ProfileOptions, channel_profiles};
 use hopmap::network::{self, NetworkInput, NetworkOptions};
 use hopmap::percolation;
 use hopmap::read::read_structure;
-use hopmap::spacegroup::SymOp;
-use hopmap::structure::{AsymmetricSite, Site, Structure, SymmetryInfo};
+use hopmap::structure::Structure;
 use std::path::PathBuf;
 
 /// [`measure`] plus the peak of live heap bytes during `f` above what was live before it.
@@ -49,62 +47,6 @@ fn reference(name: &str) -> Structure {
         .join("../../structures/reference")
         .join(name);
     read_structure(&path, None).unwrap_or_else(|e| panic!("{e}"))
-}
-
-/// The n x n x n supercell as a P 1 structure (every site its own asymmetric site).
-fn supercell(s: &Structure, n: usize) -> Structure {
-    let p = s.lattice.parameters();
-    let lattice = Lattice::from_parameters(CellParameters {
-        a: p.a * n as f64,
-        b: p.b * n as f64,
-        c: p.c * n as f64,
-        ..p
-    })
-    .expect("a scaled cell is a cell");
-    let mut sites = Vec::new();
-    let mut asym = Vec::new();
-    for i in 0..n {
-        for j in 0..n {
-            for k in 0..n {
-                for site in &s.sites {
-                    let f = site.frac.0;
-                    let frac = Frac::new(
-                        (f.x + i as f64) / n as f64,
-                        (f.y + j as f64) / n as f64,
-                        (f.z + k as f64) / n as f64,
-                    );
-                    sites.push(Site {
-                        frac,
-                        occupants: site.occupants.clone(),
-                        asym_index: asym.len(),
-                    });
-                    asym.push(AsymmetricSite {
-                        label: site.label().to_string(),
-                        frac,
-                        occupants: site.occupants.clone(),
-                        multiplicity: 1,
-                        wyckoff: None,
-                    });
-                }
-            }
-        }
-    }
-    Structure {
-        name: format!("{} {n}x{n}x{n}", s.name),
-        lattice,
-        symmetry: SymmetryInfo {
-            number: Some(1),
-            hm_symbol: Some("P 1".into()),
-            hall_symbol: Some("P 1".into()),
-            ops: vec![SymOp::identity()],
-            source: "supercell built by the bench".into(),
-            transformation: None,
-        },
-        asymmetric_sites: asym,
-        sites,
-        warnings: vec![],
-        oxidation_states_assigned: s.oxidation_states_assigned,
-    }
 }
 
 struct Row {
@@ -235,7 +177,10 @@ fn main() {
     println!("\nScaling: olivine LiFePO4 P 1 supercells at 0.1 A");
     let olivine = reference("LiFePO4_olivine.cif");
     let sizes: &[usize] = if quick { &[1, 2] } else { &[1, 2, 3] };
-    let cells: Vec<Structure> = sizes.iter().map(|&n| supercell(&olivine, n)).collect();
+    let cells: Vec<Structure> = sizes
+        .iter()
+        .map(|&n| olivine.supercell([n; 3]).expect("a supercell"))
+        .collect();
     // The sizes are run in turn, ROUNDS times, and each figure is the smallest of its runs: on
     // a shared machine, other work only ever adds time, and the runs of each size are spread
     // over the same stretch of time. A smaller cell is run several times a round (27 / n^3

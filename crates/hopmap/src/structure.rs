@@ -164,6 +164,60 @@ impl Structure {
         self.lattice.volume()
     }
 
+    /// The supercell of `n[0] x n[1] x n[2]` cells along **a**, **b**, **c**, in P 1: every
+    /// site (wrapped into the cell) copied into each cell, cell by cell, each copy its own
+    /// asymmetric site of multiplicity 1 with the site's label. The lattice vectors are those
+    /// of `self` scaled, in the same Cartesian frame. None when a repeat is 0.
+    pub fn supercell(&self, n: [usize; 3]) -> Option<Structure> {
+        if n.contains(&0) {
+            return None;
+        }
+        let reps = nalgebra::Vector3::from(n.map(|k| k as f64));
+        let lattice =
+            Lattice::from_matrix(self.lattice.matrix() * nalgebra::Matrix3::from_diagonal(&reps))
+                .ok()?;
+        let mut sites = Vec::with_capacity(self.sites.len() * n.iter().product::<usize>());
+        let mut asymmetric_sites = Vec::with_capacity(sites.capacity());
+        for i in 0..n[0] {
+            for j in 0..n[1] {
+                for k in 0..n[2] {
+                    let cell = nalgebra::Vector3::new(i as f64, j as f64, k as f64);
+                    for site in &self.sites {
+                        let frac = Frac((site.frac.wrapped().0 + cell).component_div(&reps));
+                        asymmetric_sites.push(AsymmetricSite {
+                            label: site.label().to_string(),
+                            frac,
+                            occupants: site.occupants.clone(),
+                            multiplicity: 1,
+                            wyckoff: None,
+                        });
+                        sites.push(Site {
+                            frac,
+                            occupants: site.occupants.clone(),
+                            asym_index: sites.len(),
+                        });
+                    }
+                }
+            }
+        }
+        Some(Structure {
+            name: format!("{} {}x{}x{}", self.name, n[0], n[1], n[2]),
+            lattice,
+            symmetry: SymmetryInfo {
+                number: Some(1),
+                hm_symbol: Some("P 1".into()),
+                hall_symbol: Some("P 1".into()),
+                ops: vec![SymOp::identity()],
+                source: format!("{}x{}x{} supercell, in P 1", n[0], n[1], n[2]),
+                transformation: None,
+            },
+            asymmetric_sites,
+            sites,
+            warnings: Vec::new(),
+            oxidation_states_assigned: self.oxidation_states_assigned,
+        })
+    }
+
     pub fn cart(&self, site: &Site) -> Cart {
         self.lattice.to_cart(site.frac)
     }

@@ -535,3 +535,37 @@ fn answers_in_the_cells_as_given_for_comparison() {
         }
     }
 }
+
+/// [`Structure::supercell`] against this file's own construction of a supercell (`recell` by a
+/// diagonal matrix, which finds the positions by translating every site and removing
+/// duplicates): the same lattice, the same positions with the same occupants; and exact facts
+/// of any supercell: the formula unchanged, Z times the number of cells, the same density.
+#[test]
+fn a_supercell_holds_every_site_in_every_cell() {
+    let s = hopmap::read::read_structure(&folder().join("LiFePO4_olivine.cif"), None).unwrap();
+    let n = [2, 1, 3];
+    let big = s.supercell(n).unwrap();
+    let reference = recell(
+        &s,
+        Matrix3::from_diagonal(&Vector3::new(2.0, 1.0, 3.0)),
+        "2x1x3 supercell",
+    );
+    assert!((big.lattice.matrix() - reference.lattice.matrix()).norm() < 1e-9);
+    assert_eq!(big.sites.len(), reference.sites.len());
+    assert_eq!(big.asymmetric_sites.len(), big.sites.len());
+    for site in &big.sites {
+        let twin = reference
+            .sites
+            .iter()
+            .find(|r| big.lattice.periodic_distance(r.frac, site.frac) < 1e-6)
+            .unwrap_or_else(|| panic!("no site at {:?}", site.frac));
+        assert_eq!(twin.occupants, site.occupants);
+        assert!(site.frac.0.iter().all(|&x| (0.0..1.0).contains(&x)));
+    }
+    let ((z, formula), (z_big, formula_big)) = (s.formula_and_z(), big.formula_and_z());
+    assert_eq!(formula, formula_big);
+    assert!((z_big - 6.0 * z).abs() < 1e-9, "Z {z} -> {z_big}");
+    assert!((big.density() - s.density()).abs() < 1e-9 * s.density());
+    assert_eq!(big.symmetry.number, Some(1));
+    assert!(s.supercell([1, 0, 1]).is_none());
+}

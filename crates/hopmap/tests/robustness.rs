@@ -215,52 +215,6 @@ fn physical_options_out_of_range_are_refused() {
     assert!(RateOptions::default().validate().is_ok());
 }
 
-/// The 2 x 2 x 2 supercell of a structure in P 1 (every site copied into the eight subcells).
-fn supercell_222(s: &hopmap::structure::Structure) -> hopmap::structure::Structure {
-    use hopmap::lattice::{Frac, Lattice};
-    use hopmap::spacegroup::SymOp;
-    use hopmap::structure::{AsymmetricSite, Site, Structure, SymmetryInfo};
-    let lattice = Lattice::from_matrix(s.lattice.matrix() * 2.0).unwrap();
-    let mut sites = Vec::new();
-    for site in &s.sites {
-        for (i, j, k) in (0..8).map(|n| (n & 1, (n >> 1) & 1, (n >> 2) & 1)) {
-            let f = (site.frac.wrapped().0 + nalgebra::Vector3::new(i as f64, j as f64, k as f64))
-                / 2.0;
-            sites.push(Site {
-                frac: Frac(f),
-                occupants: site.occupants.clone(),
-                asym_index: sites.len(),
-            });
-        }
-    }
-    let asymmetric_sites = sites
-        .iter()
-        .map(|x: &Site| AsymmetricSite {
-            label: x.label().to_string(),
-            frac: x.frac,
-            occupants: x.occupants.clone(),
-            multiplicity: 1,
-            wyckoff: None,
-        })
-        .collect();
-    Structure {
-        name: format!("{} 2x2x2", s.name),
-        lattice,
-        symmetry: SymmetryInfo {
-            number: Some(1),
-            hm_symbol: Some("P 1".into()),
-            hall_symbol: Some("P 1".into()),
-            ops: vec![SymOp::identity()],
-            source: "built in the test (P 1)".into(),
-            transformation: None,
-        },
-        asymmetric_sites,
-        sites,
-        warnings: vec![],
-        oxidation_states_assigned: false,
-    }
-}
-
 #[test]
 fn a_large_cell_coarsened_by_default_says_so() {
     // olivine LiFePO4 (Streltsov et al. 1993, structures/reference): 291 A^3; its 2x2x2
@@ -273,7 +227,7 @@ fn a_large_cell_coarsened_by_default_says_so() {
         None,
     )
     .unwrap();
-    let big = supercell_222(&s);
+    let big = s.supercell([2, 2, 2]).expect("a 2x2x2 supercell");
     let mut o = AnalysisOptions::new(Element::from_symbol("Li").unwrap());
     o.percolation_only = true;
     let a = analyse(&big, &o).unwrap();
