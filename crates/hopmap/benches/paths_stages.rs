@@ -17,6 +17,12 @@
 //!
 //! CPU seconds come from the scheduler's per-thread counters (Linux); on a shared machine they
 //! are the figure to compare, wall seconds are not. Repeat runs and take the smaller figures.
+//!
+//! The ratio printed here is that of the stages' smallest figures within one process, where
+//! the small cell's arrays come back from the heap already mapped while the supercell's,
+//! above glibc's 32 MiB threshold for fresh mappings, are new pages each run. What the command
+//! costs a user, cell against supercell, is measured by `cargo bench -p hopmap-cli --bench
+//! paths_scaling`.
 
 #[path = "support/cpu.rs"]
 mod cpu;
