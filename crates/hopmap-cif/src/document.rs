@@ -4,7 +4,7 @@
 //! file; every look-up by tag ignores case (CIF tags are case-insensitive, `_Cell_Length_A` is
 //! `_cell_length_a`). Nothing here knows what a tag means.
 
-/// Which grammar the file was read with (see [`crate::cif`] for how it is chosen).
+/// Which grammar the file was read with (see the [crate] notes for how it is chosen).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Version {
     V1_1,
@@ -94,7 +94,7 @@ pub enum Value {
     /// `.`: the value does not apply.
     Inapplicable,
     /// Any other value. Numbers stay text here; read them with
-    /// [`crate::cif::parse_number_with_su`].
+    /// [`crate::parse_number_with_su`].
     Text {
         text: String,
         /// True when the value was quoted or a text field (so `'?'` is the text "?").

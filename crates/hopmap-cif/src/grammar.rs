@@ -6,7 +6,7 @@
 //! [`MAX_DEPTH`] levels, so any input ends in a document or an error without panicking, and in
 //! time linear in its length.
 //!
-//! The quoting rules, decided per file (see [`crate::cif`] for the rest):
+//! The quoting rules, decided per file (see the [crate] notes for the rest):
 //!
 //! - CIF 1.1: `'...'` and `"..."` end at the first matching quote that is followed by white space
 //!   or the end of the file, and never span lines: `'O'Neil'` is the text `O'Neil`.

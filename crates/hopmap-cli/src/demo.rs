@@ -91,7 +91,7 @@ pub struct DemoResult {
     pub barriers_ev: [Option<f64>; 3],
     /// Dimension of the network with the best rate (the largest particle at 10C).
     pub best_dimension: Option<u8>,
-    /// Its direction [uvw], plane (hkl) or "3D".
+    /// Its direction `[uvw]`, plane `(hkl)` or "3D".
     pub best_direction: String,
     pub best_barrier_ev: Option<f64>,
     /// D at 298.15 K of that network (m^2/s); None when no network has bulk transport.

@@ -46,7 +46,7 @@ pub struct HeatMap {
     /// In-plane lattice vectors, Cartesian A within the plane.
     pub u_vector_a: [f64; 2],
     pub v_vector_a: [f64; 2],
-    /// Labels of the two directions in the orientation key, e.g. "a" and "b" or "[100]".
+    /// Labels of the two directions in the orientation key, e.g. "a" and "b" or "\[100\]".
     pub u_label: String,
     pub v_label: String,
     pub colormap: Colormap,

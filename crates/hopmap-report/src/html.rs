@@ -130,7 +130,7 @@ fn ion_name(a: &Analysis) -> String {
 }
 
 /// The answer in plain words, e.g. "Li+ can travel through LiFePO4 along one-dimensional
-/// channels in the [010] direction, over a barrier of 0.41 ± 0.15 eV; joining the channels into
+/// channels in the `[010]` direction, over a barrier of 0.41 ± 0.15 eV; joining the channels into
 /// layers parallel to the (100) plane takes 0.79 eV, and into a three-dimensional network 1.80
 /// eV." The networks are those of `hopmap::summary` (thresholds within
 /// [`hopmap::analysis::CHANNEL_MERGE_EV`] told as one, the highest dimension).

@@ -1201,7 +1201,7 @@ fn other_mobile_ions_warning(
     }
 }
 
-/// The headline in one sentence, e.g. "Li: 1D channels along [010], barrier 0.41 ± 0.15 eV; 2D
+/// The headline in one sentence, e.g. "Li: 1D channels along \[010\], barrier 0.41 ± 0.15 eV; 2D
 /// at 0.79 eV; 3D at 1.80 eV" (see [`crate::summary`]).
 pub fn headline(a: &Analysis) -> String {
     a.summary.headline.clone()

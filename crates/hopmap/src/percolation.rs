@@ -86,7 +86,7 @@ pub fn key_value(key: u64) -> f32 {
 /// about 200 streams of writes on a grid of ten million points. The keys are made in this
 /// pass, straight from the values. Then each chunk, small enough to stay in the processor's
 /// second-level cache, is sorted on its own by a least-significant-digit radix sort on the value
-/// bits ([`radix_sort_by_value`]). Every pass is stable and the keys are made in index
+/// bits (`radix_sort_by_value`). Every pass is stable and the keys are made in index
 /// order, so ties keep index order.
 pub fn visit_order(values: &[f32], ceiling: f32) -> Vec<u64> {
     let open = |v: f32| v < ceiling;

@@ -49,7 +49,7 @@ impl Orientation {
         }
     }
 
-    /// "along [010]", "in the (001) plane", "in all directions".
+    /// "along \[010\]", "in the (001) plane", "in all directions".
     pub fn words(&self) -> String {
         match self {
             Orientation::Line(v) => format!("along [{}]", format_indices(*v)),
@@ -123,7 +123,7 @@ pub struct Summary {
     pub hop_groups: Vec<HopGroup>,
     /// An empty pocket deeper than the occupied sites, if any.
     pub deeper_pocket: Option<DeeperPocket>,
-    /// The answer in one line, e.g. "Li: 1D channels along [010], barrier 0.41 ± 0.15 eV; 2D at
+    /// The answer in one line, e.g. "Li: 1D channels along \[010\], barrier 0.41 ± 0.15 eV; 2D at
     /// 0.79 eV; 3D at 1.80 eV".
     pub headline: String,
     /// The numbers a screener sorts by, for the network the answer leads with.

@@ -12,7 +12,7 @@
 //!   rhombohedral groups, origin choice 2): `A_conv = A_input P` and `x_conv = P^-1 (x_input -
 //!   p)` with moyo's transformation (P, p), then each atom moved onto its exact symmetric
 //!   position (by at most the tolerance), the origin set by a fixed rule among the equivalent
-//!   ones ([`canonical_shift`]), the sites put in a fixed order, and the lattice in the standard
+//!   ones (`canonical_shift`), the sites put in a fixed order, and the lattice in the standard
 //!   orientation. A primitive cell, a supercell or a cell with a shifted origin of one
 //!   crystal therefore all come out as the same conventional cell, and channel directions,
 //!   site orbits and hop groups are those of the conventional setting.

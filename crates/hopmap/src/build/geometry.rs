@@ -36,7 +36,7 @@
 //!   a = 3.248 d; solved here by Newton's method); square tunnels at (0, 0), (1/2, 1/2),
 //!   pentagonal tunnels at the four images of (t, 1/2 + t) farthest from the metals.
 //! - Intergrowth (Cmmm ideal): single rows of hexagonal tunnels between ReO3-type slabs two
-//!   octahedra thick (see [`intergrowth`]).
+//!   octahedra thick (see `intergrowth`).
 
 use super::{BlockJoin, BronzeKind, BuildError, BuildOptions, FrameworkSpec, Mix, max_state};
 use crate::bv::{PairRole, ParameterTable};

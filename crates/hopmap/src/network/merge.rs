@@ -17,7 +17,7 @@
 //! joins two regions that were apart), so a shallow minimum joins the neighbour it drains to
 //! over its lowest saddle, and through it whatever that neighbour joined. A merged site keeps
 //! its lowest minimum as its position (the midpoint of its two lowest when exactly two are
-//! tied, see [`position_members`]); its `internal_saddle` is its highest contracted saddle,
+//! tied, see `position_members`); its `internal_saddle` is its highest contracted saddle,
 //! the level from which its minima are connected among themselves. Hops between merged sites
 //! are the lowest basin hop of each (site pair, image) (see
 //! [`crate::network::hops::site_hops`]), which is the lowest `max(E_u, E_v)` over touching
@@ -379,7 +379,7 @@ pub(crate) fn position_members<'g>(
     &group.members[..if tied == 2 { 2 } else { 1 }]
 }
 
-/// The grid position of a site (see [`position_members`]).
+/// The grid position of a site (see `position_members`).
 fn group_position(grid: &Grid, basins: &Basins, group: &Group) -> Frac {
     let mut sum = Vector3::zeros();
     let mut n = 0.0;

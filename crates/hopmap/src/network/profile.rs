@@ -105,7 +105,7 @@ impl Profile {
 ///
 /// `percolation` is the percolation of `grid` (the grid's, not the site graph's) below
 /// `options.ceiling`: its thresholds give each search its bottleneck, or a candidate for it
-/// (see [`Bottleneck`]), so that the least-cost pass need not wait for the bottleneck pass.
+/// (see `Bottleneck`), so that the least-cost pass need not wait for the bottleneck pass.
 pub fn channel_profiles(
     grid: &Grid,
     percolation: &Percolation,
