@@ -167,17 +167,20 @@ impl Structure {
     /// The supercell of `n[0] x n[1] x n[2]` cells along **a**, **b**, **c**, in P 1: every
     /// site (wrapped into the cell) copied into each cell, cell by cell, each copy its own
     /// asymmetric site of multiplicity 1 with the site's label. The lattice vectors are those
-    /// of `self` scaled, in the same Cartesian frame. None when a repeat is 0.
+    /// of `self` scaled, in the same Cartesian frame. None when a repeat is 0 or the number of
+    /// sites would overflow.
     pub fn supercell(&self, n: [usize; 3]) -> Option<Structure> {
-        if n.contains(&0) {
+        let cells = n.iter().try_fold(1usize, |a, &k| a.checked_mul(k))?;
+        let total = self.sites.len().checked_mul(cells)?;
+        if cells == 0 {
             return None;
         }
         let reps = nalgebra::Vector3::from(n.map(|k| k as f64));
         let lattice =
             Lattice::from_matrix(self.lattice.matrix() * nalgebra::Matrix3::from_diagonal(&reps))
                 .ok()?;
-        let mut sites = Vec::with_capacity(self.sites.len() * n.iter().product::<usize>());
-        let mut asymmetric_sites = Vec::with_capacity(sites.capacity());
+        let mut sites = Vec::with_capacity(total);
+        let mut asymmetric_sites = Vec::with_capacity(total);
         for i in 0..n[0] {
             for j in 0..n[1] {
                 for k in 0..n[2] {

@@ -568,4 +568,5 @@ fn a_supercell_holds_every_site_in_every_cell() {
     assert!((big.density() - s.density()).abs() < 1e-9 * s.density());
     assert_eq!(big.symmetry.number, Some(1));
     assert!(s.supercell([1, 0, 1]).is_none());
+    assert!(s.supercell([usize::MAX, 2, 1]).is_none());
 }
