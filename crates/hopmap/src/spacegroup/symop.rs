@@ -121,7 +121,7 @@ impl SymOp {
                         add_coefficient(&mut rot[(row, col)], sign, value).map_err(&err)?;
                         i += 1;
                     } else {
-                        trans[row] += sign * value;
+                        add_translation(&mut trans[row], sign, value).map_err(&err)?;
                     }
                 } else {
                     return Err(err(format!("unexpected character '{}'", chars[i])));
@@ -166,6 +166,36 @@ fn add_coefficient(entry: &mut i32, sign: f64, value: f64) -> Result<(), String>
         ));
     }
     *entry = sum as i32;
+    Ok(())
+}
+
+/// The largest translation accepted in a written operation, in cells. The translations of a
+/// space group lie within a cell of the origin in every setting in use; a far larger one is
+/// damage, and past about 10^15 cells a float no longer holds its fraction, so it would be
+/// read as some other translation without a word.
+const MAX_TRANSLATION: f64 = 100.0;
+
+/// Adds the translation term `sign * value` to one component, refusing a term or a sum outside
+/// -[`MAX_TRANSLATION`]..[`MAX_TRANSLATION`] cells.
+fn add_translation(component: &mut f64, sign: f64, value: f64) -> Result<(), String> {
+    let sum = *component + sign * value;
+    if value > MAX_TRANSLATION || sum.abs() > MAX_TRANSLATION {
+        let t = if value > MAX_TRANSLATION {
+            sign * value
+        } else {
+            sum
+        };
+        // (a number of hundreds of digits in a message helps nobody)
+        let t = if t.abs() < 1e6 {
+            format!("{t}")
+        } else {
+            format!("{t:e}")
+        };
+        return Err(format!(
+            "translation {t} is outside -{MAX_TRANSLATION}..{MAX_TRANSLATION} cells"
+        ));
+    }
+    *component = sum;
     Ok(())
 }
 
@@ -270,6 +300,16 @@ mod tests {
         assert!(SymOp::parse_xyz("2147483647*x+x,y,z").is_err());
         assert!(SymOp::parse_xyz(&format!("{},y,z", "x+".repeat(20) + "x")).is_err());
         assert!(SymOp::parse_xyz(&format!("x,y,z+{}", "9".repeat(400))).is_err());
+        // finite, but far beyond any translation of a space group (and beyond what a float
+        // holds to the fraction): refused, where it was once read as some other translation
+        assert!(SymOp::parse_xyz(&format!("x,y,z+{}", "9".repeat(300))).is_err());
+        assert!(SymOp::parse_xyz("x,y,z+1000000000000000000.5").is_err());
+        assert!(SymOp::parse_xyz("x,y+101,z").is_err());
+        assert!(SymOp::parse_xyz("x,y+60+60,z").is_err());
+        assert_eq!(
+            SymOp::parse_xyz("x+99/2,y-3/2,z+1").unwrap(),
+            SymOp::parse_xyz("x+1/2,y+1/2,z").unwrap()
+        );
         assert!(SymOp::parse_xyz("1.5x,y,z").is_err());
         assert!(SymOp::parse_xyz("1.5*x,y,z").is_err());
         // a legal coefficient still reads
