@@ -333,14 +333,7 @@ fn mixed_site_structure() -> Structure {
     Structure {
         name: "demo mixed".into(),
         lattice: lattice(3.8, 3.8, 3.9),
-        symmetry: SymmetryInfo {
-            number: Some(1),
-            hm_symbol: Some("P 1".into()),
-            hall_symbol: Some("P 1".into()),
-            ops: vec![SymOp::identity()],
-            source: "built in a test".into(),
-            transformation: None,
-        },
+        symmetry: SymmetryInfo::p1("built in a test"),
         asymmetric_sites: vec![AsymmetricSite {
             label: "M1".into(),
             frac: Frac::new(0.0, 0.0, 0.0),

@@ -30,7 +30,6 @@ use crate::landscape::evaluate_point;
 use crate::lattice::{Frac, Lattice};
 use crate::network::merge::MERGE_DEPTH_EV;
 use crate::network::profile::{Profile, TIE_TOLERANCE, path_between};
-use crate::spacegroup::SymOp;
 use crate::structure::{AsymmetricSite, Occupant, Site, Species, Structure, SymmetryInfo};
 use nalgebra::{Matrix3, Vector3};
 
@@ -1056,14 +1055,7 @@ pub fn populate(a: &Analysis, o: &PopulateOptions) -> Result<Populated, HandoffE
     for (i, s) in out.sites.iter_mut().enumerate() {
         s.asym_index = i;
     }
-    out.symmetry = SymmetryInfo {
-        number: Some(1),
-        hm_symbol: Some("P 1".into()),
-        hall_symbol: Some("P 1".into()),
-        ops: vec![SymOp::identity()],
-        source: "hopmap populate: the host's cell in P 1".into(),
-        ..Default::default()
-    };
+    out.symmetry = SymmetryInfo::p1("hopmap populate: the host's cell in P 1");
     out.name = format!(
         "{}_{}{}",
         a.structure.name,

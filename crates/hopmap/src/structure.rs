@@ -126,6 +126,20 @@ pub struct SymmetryInfo {
     pub transformation: Option<CellTransformation>,
 }
 
+impl SymmetryInfo {
+    /// P 1: the identity alone, with `source` saying where the cell came from.
+    pub fn p1(source: impl Into<String>) -> Self {
+        SymmetryInfo {
+            number: Some(1),
+            hm_symbol: Some("P 1".into()),
+            hall_symbol: Some("P 1".into()),
+            ops: vec![SymOp::identity()],
+            source: source.into(),
+            transformation: None,
+        }
+    }
+}
+
 /// How a P 1 input cell relates to the conventional cell of the symmetry found in it:
 /// `A_conv = A_input linear` (lattice vectors as columns; the conventional cell is then set in
 /// the standard orientation, a rotation of the Cartesian frame) and
@@ -206,14 +220,7 @@ impl Structure {
         Some(Structure {
             name: format!("{} {}x{}x{}", self.name, n[0], n[1], n[2]),
             lattice,
-            symmetry: SymmetryInfo {
-                number: Some(1),
-                hm_symbol: Some("P 1".into()),
-                hall_symbol: Some("P 1".into()),
-                ops: vec![SymOp::identity()],
-                source: format!("{}x{}x{} supercell, in P 1", n[0], n[1], n[2]),
-                transformation: None,
-            },
+            symmetry: SymmetryInfo::p1(format!("{}x{}x{} supercell, in P 1", n[0], n[1], n[2])),
             asymmetric_sites,
             sites,
             warnings: Vec::new(),

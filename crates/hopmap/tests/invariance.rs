@@ -68,7 +68,6 @@ use hopmap::calibrate::split_csv_record;
 use hopmap::element::Element;
 use hopmap::lattice::Frac;
 use hopmap::percolation::{Percolation, Span};
-use hopmap::spacegroup::SymOp;
 use hopmap::structure::{AsymmetricSite, Site, Structure, SymmetryInfo};
 use hopmap::symmetry::complete_symmetry;
 use nalgebra::{Matrix3, Vector3};
@@ -133,14 +132,7 @@ fn p1(name: &str, lattice: Lattice, sites: Vec<Site>) -> Structure {
     Structure {
         name: name.to_string(),
         lattice,
-        symmetry: SymmetryInfo {
-            number: Some(1),
-            hm_symbol: Some("P 1".into()),
-            hall_symbol: Some("P 1".into()),
-            ops: vec![SymOp::identity()],
-            source: "built in the test (P 1)".into(),
-            transformation: None,
-        },
+        symmetry: SymmetryInfo::p1("built in the test (P 1)"),
         asymmetric_sites: asym,
         sites,
         warnings: vec![],

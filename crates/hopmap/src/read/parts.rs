@@ -4,7 +4,6 @@
 
 use crate::error::InputError;
 use crate::lattice::{Frac, Lattice};
-use crate::spacegroup::SymOp;
 use crate::structure::{AsymmetricSite, Occupant, Species, Structure, SymmetryInfo};
 
 /// Entries closer than this (A) share one site: a mixed site listed once per occupant.
@@ -122,14 +121,7 @@ pub fn structure_from_parts(parts: &Parts, keep_cell: bool) -> Result<Structure,
     let structure = Structure {
         name: parts.name.clone(),
         lattice,
-        symmetry: SymmetryInfo {
-            number: Some(1),
-            hm_symbol: Some("P 1".into()),
-            hall_symbol: Some("P 1".into()),
-            ops: vec![SymOp::identity()],
-            source: "built from parts in memory: the whole cell as given, P 1".into(),
-            transformation: None,
-        },
+        symmetry: SymmetryInfo::p1("built from parts in memory: the whole cell as given, P 1"),
         asymmetric_sites: asym,
         sites,
         warnings,

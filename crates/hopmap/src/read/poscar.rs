@@ -23,7 +23,6 @@
 use crate::element::Element;
 use crate::error::InputError;
 use crate::lattice::{Frac, Lattice};
-use crate::spacegroup::SymOp;
 use crate::structure::{AsymmetricSite, Occupant, Site, Species, Structure, SymmetryInfo};
 use nalgebra::Vector3;
 use std::path::Path;
@@ -407,14 +406,7 @@ pub(crate) fn p1_structure(
     Structure {
         name: name.to_string(),
         lattice,
-        symmetry: SymmetryInfo {
-            number: Some(1),
-            hm_symbol: Some("P 1".into()),
-            hall_symbol: Some("P 1".into()),
-            ops: vec![SymOp::identity()],
-            source,
-            transformation: None,
-        },
+        symmetry: SymmetryInfo::p1(source),
         asymmetric_sites: asym,
         sites,
         warnings: Vec::new(),
